@@ -1,0 +1,1 @@
+"""Outrigger's HTTP layer and command line: thin wrappers over ``analysis``."""
