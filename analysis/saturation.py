@@ -103,10 +103,8 @@ def sliding_rms(t: np.ndarray, x: np.ndarray, window_s: float) -> np.ndarray:
     t = np.asarray(t, dtype=float)
     x = np.asarray(x, dtype=float)
     n = t.size
-    if n == 0:
-        return np.zeros(0)
-    if n == 1:
-        return np.abs(x).astype(float)
+    if n < 2:
+        return np.full(n, np.nan)  # one sample covers no time
     h = sample_weights(t)[:-1]  # interval lengths, 0 across data gaps
     sq = x * x
     seg_sq = 0.5 * (sq[:-1] + sq[1:])

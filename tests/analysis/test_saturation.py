@@ -270,6 +270,15 @@ def test_actuators_without_signals_are_noted_and_the_others_analysed() -> None:
     assert any("hip_l.torque_cmd" in n for n in res.notes)
 
 
+def test_a_single_sample_run_has_no_thermal_load() -> None:
+    frame = pd.DataFrame({"t": [0.0], "wheel_l.torque_cmd": [9.9]})
+    res = detect_saturation(frame, _profile(Actuator("wheel_l", "wheel", "l", 10.0, 4.0)))
+    # One sample spans no time: no share, no RMS, and no event (shorter than min_duration_s).
+    assert res.kpis["wheel_l"]["saturated_share"] is None
+    assert res.kpis["wheel_l"]["torque_rms_worst"] is None
+    assert res.events == []
+
+
 def test_empty_frame_is_skipped() -> None:
     res = detect_saturation(pd.DataFrame({"t": []}), _profile())
     assert res.skipped is not None and "no samples" in res.skipped
