@@ -14,7 +14,7 @@ References
 .. [1] SAE J670, Vehicle Dynamics Terminology. SAE International, 2008
    (longitudinal slip ratio).
 .. [2] H. B. Pacejka, Tire and Vehicle Dynamics, 3rd ed.
-   Butterworth-Heinemann, 2012, Sec. 1.2 (longitudinal slip).
+   Butterworth-Heinemann, 2012, ch. 1 (longitudinal slip kappa = -V_sx / |V_x|).
 .. [3] R. Siegwart, I. R. Nourbakhsh and D. Scaramuzza, Introduction to
    Autonomous Mobile Robots, 2nd ed. MIT Press, 2011, ch. 3.
 """
@@ -70,8 +70,8 @@ def slip_ratio(v_rim: np.ndarray, v_contact: np.ndarray, min_ref_speed: float) -
 
     Notes
     -----
-    ``kappa = (v_rim - v_contact) / max(|v_contact|, v_min)`` ([1]; [2] Sec.
-    1.2 with ``-V_sx / |V_x|``, the sign taken so that driving slip is
+    ``kappa = (v_rim - v_contact) / max(|v_contact|, v_min)`` ([1]; [2] ch.
+    1, ``-V_sx / |V_x|``, the sign taken so that driving slip is
     positive). The floor ``v_min`` is ours: at a standstill ``|v_contact|``
     tends to 0 and any encoder noise would give an unbounded ratio.
     """

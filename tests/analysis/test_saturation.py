@@ -86,8 +86,8 @@ def test_rms_of_a_sine_over_whole_periods() -> None:
     A = 4.0
     rms = sliding_rms(t, A * np.sin(2 * np.pi * 1.0 * t), window_s=2.0)
     full = t >= 2.0
-    # RMS of a sinusoid of amplitude A over whole periods is A / sqrt(2) (any circuit-theory
-    # text, e.g. Hughes & Drury ch. 1). Tolerance: the window edges fall between samples and are
+    # Analytic: the RMS of a sinusoid of amplitude A over whole periods is A / sqrt(2)
+    # (mean of sin^2 over a period is 1/2; standard circuit-theory result). Tolerance: the window edges fall between samples and are
     # read by linear interpolation; 1 ms of a 1 Hz sine changes the mean square by < 1e-4.
     assert rms[full] == pytest.approx(np.full(full.sum(), A / np.sqrt(2)), rel=1e-4)
 

@@ -83,7 +83,7 @@ def _kinds(events: list[Event]) -> list[tuple[str, str | None]]:
 
 def test_slip_ratio_worked_numbers() -> None:
     kappa = slip_ratio(np.array([2.4, 1.6, -2.4]), np.array([2.0, 2.0, -2.0]), 0.5)
-    # SAE J670 / Pacejka (Tire and Vehicle Dynamics, sec. 1.2): (v_rim - v) / |v|:
+    # SAE J670 / Pacejka (Tire and Vehicle Dynamics, ch. 1): (v_rim - v) / |v|:
     # (2.4 - 2.0) / 2.0 = 0.2 driving, (1.6 - 2.0) / 2.0 = -0.2 braking; the same magnitudes
     # reversing, with the sign of the velocity difference.
     assert kappa == pytest.approx([0.2, -0.2, -0.2])
