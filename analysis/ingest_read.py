@@ -1,0 +1,527 @@
+"""Reading raw log files in batches: CSV (plain or gzip), Parquet and JSON Lines.
+
+This module finds a file's format and columns and yields its rows as Arrow
+tables of fixed column types, block by block, so that a multi-GB log never sits
+in memory whole. Lines that do not parse are skipped and recorded with their
+1-based line number in the file and the reason.
+
+Notes
+-----
+CSV and JSON Lines are read in blocks of about :data:`BLOCK_BYTES` that end at a
+line break. Each block first goes through the fast path: one multi-threaded
+pyarrow parse with the final column types. The fast path is kept only if it
+succeeds and yields one row per line of the block, which proves that the block
+held no comment, blank or malformed line, so row ``i`` is line ``first + i``.
+Otherwise the block takes the slow path: the lines are classified with numpy
+(comment, blank, wrong number of fields), the good lines are parsed as text and
+every column is validated and converted on its own, so each bad value can be
+traced to its line. Fields must not contain quoted delimiters or line breaks
+(numeric logs do not); such a file is reported as having malformed lines.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+from collections.abc import Callable, Iterator, Sequence
+from dataclasses import dataclass, field
+from datetime import datetime
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.csv as pacsv
+import pyarrow.json as pajson
+import pyarrow.parquet as pq
+
+from analysis.errors import IngestError
+
+#: Bytes of text parsed at once (before decompression for gzip this is the text size).
+BLOCK_BYTES = 32 << 20
+#: Rows per batch read from Parquet input.
+PARQUET_BATCH_ROWS = 1 << 18
+#: Bytes read to find the header and guess types.
+PEEK_BYTES = 1 << 20
+#: Most skipped lines kept in the report (all are counted).
+MAX_LISTED_LINES = 100
+
+_FLOAT_RE = r"(?i)^[-+]?((\d+(\.\d*)?|\.\d+)(e[-+]?\d+)?|inf|infinity|nan)$"
+_INT_RE = r"^[-+]?\d+$"
+_BOOL_RE = r"(?i)^(true|false|1|0)$"
+
+
+@dataclass
+class FileInfo:
+    """What :func:`inspect_file` learnt about one log file."""
+
+    path: Path
+    fmt: str  # "csv" | "parquet" | "jsonl"
+    compression: str | None
+    columns: list[str]
+    delimiter: str = ","
+    header_line: int = 0  # 1-based line of the CSV header
+    data_offset: int = 0  # byte offset of the first data line in the (decompressed) text
+    size: int = 0  # bytes on disk
+    peek: pa.Table | None = None  # first rows, types inferred
+
+
+@dataclass
+class BadLines:
+    """Lines of one file that were skipped, with reasons (the first ones listed, all counted)."""
+
+    unit: str = "line"
+    count: int = 0
+    total: int = 0  # data lines or rows seen (comments and blank lines excluded)
+    listed: list[dict[str, object]] = field(default_factory=list)
+
+    def add(self, lines: Sequence[int] | np.ndarray, reason: str | Sequence[str]) -> None:
+        """Record skipped lines with one reason for all or one reason per line."""
+        n = len(lines)
+        self.count += n
+        room = MAX_LISTED_LINES - len(self.listed)
+        for k in range(min(room, n)):
+            why = reason if isinstance(reason, str) else reason[k]
+            self.listed.append({self.unit: int(lines[k]), "reason": why})
+
+
+def _open_text(path: Path, compression: str | None) -> tuple[pa.NativeFile, pa.NativeFile]:
+    raw = pa.OSFile(str(path), "rb")
+    stream = pa.CompressedInputStream(raw, "gzip") if compression else raw
+    return raw, stream
+
+
+def inspect_file(path: str | Path, delimiter: str | None = None) -> FileInfo:
+    """Find the format, columns, CSV delimiter and header line of a log file.
+
+    Raises
+    ------
+    IngestError
+        If the file is missing, empty, has no data rows, or is neither CSV,
+        Parquet nor JSON Lines.
+    """
+    p = Path(path)
+    if not p.is_file():
+        raise IngestError(f"Log file {p} does not exist.")
+    size = p.stat().st_size
+    if size == 0:
+        raise IngestError(f"Log file {p.name} is empty (0 bytes). Give a file with data.")
+    with p.open("rb") as fh:
+        magic = fh.read(4)
+    if magic == b"PAR1":
+        try:
+            pf = pq.ParquetFile(p)
+        except Exception as exc:
+            raise IngestError(f"{p.name} looks like Parquet but cannot be read: {exc}") from exc
+        if pf.metadata.num_rows == 0:
+            raise IngestError(f"Log file {p.name} is empty (a Parquet file with no rows).")
+        return FileInfo(p, "parquet", None, pf.schema_arrow.names, size=size)
+    compression = "gzip" if magic[:2] == b"\x1f\x8b" else None
+    raw, stream = _open_text(p, compression)
+    try:
+        head = stream.read(PEEK_BYTES)
+    except OSError as exc:
+        raise IngestError(f"{p.name} is not a readable gzip file: {exc}") from exc
+    finally:
+        stream.close()
+        raw.close()
+    if b"\x00" in head:
+        raise IngestError(
+            f"{p.name} is neither CSV, Parquet nor JSON Lines (binary content). "
+            f"Export the log as one of these."
+        )
+    try:
+        text = head.decode("utf-8")
+    except UnicodeDecodeError:
+        text = head.decode("latin-1")
+    lines = text.split("\n")
+    offset = 0
+    for i, line in enumerate(lines):
+        stripped = line.strip()
+        complete = i < len(lines) - 1
+        if not stripped or stripped.startswith("#"):
+            offset += len(line.encode("utf-8", "surrogateescape")) + 1
+            continue
+        if not complete and len(head) == PEEK_BYTES:
+            break
+        if stripped.startswith("{"):
+            return _inspect_jsonl(p, compression, head, size)
+        delim = delimiter or max((",", ";", "\t"), key=stripped.count)
+        columns = [c.strip().strip('"') for c in stripped.split(delim)]
+        if len(columns) < 2:
+            raise IngestError(
+                f"{p.name} is neither CSV, Parquet nor JSON Lines: its first line "
+                f"{stripped[:60]!r} has no ',', ';' or tab delimiter."
+            )
+        dupes = sorted({c for c in columns if columns.count(c) > 1})
+        if dupes:
+            raise IngestError(f"{p.name}: column name(s) {', '.join(dupes)} appear twice.")
+        offset += len(line.encode("utf-8", "surrogateescape")) + 1
+        rest = head[offset:]
+        if not rest.strip(b"\r\n\t ;,#"):
+            if len(head) < PEEK_BYTES:
+                raise IngestError(
+                    f"Log file {p.name} is empty: a header but no data rows. Give a file with data."
+                )
+        info = FileInfo(p, "csv", compression, columns, delim, i + 1, offset, size)
+        info.peek = _peek_csv(info, rest)
+        return info
+    raise IngestError(
+        f"Log file {p.name} is empty: no header line or data found. Give a file with data."
+    )
+
+
+def _inspect_jsonl(p: Path, compression: str | None, head: bytes, size: int) -> FileInfo:
+    end = head.rfind(b"\n")
+    block = head if end < 0 else head[: end + 1]
+    columns: list[str] = []
+    for line in block.split(b"\n")[:1000]:
+        try:
+            obj = json.loads(line)
+        except ValueError:
+            continue
+        if isinstance(obj, dict):
+            columns += [k for k in obj if k not in columns]
+    if not columns:
+        raise IngestError(f"{p.name} is not JSON Lines: no line holds a JSON object.")
+    info = FileInfo(p, "jsonl", compression, columns, size=size)
+    try:
+        info.peek = pajson.read_json(io.BytesIO(block))
+    except pa.ArrowInvalid:
+        info.peek = None
+    return info
+
+
+def _peek_csv(info: FileInfo, rest: bytes) -> pa.Table | None:
+    end = rest.rfind(b"\n")
+    block = rest if end < 0 else rest[: end + 1]
+    lines = [ln for ln in block.split(b"\n") if ln.strip() and not ln.startswith(b"#")]
+    try:
+        return pacsv.read_csv(
+            io.BytesIO(b"\n".join(lines[:5000])),
+            read_options=pacsv.ReadOptions(column_names=info.columns),
+            parse_options=pacsv.ParseOptions(
+                delimiter=info.delimiter, invalid_row_handler=lambda row: "skip"
+            ),
+        )
+    except pa.ArrowInvalid:
+        return None
+
+
+# --- conversion with per-row validation (slow path) -------------------------------
+
+
+def _validate(column: pa.Array, target: pa.DataType) -> tuple[pa.Array, np.ndarray]:
+    """Convert a text column to ``target``; return it and the mask of unparseable cells."""
+    n = len(column)
+    if pa.types.is_string(target) or pa.types.is_large_string(target):
+        return column.cast(target), np.zeros(n, bool)
+    text = pc.utf8_trim_whitespace(column.cast(pa.string()))
+    empty = pc.equal(text, "")
+    text = pc.if_else(empty, pa.scalar(None, pa.string()), text)
+    present = pc.is_valid(text).to_numpy(zero_copy_only=False)
+    if pa.types.is_timestamp(target):
+        try:
+            return text.cast(target), np.zeros(n, bool)
+        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+            values = text.to_pylist()
+            bad = np.zeros(n, bool)
+            out: list[int | None] = []
+            for k, v in enumerate(values):  # slow path only: blocks with unparseable times
+                if v is None:
+                    out.append(None)
+                    continue
+                try:
+                    stamp = datetime.fromisoformat(v)
+                except ValueError:
+                    stamp = None
+                if stamp is None or stamp.tzinfo is None:
+                    bad[k] = True
+                    out.append(None)
+                else:
+                    out.append(int(stamp.timestamp()) * 10**9 + stamp.microsecond * 1000)
+            return pa.array(out, pa.int64()).cast(target), bad
+    if pa.types.is_integer(target):
+        pattern = _INT_RE
+    elif pa.types.is_boolean(target):
+        pattern = _BOOL_RE
+    else:
+        pattern = _FLOAT_RE
+    ok = pc.fill_null(pc.match_substring_regex(text, pattern), True).to_numpy(zero_copy_only=False)
+    bad = present & ~ok
+    if bad.any():
+        text = pc.if_else(pa.array(bad), pa.scalar(None, pa.string()), text)
+    return text.cast(target), bad
+
+
+def _convert_text_table(
+    table: pa.Table,
+    types: dict[str, pa.DataType],
+    required: str,
+    lines: np.ndarray,
+    bad: BadLines,
+) -> pa.Table:
+    """Slow path: validate every column of an all-text table, drop and record bad rows."""
+    n = table.num_rows
+    drop = np.zeros(n, bool)
+    reasons: dict[int, str] = {}
+    arrays = {}
+    for name, target in types.items():
+        arr, bad_cells = _validate(table.column(name).combine_chunks(), target)
+        if bad_cells.any():
+            idx = np.flatnonzero(bad_cells & ~drop)
+            raw = table.column(name).take(pa.array(idx)).to_pylist()
+            kind = "time" if name == required else "a number"
+            for k, value in zip(idx.tolist(), raw, strict=True):
+                reasons[k] = f"{value!r} in column {name!r} is not {kind}"
+            drop |= bad_cells
+        arrays[name] = arr
+    missing_time = ~pc.is_valid(arrays[required]).to_numpy(zero_copy_only=False) & ~drop
+    for k in np.flatnonzero(missing_time).tolist():
+        reasons[k] = f"empty time cell in column {required!r}"
+    drop |= missing_time
+    out = pa.table(arrays)
+    if drop.any():
+        idx = np.flatnonzero(drop)
+        bad.add(lines[idx], [reasons[k] for k in idx.tolist()])
+        out = out.filter(pa.array(~drop))
+    return out
+
+
+# --- CSV -------------------------------------------------------------------------
+
+
+def _iter_text_blocks(
+    info: FileInfo, tick: Callable[[int], None] | None
+) -> Iterator[tuple[bytes, int]]:
+    """Yield (block of whole lines, 1-based line number of its first line)."""
+    raw, stream = _open_text(info.path, info.compression)
+    try:
+        skipped = stream.read(info.data_offset)
+        line_no = skipped.count(b"\n") + 1
+        carry = b""
+        while True:
+            chunk = stream.read(BLOCK_BYTES)
+            if tick is not None:
+                tick(raw.tell())
+            if not chunk:
+                if carry:
+                    yield carry, line_no
+                return
+            data = carry + chunk
+            end = data.rfind(b"\n")
+            if end < 0:
+                carry = data
+                continue
+            block, carry = data[: end + 1], data[end + 1 :]
+            yield block, line_no
+            line_no += block.count(b"\n")
+    finally:
+        stream.close()
+        raw.close()
+
+
+def _line_table(block: bytes, delimiter: str, ncols: int, first: int) -> tuple[np.ndarray, ...]:
+    """Classify the lines of a block with numpy: starts, lengths, valid mask, fields, numbers."""
+    buf = np.frombuffer(block, np.uint8)
+    nl = np.flatnonzero(buf == 10)
+    starts = np.concatenate(([0], nl + 1))
+    ends = np.concatenate((nl, [len(buf)]))
+    if len(buf) and buf[-1] == 10:
+        starts, ends = starts[:-1], ends[:-1]
+    seg_len = ends - starts
+    cr = np.zeros(len(starts), bool)
+    has = seg_len > 0
+    cr[has] = buf[ends[has] - 1] == 13
+    text_len = seg_len - cr
+    cum = np.concatenate(([0], np.cumsum(buf == ord(delimiter))))
+    fields = cum[ends] - cum[starts] + 1
+    first_char = np.where(text_len > 0, buf[np.minimum(starts, max(len(buf) - 1, 0))], 0)
+    blank = text_len == 0
+    comment = first_char == ord("#")
+    valid = ~blank & ~comment & (fields == ncols)
+    numbers = first + np.arange(len(starts))
+    return buf, starts, ends, valid, blank | comment, fields, numbers
+
+
+def iter_csv(
+    info: FileInfo,
+    types: dict[str, pa.DataType],
+    required: str,
+    bad: BadLines,
+    tick: Callable[[int], None] | None = None,
+) -> Iterator[pa.Table]:
+    """Yield the rows of a CSV file as tables with ``types``, skipping bad lines.
+
+    Parameters
+    ----------
+    info : FileInfo
+        From :func:`inspect_file`.
+    types : dict of str to pyarrow.DataType
+        Columns to return and their types; other columns are not converted.
+    required : str
+        Column that must be present in a row (the time column).
+    bad : BadLines
+        Receives the skipped lines and the count of data lines.
+    tick : callable, optional
+        Called with the bytes of the file read so far.
+    """
+    ncols = len(info.columns)
+    read_opts = pacsv.ReadOptions(column_names=info.columns, block_size=8 << 20)
+    parse_opts = pacsv.ParseOptions(delimiter=info.delimiter)
+    typed_opts = pacsv.ConvertOptions(column_types=types, include_columns=list(types))
+    text_opts = pacsv.ConvertOptions(
+        column_types={c: pa.string() for c in types},
+        include_columns=list(types),
+        strings_can_be_null=True,
+    )
+    for block, first in _iter_text_blocks(info, tick):
+        n_lines = block.count(b"\n") + (0 if block.endswith(b"\n") else 1)
+        try:
+            table = pacsv.read_csv(
+                io.BytesIO(block), read_options=read_opts, parse_options=parse_opts,
+                convert_options=typed_opts,
+            )  # fmt: skip
+        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+            table = None
+        if table is not None and table.num_rows == n_lines:
+            nulls = table.column(required).null_count
+            if nulls == 0:
+                bad.total += n_lines
+                yield table
+                continue
+        buf, starts, ends, valid, ignorable, fields, numbers = _line_table(
+            block, info.delimiter, ncols, first
+        )
+        wrong = ~valid & ~ignorable
+        bad.total += int((~ignorable).sum())
+        if wrong.any():
+            idx = np.flatnonzero(wrong)
+            bad.add(
+                numbers[idx],
+                [f"expected {ncols} fields, found {f} (truncated or malformed line)" for f in fields[idx]],
+            )
+        if not valid.any():
+            continue
+        keep = np.repeat(valid, np.concatenate((starts[1:], [len(buf)])) - starts)
+        clean = buf[keep].tobytes()
+        text = pacsv.read_csv(
+            io.BytesIO(clean), read_options=read_opts, parse_options=parse_opts,
+            convert_options=text_opts,
+        )  # fmt: skip
+        out = _convert_text_table(text, types, required, numbers[valid], bad)
+        if out.num_rows:
+            yield out
+
+
+# --- JSON Lines ----------------------------------------------------------------------
+
+
+def iter_jsonl(
+    info: FileInfo,
+    types: dict[str, pa.DataType],
+    required: str,
+    bad: BadLines,
+    tick: Callable[[int], None] | None = None,
+) -> Iterator[pa.Table]:
+    """Yield the rows of a JSON Lines file as tables with ``types`` (see :func:`iter_csv`)."""
+    parse_types = {c: (pa.string() if pa.types.is_timestamp(t) else t) for c, t in types.items()}
+    schema = pa.schema(list(parse_types.items()))
+    opts = pajson.ParseOptions(explicit_schema=schema, unexpected_field_behavior="ignore")
+    for block, first in _iter_text_blocks(info, tick):
+        lines = block.split(b"\n")
+        if lines and lines[-1] == b"":
+            lines.pop()
+        content = [bool(ln.strip()) for ln in lines]
+        n_content = sum(content)
+        try:
+            table = pajson.read_json(io.BytesIO(block), parse_options=opts)
+            if table.num_rows != n_content or table.column(required).null_count:
+                raise pa.ArrowInvalid("row count or time nulls: take the slow path")
+            for c, t in types.items():
+                if pa.types.is_timestamp(t):
+                    table = table.set_column(
+                        table.schema.get_field_index(c), c, table.column(c).cast(t)
+                    )
+            bad.total += n_content
+            yield table.select(list(types))
+            continue
+        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+            pass
+        # Slow path: one line at a time, only for blocks holding a bad line.
+        rows: dict[str, list[object]] = {c: [] for c in types}
+        good: list[int] = []
+        for k, ln in enumerate(lines):
+            if not content[k]:
+                continue
+            bad.total += 1
+            try:
+                obj = json.loads(ln)
+            except ValueError:
+                bad.add([first + k], "not valid JSON (truncated or malformed line)")
+                continue
+            if not isinstance(obj, dict):
+                bad.add([first + k], "not a JSON object")
+                continue
+            for c in types:
+                v = obj.get(c)
+                rows[c].append(None if v is None else str(v))
+            good.append(first + k)
+        if good:
+            text = pa.table({c: pa.array(v, pa.string()) for c, v in rows.items()})
+            out = _convert_text_table(text, types, required, np.asarray(good), bad)
+            if out.num_rows:
+                yield out
+
+
+# --- Parquet -------------------------------------------------------------------------
+
+
+def iter_parquet(
+    info: FileInfo,
+    types: dict[str, pa.DataType],
+    required: str,
+    bad: BadLines,
+    tick: Callable[[int], None] | None = None,
+) -> Iterator[pa.Table]:
+    """Yield the rows of a Parquet file as tables with ``types``; rows are numbered from 1."""
+    pf = pq.ParquetFile(info.path)
+    bad.unit = "row"
+    row0 = 1
+    total = max(pf.metadata.num_rows, 1)
+    for batch in pf.iter_batches(batch_size=PARQUET_BATCH_ROWS, columns=list(types)):
+        table = pa.Table.from_batches([batch])
+        arrays = {}
+        for c, t in types.items():
+            col = table.column(c)
+            if col.type != t:
+                try:
+                    col = col.cast(t)
+                except (pa.ArrowInvalid, pa.ArrowNotImplementedError) as exc:
+                    raise IngestError(
+                        f"{info.path.name}: column {c!r} of type {col.type} cannot be read as "
+                        f"{t} ({exc}). Check the channel map's unit for it."
+                    ) from exc
+            arrays[c] = col
+        out = pa.table(arrays)
+        bad.total += out.num_rows
+        nulls = ~pc.is_valid(out.column(required)).to_numpy(zero_copy_only=False)
+        if nulls.any():
+            bad.add(row0 + np.flatnonzero(nulls), f"empty time cell in column {required!r}")
+            out = out.filter(pa.array(~nulls))
+        row0 += batch.num_rows
+        if tick is not None:
+            tick(int(info.size * min(1.0, (row0 - 1) / total)))
+        yield out
+
+
+def iter_file(
+    info: FileInfo,
+    types: dict[str, pa.DataType],
+    required: str,
+    bad: BadLines,
+    tick: Callable[[int], None] | None = None,
+) -> Iterator[pa.Table]:
+    """Yield the rows of any supported file (dispatch on ``info.fmt``)."""
+    reader = {"csv": iter_csv, "jsonl": iter_jsonl, "parquet": iter_parquet}[info.fmt]
+    return reader(info, types, required, bad, tick)
