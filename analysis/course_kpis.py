@@ -37,6 +37,23 @@ from analysis.profile import RobotProfile
 LOWER = "lower"
 HIGHER = "higher"
 
+#: Every KPI metric this module can compare (per channel where noted), for gate files.
+METRICS = (
+    "saturation_share",  # per actuator
+    "slip_events",  # per wheel
+    "peak_slip_speed",  # per wheel
+    "min_tip_margin",
+    "tip_margin_p1",
+    "roll_error_rms",
+    "roll_error_max",
+    "roll_error_iae",
+    "roll_lag",
+    "mean_speed",
+    "time_to_complete",
+    "falls",
+    "energy",  # per actuator
+)
+
 #: Histogram bins of the tip-over margin quantile (linear inside each bin).
 TIP_BINS = 400
 

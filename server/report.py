@@ -1,0 +1,216 @@
+"""One self-contained HTML file of a comparison, to attach to a test report.
+
+The file carries plotly.js inline (from the installed plotly package), the
+tables and one overlay chart per signal against course position; it opens
+without any network. Every piece of user text (run names, courses,
+controllers) is HTML-escaped.
+"""
+
+from __future__ import annotations
+
+import html
+import json
+import math
+from typing import Any
+
+import plotly.graph_objects as go
+import plotly.io as pio
+from plotly.offline import get_plotlyjs
+
+from analysis.compare import Comparison, KpiRow
+
+#: Run colours, the same as the compare page (web/js/palette.js RUN_COLOURS):
+#: black and neutral grey, which no event kind uses.
+RUN_COLOURS = {"A": "#000000", "B": "#8C8C8C"}
+RUN_DASH = {"A": "solid", "B": "dash"}
+#: Event-kind colours of the dashboard (web/js/palette.js, Okabe & Ito 2008).
+EVENT_COLOURS = {
+    "saturation": "#D55E00",
+    "slip": "#E69F00",
+    "yaw_slip": "#F0E442",
+    "low_tip_margin": "#CC79A7",
+    "roll_error": "#56B4E9",
+    "pitch_excursion": "#009E73",
+    "fall": "#0072B2",
+}
+
+_CSS = """
+body { font: 14px/1.4 system-ui, -apple-system, 'Segoe UI', sans-serif; color: #24323A;
+       margin: 24px auto; max-width: 1100px; padding: 0 16px; }
+h1 { font-size: 22px; } h2 { font-size: 17px; margin-top: 28px; }
+table { border-collapse: collapse; width: 100%; margin: 8px 0; }
+th, td { border-bottom: 1px solid #E2E5E1; padding: 4px 8px; text-align: left; }
+td.num { text-align: right; font-variant-numeric: tabular-nums; }
+.better { color: #0F6B3A; font-weight: 600; } .worse { color: #9B1C1C; font-weight: 600; }
+.refusal { border: 1px solid #9B1C1C; padding: 8px 12px; background: #FDF3F2; }
+.note { color: #4A5A63; } .swatch { display: inline-block; width: 18px; height: 3px;
+        vertical-align: middle; margin-right: 4px; }
+"""
+
+
+def _esc(x: Any) -> str:
+    return html.escape("" if x is None else str(x))
+
+
+def _num(x: float | None, digits: int = 4) -> str:
+    if x is None or not math.isfinite(x):
+        return "–"
+    return f"{x:.{digits}g}"
+
+
+def _kpi_table(rows: list[KpiRow]) -> str:
+    head = (
+        "<tr><th>KPI</th><th>Unit</th><th>Better</th><th class='num'>A</th>"
+        "<th class='num'>B</th><th class='num'>B − A</th><th class='num'>%</th>"
+        "<th class='num'>95% interval</th><th>Verdict</th></tr>"
+    )
+    body = []
+    for r in rows:
+        cls = "better" if r.verdict == "better" else "worse" if r.verdict == "worse" else ""
+        interval = (
+            f"{_num(r.low)} … {_num(r.high)}"
+            if math.isfinite(r.low) and math.isfinite(r.high)
+            else "–"
+        )
+        body.append(
+            f"<tr data-kpi='{_esc(r.key)}'><td>{_esc(r.label)}</td><td>{_esc(r.unit)}</td>"
+            f"<td>{_esc(r.better)}</td><td class='num'>{_num(r.a)}</td>"
+            f"<td class='num'>{_num(r.b)}</td><td class='num'>{_num(r.diff)}</td>"
+            f"<td class='num'>{_num(r.diff_pct, 3)}</td><td class='num'>{interval}</td>"
+            f"<td class='{cls}'>{_esc(r.verdict)}</td></tr>"
+        )
+    return f"<table class='kpis'>{head}{''.join(body)}</table>"
+
+
+def _runs_table(comp: Comparison) -> str:
+    rows = []
+    for version, runs in (("A", comp.runs_a), ("B", comp.runs_b)):
+        for r in runs:
+            off = comp.offsets.get(r["run"])
+            rows.append(
+                f"<tr><td><span class='swatch' style='background:{RUN_COLOURS[version]}'></span>"
+                f"{version}</td><td>{_esc(r['name'])}</td><td>{_esc(r['run'])}</td>"
+                f"<td>{_esc(r.get('course'))}</td><td>{_esc(r.get('controller'))}</td>"
+                f"<td class='num'>{_num(off)}</td></tr>"
+            )
+    return (
+        "<table><tr><th>Version</th><th>Name</th><th>Run id</th><th>Course</th>"
+        "<th>Controller</th><th class='num'>Course offset [m]</th></tr>"
+        + "".join(rows)
+        + "</table>"
+    )
+
+
+def _figure(signal: dict[str, str], view: dict[str, Any]) -> go.Figure:
+    fig = go.Figure()
+    name = signal["name"]
+    shown = set()
+    for tr in view["traces"]:
+        data = tr["signals"].get(name)
+        if not data:
+            continue
+        v = tr["version"]
+        fig.add_trace(
+            go.Scattergl(
+                x=data["x"], y=data["y"], mode="lines",
+                name=f"{v}: {tr['name']}", legendgroup=v, showlegend=True,
+                line={"color": RUN_COLOURS[v], "width": 1.3, "dash": RUN_DASH[v]},
+            )
+        )  # fmt: skip
+    for seg in view["segments"][1:]:
+        fig.add_vline(x=seg["start_m"], line={"color": "#9AA5AB", "width": 1, "dash": "dot"})
+    for ev in view["events"]:
+        y0, y1 = (0.0, 0.5) if ev["version"] == "A" else (0.5, 1.0)
+        fig.add_shape(
+            type="rect", xref="x", yref="paper", x0=ev["start_m"], x1=max(ev["end_m"], ev["start_m"] + 0.2),
+            y0=y0, y1=y1, fillcolor=EVENT_COLOURS.get(ev["kind"], "#666666"), opacity=0.18,
+            line={"width": 0}, layer="below",
+        )  # fmt: skip
+        if ev["kind"] not in shown:
+            shown.add(ev["kind"])
+    unit = signal["unit"]
+    fig.update_layout(
+        title={"text": f"{signal['label']} [{unit}]", "font": {"size": 14}},
+        height=260, margin={"l": 60, "r": 20, "t": 36, "b": 36},
+        xaxis={"title": "course position [m]"}, plot_bgcolor="#FFFFFF",
+        legend={"orientation": "h", "y": -0.25},
+    )  # fmt: skip
+    return fig
+
+
+def build_report(comparison: Comparison, view: dict[str, Any], title: str | None = None) -> str:
+    """The HTML text of the report.
+
+    Parameters
+    ----------
+    comparison : Comparison
+    view : dict
+        From :func:`analysis.compare_view.overlay` on the same runs.
+    title : str, optional
+        Page title (escaped).
+
+    Returns
+    -------
+    str
+        A complete HTML document with plotly.js inline.
+    """
+    comp = comparison
+    names_a = ", ".join(str(r["name"]) for r in comp.runs_a)
+    names_b = ", ".join(str(r["name"]) for r in comp.runs_b)
+    title = title or f"Comparison: {names_a} (A) vs {names_b} (B)"
+    parts = [
+        "<!doctype html><html lang='en'><head><meta charset='utf-8'>",
+        f"<title>{_esc(title)}</title><style>{_CSS}</style>",
+        f"<script type='text/javascript'>{get_plotlyjs()}</script></head><body>",
+        f"<h1>{_esc(title)}</h1>",
+        _runs_table(comp),
+    ]
+    if comp.refusal:
+        parts.append(f"<p class='refusal' id='refusal'>{_esc(comp.refusal)}</p>")
+    for al in comp.alignments:
+        parts.append(f"<p class='note'>Alignment of {_esc(al['run'])}: {_esc(al['reason'])}</p>")
+    s = comp.settings
+    parts.append(
+        f"<p class='note'>Differences are B − A. Intervals: {_esc(int(s['level'] * 100))}% "
+        f"percentile block bootstrap ({_esc(s['resampling'])}, {_esc(s['n_boot'])} replicates, "
+        f"seed {_esc(s['seed'])}, blocks of about {_esc(s['block_m'])} m; Efron &amp; "
+        f"Tibshirani, An Introduction to the Bootstrap, 1993). A verdict is 'better' or "
+        f"'worse' only when the whole interval lies on one side of zero.</p>"
+    )
+    parts.append("<h2>Overall</h2>" + _kpi_table(comp.kpis))
+    for note in comp.notes:
+        parts.append(f"<p class='note'>{_esc(note)}</p>")
+    parts.append("<h2>Overlay against course position</h2>")
+    for i, signal in enumerate(view["signals"]):
+        fig = _figure(signal, view)
+        parts.append(
+            pio.to_html(
+                fig, include_plotlyjs=False, full_html=False, div_id=f"chart-{i}",
+                config={"displaylogo": False, "responsive": True},
+            )
+        )  # fmt: skip
+    if comp.same_course and comp.segments:
+        parts.append("<h2>Segments</h2><table><tr><th>Segment</th><th>Kind</th>"
+                     "<th class='num'>From [m]</th><th class='num'>To [m]</th></tr>")  # fmt: skip
+        for seg in comp.segments:
+            parts.append(
+                f"<tr><td>{_esc(seg.name)}</td><td>{_esc(seg.kind)}</td>"
+                f"<td class='num'>{seg.start_m:.1f}</td><td class='num'>{seg.end_m:.1f}</td></tr>"
+            )
+        parts.append("</table>")
+        for seg in comp.segments:
+            parts.append(
+                f"<h2>Segment {_esc(seg.name)} ({_esc(seg.kind)}, {seg.start_m:.1f}–"
+                f"{seg.end_m:.1f} m)</h2>" + _kpi_table(comp.segment_kpis.get(seg.name, []))
+            )
+    parts.append(
+        "<p class='note'>Outrigger reads logs after the fact; it is not a safety system. The "
+        "tip-over margin is a model estimate. Follow your test site's procedures (emergency "
+        "stop, tether, exclusion zone) and local rules.</p>"
+    )
+    parts.append(
+        "<script type='application/json' id='comparison-data'>"
+        + json.dumps(comp.to_dict()).replace("<", "\\u003c")
+        + "</script></body></html>"
+    )
+    return "".join(parts)
