@@ -1,0 +1,180 @@
+"""Min/max-preserving downsampling of chart series, with data gaps kept as gaps.
+
+The dashboard never sends every sample of a long run to the browser: each
+series is reduced on the server to a point budget with MinMaxLTTB [1] from the
+``tsdownsample`` package. MinMaxLTTB first keeps the minimum and maximum of
+``minmax_ratio * n_out`` buckets, then runs Largest-Triangle-Three-Buckets on
+them, so a single-sample spike (a saturation peak, a slip burst) survives.
+
+Gaps stay gaps: where two consecutive valid samples (NaN samples dropped) lie
+further apart than ``GAP_FACTOR`` median sample periods -- the rule ingestion
+and the detectors use for data gaps -- a null point is inserted between them so
+that the chart breaks the line instead of drawing across missing data.
+
+This module is the one place in ``server/`` that does arithmetic on signals
+(DESIGN.md allows it: it decides what to draw, it computes no physics).
+
+References
+----------
+[1] J. Van Der Donckt, J. Van Der Donckt, M. Rademaker, S. Van Hoecke,
+    "MinMaxLTTB: Leveraging MinMax-Preprocessing to Accelerate LTTB", 2023 IEEE
+    Visualization and Visual Analytics (VIS), 2023. arXiv:2305.00332.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from tsdownsample import MinMaxLTTBDownsampler
+
+from analysis.events import GAP_FACTOR
+
+#: Smallest point budget the API accepts (LTTB needs first, last and one bucket).
+MIN_POINTS = 10
+#: Largest point budget the API accepts per signal.
+MAX_POINTS = 20_000
+#: MinMaxLTTB preselection ratio; 4 is the library default and the paper's choice.
+MINMAX_RATIO = 4
+
+_DOWNSAMPLER = MinMaxLTTBDownsampler()
+
+
+@dataclass(frozen=True)
+class Reduced:
+    """A series ready to draw.
+
+    Attributes
+    ----------
+    t : ndarray
+        Sample times, with one extra time inside each data gap. [s]
+    y : ndarray
+        Values, NaN at the inserted gap points (sent to the page as null).
+    n_samples : int
+        Valid (non-NaN) samples in the window before reduction.
+    downsampled : bool
+        True when the window held more valid samples than the budget.
+    """
+
+    t: np.ndarray
+    y: np.ndarray
+    n_samples: int
+    downsampled: bool
+
+
+def select_indices(t: np.ndarray, y: np.ndarray, n_out: int) -> np.ndarray:
+    """Indices of the valid samples to keep, at most about ``n_out`` of them.
+
+    Parameters
+    ----------
+    t : ndarray
+        Sample times, increasing. [s]
+    y : ndarray
+        Values; NaN samples are never selected. [any]
+    n_out : int
+        Point budget. [-]
+
+    Returns
+    -------
+    ndarray of int
+        Sorted indices into ``t``/``y``. All valid indices when they fit the budget.
+    """
+    valid = np.flatnonzero(~np.isnan(y))
+    if valid.size <= n_out:
+        return valid
+    picked = _DOWNSAMPLER.downsample(
+        np.ascontiguousarray(t[valid], dtype=np.float64),
+        np.ascontiguousarray(y[valid], dtype=np.float64),
+        n_out=n_out,
+        minmax_ratio=MINMAX_RATIO,
+    )
+    return valid[np.sort(np.asarray(picked, dtype=np.int64))]
+
+
+def gap_starts(t_valid: np.ndarray) -> np.ndarray:
+    """Positions ``i`` where the step from ``t_valid[i]`` to ``t_valid[i+1]`` is a data gap.
+
+    Parameters
+    ----------
+    t_valid : ndarray
+        Times of the valid samples, increasing. [s]
+
+    Returns
+    -------
+    ndarray of int
+        A step is a gap when longer than ``GAP_FACTOR`` times the median step
+        (common practice, no source; the same rule as ``analysis.events``).
+    """
+    if t_valid.size < 3:
+        return np.empty(0, dtype=np.int64)
+    dt = np.diff(t_valid)
+    median = float(np.median(dt))
+    if not np.isfinite(median) or median <= 0:
+        return np.empty(0, dtype=np.int64)
+    return np.flatnonzero(dt > GAP_FACTOR * median)
+
+
+def reduce_series(t: np.ndarray, y: np.ndarray, n_out: int) -> Reduced:
+    """Downsample one series to a point budget, keeping extremes and gaps.
+
+    Parameters
+    ----------
+    t : ndarray
+        Sample times of the window, increasing. [s]
+    y : ndarray
+        Values (bool is drawn as 0/1); NaN marks missing samples. [any]
+    n_out : int
+        Point budget, between :data:`MIN_POINTS` and :data:`MAX_POINTS`. [-]
+
+    Returns
+    -------
+    Reduced
+        Full resolution when the window holds no more valid samples than ``n_out``.
+    """
+    t = np.asarray(t, dtype=np.float64)
+    y = np.asarray(y, dtype=np.float64)
+    valid_mask = ~np.isnan(y)
+    n_valid = int(valid_mask.sum())
+    keep = select_indices(t, y, n_out)
+    # Gaps are judged on all valid samples, not the reduced ones, whose spacing is coarse.
+    t_valid = t[valid_mask]
+    gaps = gap_starts(t_valid)
+    t_out = t[keep]
+    y_out = y[keep]
+    if gaps.size:
+        # One null point in the middle of each gap: the line breaks there.
+        t_gap = 0.5 * (t_valid[gaps] + t_valid[gaps + 1])
+        t_out = np.concatenate([t_out, t_gap])
+        y_out = np.concatenate([y_out, np.full(t_gap.size, np.nan)])
+        order = np.argsort(t_out, kind="stable")
+        t_out, y_out = t_out[order], y_out[order]
+    return Reduced(t=t_out, y=y_out, n_samples=n_valid, downsampled=n_valid > n_out)
+
+
+def json_values(values: np.ndarray, digits: int = 6) -> list[float | None]:
+    """Round to ``digits`` significant digits and turn NaN/inf into None for JSON.
+
+    Parameters
+    ----------
+    values : ndarray
+        Values to send. [any]
+    digits : int
+        Significant digits kept relative to the largest magnitude; charts
+        cannot show more (a 1000-pixel axis resolves 3 to 4 digits). [-]
+    """
+    a = np.asarray(values, dtype=np.float64)
+    finite = np.isfinite(a)
+    if finite.any():
+        scale = float(np.max(np.abs(a[finite])))
+        decimals = digits - 1 - int(np.floor(np.log10(scale))) if scale > 0 else digits
+        a = np.round(a, max(0, min(decimals, 15)))
+    out: list[float | None] = a.tolist()
+    if not finite.all():
+        for i in np.flatnonzero(~finite):  # loop over the few gap points only
+            out[int(i)] = None
+    return out
+
+
+def json_times(t: np.ndarray, decimals: int = 4) -> list[float]:
+    """Round times to ``decimals`` places (0.1 ms: finer than any 1 kHz log step). [s]"""
+    return np.round(np.asarray(t, dtype=np.float64), decimals).tolist()

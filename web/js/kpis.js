@@ -1,0 +1,55 @@
+// Headline KPI badges shared by the Runs and Run pages. Values come from the server
+// (analysis.pipeline.headline_kpis); the page only formats them.
+import { el, fmt } from "./api.js";
+import { eventColour } from "./palette.js";
+
+export const HEADLINE = [
+  {
+    key: "worst_saturation_share",
+    kind: "saturation",
+    label: "saturated",
+    title: "Share of time the most-saturated actuator was saturated",
+    format: (v) => `${fmt(100 * v, 2)} %`,
+  },
+  {
+    key: "slip_events",
+    kind: "slip",
+    label: "slip events",
+    title: "Number of wheel-slip events",
+    format: (v) => String(v),
+  },
+  {
+    key: "min_tip_margin",
+    kind: "low_tip_margin",
+    label: "min tip margin",
+    title: "Lowest lateral tip-over margin (model estimate): 1 centred, 0 inner wheel unloads",
+    format: (v) => fmt(v, 2),
+  },
+  {
+    key: "roll_error_rms",
+    kind: "roll_error",
+    label: "roll err RMS",
+    title: "RMS of roll reference minus roll [rad]",
+    format: (v) => `${fmt(v, 2)} rad`,
+  },
+];
+
+export function badges(kpis) {
+  const box = el("div", { className: "badges" });
+  if (!kpis) {
+    box.append(el("span", { className: "badge muted" }, "not analysed"));
+    return box;
+  }
+  for (const spec of HEADLINE) {
+    const value = kpis[spec.key];
+    const badge = el(
+      "span",
+      { className: "badge", title: spec.title, dataset: { kpi: spec.key } },
+      el("span", { className: "badge-stripe", style: { background: eventColour(spec.kind) } }),
+      el("span", { className: "badge-value" }, value === null || value === undefined ? "–" : spec.format(value)),
+      el("span", { className: "badge-label" }, spec.label),
+    );
+    box.append(badge);
+  }
+  return box;
+}

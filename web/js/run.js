@@ -1,0 +1,282 @@
+// Run page: facts, KPIs, stacked timelines, event list with keyboard stepping,
+// ingest report, skipped detectors, thresholds and re-analysis, edit and delete.
+import { el, fmt, fmtDuration, getJSON, sendJSON, serverInfo, showError, waitForJob } from "./api.js";
+import { badges } from "./kpis.js";
+import { initLayout } from "./layout.js";
+import { eventColour, eventLegend, kindLabel } from "./palette.js";
+import { Timelines } from "./timeline.js";
+
+const runId = new URLSearchParams(location.search).get("id");
+const errorBox = document.getElementById("error");
+let timelines = null;
+let events = [];
+let visibleEvents = [];
+let current = -1;
+let run = null;
+
+function fail(err) {
+  showError(errorBox, err);
+}
+
+// ----- header -----------------------------------------------------------------
+function showHead(meta) {
+  document.title = `${meta.name || meta.run_id} · Outrigger`;
+  document.getElementById("run-name").textContent = meta.name || meta.run_id;
+  const facts = [
+    meta.course && `course ${meta.course}`,
+    meta.controller && `controller ${meta.controller}`,
+    meta.date && meta.date.replace("T", " ").replace("+00:00", " UTC"),
+    meta.duration_s !== undefined && fmtDuration(meta.duration_s),
+    meta.distance_m !== undefined && meta.distance_m !== null && `${fmt(meta.distance_m, 4)} m travelled`,
+    `id ${meta.run_id}`,
+  ].filter(Boolean);
+  document.getElementById("run-facts").textContent = facts.join(" · ");
+  const tags = document.getElementById("run-tags");
+  tags.replaceChildren(...(meta.tags || []).map((t) => el("span", { className: "tag" }, t)));
+  document.getElementById("run-notes").textContent = meta.notes || "";
+  document.getElementById("dl-events").href = `/api/runs/${encodeURIComponent(meta.run_id)}/events.csv`;
+  document.getElementById("dl-zip").href = `/api/runs/${encodeURIComponent(meta.run_id)}/files.zip`;
+}
+
+// ----- KPIs ---------------------------------------------------------------------
+function showKpis(headline, analysis) {
+  const strip = document.getElementById("kpis");
+  strip.replaceChildren(badges(headline));
+  if (analysis) {
+    const counts = analysis.event_counts || {};
+    const summary = el("div", { className: "event-counts" });
+    for (const [kind, n] of Object.entries(counts)) {
+      summary.append(
+        el("span", { className: "count-chip" }, el("span", { className: "swatch", style: { background: eventColour(kind) } }), `${kindLabel(kind)} ${n}`),
+      );
+    }
+    strip.append(summary);
+  }
+  const detail = document.getElementById("kpi-detail");
+  detail.replaceChildren(analysis ? valueView(analysis.kpis) : el("p", { className: "empty" }, "Not analysed."));
+}
+
+// A generic, text-only view of nested JSON (ingest report, KPIs).
+function valueView(value, depth = 0) {
+  if (value === null || value === undefined) return el("span", { className: "muted" }, "–");
+  if (Array.isArray(value)) {
+    if (!value.length) return el("span", { className: "muted" }, "none");
+    if (value.every((v) => v === null || typeof v !== "object")) return el("span", {}, value.map((v) => (typeof v === "number" ? fmt(v, 4) : String(v))).join(", "));
+    return el("ol", { className: "plain-list" }, ...value.map((v) => el("li", {}, valueView(v, depth + 1))));
+  }
+  if (typeof value === "object") {
+    const dl = el("dl", { className: depth ? "kv nested" : "kv" });
+    for (const [k, v] of Object.entries(value)) dl.append(el("dt", {}, k.replace(/_/g, " ")), el("dd", {}, valueView(v, depth + 1)));
+    return dl;
+  }
+  if (typeof value === "number") return el("span", {}, fmt(value, 4));
+  if (typeof value === "boolean") return el("span", {}, value ? "yes" : "no");
+  return el("span", { className: "pre" }, String(value));
+}
+
+function showDetectors(analysis) {
+  const skipped = document.getElementById("skipped");
+  const notes = document.getElementById("notes-list");
+  if (!analysis) {
+    skipped.replaceChildren(el("p", { className: "empty" }, "This run has not been analysed yet: use Re-analyse below."));
+    notes.replaceChildren();
+    return;
+  }
+  if (analysis.skipped && analysis.skipped.length) {
+    skipped.replaceChildren(
+      el("h3", {}, "Skipped detectors"),
+      el("ul", { className: "skipped-list" }, ...analysis.skipped.map((s) => el("li", {}, el("strong", {}, s.detector), ": ", s.reason))),
+    );
+  } else {
+    skipped.replaceChildren(el("p", { className: "ok-line" }, "Every detector ran."));
+  }
+  const entries = Object.entries(analysis.notes || {});
+  notes.replaceChildren(
+    ...(entries.length
+      ? [el("h3", {}, "Notes"), el("ul", { className: "notes-list" }, ...entries.flatMap(([d, list]) => list.map((n) => el("li", {}, el("strong", {}, d), ": ", n))))]
+      : []),
+  );
+  const version = analysis.analysis_version ? `analysis ${analysis.analysis_version}, ${analysis.analysed_at || ""}` : "";
+  if (version) notes.append(el("p", { className: "hint" }, version));
+}
+
+function showIngest(meta) {
+  const report = meta.ingest_report ?? meta.report ?? null;
+  const box = document.getElementById("ingest-report");
+  box.replaceChildren(report ? valueView(report) : el("p", { className: "empty" }, "No ingest report stored."));
+}
+
+// ----- events -------------------------------------------------------------------
+function showEvents() {
+  const hidden = timelines ? timelines.hiddenKinds : new Set();
+  visibleEvents = events.filter((e) => !hidden.has(e.kind));
+  const tbody = document.querySelector("#events tbody");
+  tbody.replaceChildren(
+    ...visibleEvents.map((e, i) =>
+      el(
+        "tr",
+        { className: "event-row", tabIndex: -1, dataset: { index: String(i), kind: e.kind }, onclick: () => selectEvent(i) },
+        el("td", {}, el("span", { className: "swatch", style: { background: eventColour(e.kind) } })),
+        el("td", {}, kindLabel(e.kind)),
+        el("td", {}, e.channel || "robot"),
+        el("td", { className: "num" }, e.start_s.toFixed(2)),
+        el("td", { className: "num" }, fmt(e.duration_s, 3)),
+        el("td", { className: "num", title: e.detail && e.detail.signal ? e.detail.signal : "" }, e.peak === null ? "–" : `${fmt(e.peak, 3)} ${(e.detail && e.detail.unit) || ""}`),
+      ),
+    ),
+  );
+  document.getElementById("event-count").textContent = `${visibleEvents.length}`;
+  document.getElementById("no-events").hidden = visibleEvents.length > 0;
+  current = -1;
+}
+
+function selectEvent(i) {
+  if (!visibleEvents.length) return;
+  current = (i + visibleEvents.length) % visibleEvents.length;
+  for (const row of document.querySelectorAll("#events tr.event-row")) row.classList.toggle("active", Number(row.dataset.index) === current);
+  const row = document.querySelector(`#events tr.event-row[data-index="${current}"]`);
+  if (row) row.scrollIntoView({ block: "nearest" });
+  if (timelines) timelines.zoomToEvent(visibleEvents[current]);
+}
+
+document.addEventListener("keydown", (ev) => {
+  const target = ev.target;
+  if (target && (target.tagName === "INPUT" || target.tagName === "TEXTAREA" || target.tagName === "SELECT" || target.isContentEditable)) return;
+  if (ev.ctrlKey || ev.metaKey || ev.altKey) return;
+  if (ev.key === ".") {
+    selectEvent(current + 1);
+    ev.preventDefault();
+  } else if (ev.key === ",") {
+    selectEvent(current < 0 ? visibleEvents.length - 1 : current - 1);
+    ev.preventDefault();
+  } else if (ev.key === "0" && timelines) {
+    timelines.setRange(null);
+    ev.preventDefault();
+  }
+});
+
+// ----- thresholds and re-analysis ----------------------------------------------------
+async function showThresholds(analysis) {
+  const info = await serverInfo();
+  const used = (analysis && analysis.thresholds) || {};
+  const form = document.getElementById("thresholds-form");
+  form.replaceChildren(
+    ...info.thresholds.map((spec) =>
+      el(
+        "label",
+        { title: spec.meaning },
+        el("span", { className: "th-key" }, spec.key),
+        el("input", { type: "number", step: "any", min: "0", name: spec.key, value: String(used[spec.key] ?? spec.default) }),
+        el("span", { className: "th-unit" }, spec.unit || "–"),
+      ),
+    ),
+  );
+}
+
+async function reanalyse() {
+  const form = document.getElementById("thresholds-form");
+  const bar = document.getElementById("reanalyse-bar");
+  const text = document.getElementById("reanalyse-text");
+  const body = {};
+  for (const input of form.querySelectorAll("input")) {
+    if (input.value.trim() !== "") body[input.name] = Number(input.value);
+  }
+  errorBox.hidden = true;
+  try {
+    const { job } = await sendJSON("POST", `/api/runs/${encodeURIComponent(runId)}/analyse`, body);
+    bar.hidden = false;
+    const finished = await waitForJob(job.id, (j) => {
+      bar.value = j.progress;
+      text.textContent = j.message;
+    });
+    if (finished.state === "failed") throw Object.assign(new Error(finished.error.message), { type: finished.error.type });
+    text.textContent = "done; reloading";
+    await load();
+    text.textContent = "done";
+  } catch (err) {
+    fail(err);
+  }
+}
+
+// ----- edit and delete -------------------------------------------------------------------
+function setupEdit() {
+  const form = document.getElementById("edit-form");
+  document.getElementById("edit-open").addEventListener("click", () => {
+    form.elements.name.value = run.name || "";
+    form.elements.tags.value = (run.tags || []).join(", ");
+    form.elements.notes.value = run.notes || "";
+    form.hidden = false;
+  });
+  document.getElementById("edit-cancel").addEventListener("click", () => {
+    form.hidden = true;
+  });
+  form.addEventListener("submit", async (ev) => {
+    ev.preventDefault();
+    errorBox.hidden = true;
+    try {
+      const tags = form.elements.tags.value.split(",").map((t) => t.trim()).filter(Boolean);
+      const { run: updated } = await sendJSON("PATCH", `/api/runs/${encodeURIComponent(runId)}`, {
+        name: form.elements.name.value,
+        notes: form.elements.notes.value,
+        tags,
+      });
+      run = updated;
+      showHead(updated);
+      form.hidden = true;
+    } catch (err) {
+      fail(err);
+    }
+  });
+  document.getElementById("delete").addEventListener("click", async () => {
+    const answer = window.prompt(`Deleting a run cannot be undone. Type its id (${runId}) to delete it.`);
+    if (answer === null) return;
+    try {
+      await sendJSON("DELETE", `/api/runs/${encodeURIComponent(runId)}?confirm=${encodeURIComponent(answer.trim())}`);
+      location.href = "/";
+    } catch (err) {
+      fail(err);
+    }
+  });
+}
+
+// ----- load --------------------------------------------------------------------------
+async function load() {
+  const data = await getJSON(`/api/runs/${encodeURIComponent(runId)}`);
+  run = data.run;
+  const analysis = data.analysis;
+  events = analysis ? analysis.events : [];
+  showHead(run);
+  showKpis(data.headline, analysis);
+  showDetectors(analysis);
+  showIngest(run);
+  await showThresholds(analysis);
+  const info = await serverInfo();
+  const legend = document.getElementById("legend");
+  legend.replaceChildren(
+    eventLegend(info.event_kinds, (kind, visible) => {
+      if (timelines) timelines.setKindVisible(kind, visible);
+      showEvents();
+    }),
+  );
+  const { panels } = await getJSON(`/api/runs/${encodeURIComponent(runId)}/charts`);
+  timelines = new Timelines(document.getElementById("charts"), runId, panels, events);
+  showEvents();
+  await timelines.draw();
+}
+
+async function main() {
+  initLayout();
+  if (!runId) {
+    fail({ type: "RequestError", message: "No run chosen: open a run from the Runs page." });
+    return;
+  }
+  setupEdit();
+  document.getElementById("reanalyse").addEventListener("click", reanalyse);
+  try {
+    await load();
+  } catch (err) {
+    fail(err);
+  }
+}
+
+main();

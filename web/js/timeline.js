@@ -1,0 +1,305 @@
+// Stacked timelines on one synchronised time axis.
+//
+// The server sends a plan (panels -> rows -> traces, by catalogue name) and the
+// series, already downsampled to a point budget. One plotly figure per panel,
+// one y axis per row; every figure shares the same x range. Zooming or panning
+// any figure moves all of them and, after a short pause, asks the server for the
+// visible window again (full resolution once it fits the budget).
+/* global Plotly */
+import { getJSON } from "./api.js";
+import { eventColour, kindLabel, TRACE_STYLES } from "./palette.js";
+
+const ROW_HEIGHT = 132; // px per row of a panel
+const ROW_GAP = 0.045; // share of the panel height between rows
+const MARGIN = { l: 64, r: 16, t: 28, b: 30 };
+const REFRESH_MS = 180; // pause after a zoom before re-requesting the window
+const WINDOW_MARGIN = 0.1; // extra share of the window fetched on each side
+
+export class Timelines {
+  constructor(container, runId, plan, events, { points = 2000, onWindow = null } = {}) {
+    this.container = container;
+    this.runId = runId;
+    this.panels = plan.filter((p) => p.rows.length);
+    this.emptyPanels = plan.filter((p) => !p.rows.length);
+    this.events = events;
+    this.hiddenKinds = new Set();
+    this.points = points;
+    this.onWindow = onWindow;
+    this.figures = new Map(); // panel id -> div
+    this.syncing = false;
+    this.timer = null;
+    this.request = 0;
+    this.fullRange = null;
+    this.range = null; // current [t0, t1] or null for the whole run
+    this.signals = [...new Set(this.panels.flatMap((p) => p.rows.flatMap((r) => r.traces.map((t) => t.signal))))];
+  }
+
+  // ----- data --------------------------------------------------------------
+  async fetchSeries(range) {
+    const params = new URLSearchParams({ signals: this.signals.join(","), points: String(this.points) });
+    if (range) {
+      const pad = (range[1] - range[0]) * WINDOW_MARGIN;
+      params.set("t0", String(Math.max(this.fullRange ? this.fullRange[0] : -Infinity, range[0] - pad)));
+      params.set("t1", String(Math.min(this.fullRange ? this.fullRange[1] : Infinity, range[1] + pad)));
+    }
+    return getJSON(`/api/runs/${encodeURIComponent(this.runId)}/series?${params}`);
+  }
+
+  // ----- figure construction ------------------------------------------------
+  traces(panel, series) {
+    const out = [];
+    const shown = new Set();
+    panel.rows.forEach((row, i) => {
+      const yaxis = i === 0 ? "y" : `y${i + 1}`;
+      for (const tr of row.traces) {
+        const s = series.signals[tr.signal];
+        if (!s) continue;
+        const style = TRACE_STYLES[tr.style] || TRACE_STYLES.main;
+        const legend = `${tr.label}`;
+        const base = {
+          type: "scatter",
+          mode: "lines",
+          x: s.t,
+          y: s.y,
+          xaxis: "x",
+          yaxis,
+          name: legend,
+          legendgroup: legend,
+          showlegend: !shown.has(legend),
+          line: { color: style.color, width: style.width, dash: style.dash },
+          hovertemplate: `${row.label} · ${tr.label}: %{y:.4g} ${tr.unit}<br>t = %{x:.3f} s<extra></extra>`,
+          meta: { signal: tr.signal },
+        };
+        shown.add(legend);
+        out.push(base);
+        if (tr.mirror) {
+          // the limit holds in both directions: draw it below zero too
+          out.push({ ...base, y: s.y.map((v) => (v === null ? null : -v)), showlegend: false, hoverinfo: "skip", hovertemplate: undefined });
+        }
+      }
+    });
+    return out;
+  }
+
+  eventShapes(panel) {
+    const shapes = [];
+    const rowOf = new Map(panel.rows.map((r, i) => [r.channel, i]));
+    for (const ev of this.events) {
+      if (!panel.event_kinds.includes(ev.kind) || this.hiddenKinds.has(ev.kind)) continue;
+      const i = ev.channel !== null && rowOf.has(ev.channel) ? rowOf.get(ev.channel) : null;
+      const yref = i === null ? "paper" : `${i === 0 ? "y" : `y${i + 1}`} domain`;
+      const colour = eventColour(ev.kind);
+      shapes.push({
+        type: "rect",
+        xref: "x",
+        yref,
+        x0: ev.start_s,
+        x1: ev.end_s,
+        y0: 0,
+        y1: 1,
+        fillcolor: colour,
+        opacity: 0.3,
+        line: { color: colour, width: 1 },
+        layer: "below",
+        name: `event:${ev.kind}`,
+      });
+    }
+    return shapes;
+  }
+
+  limitShapes(panel) {
+    const shapes = [];
+    panel.rows.forEach((row, i) => {
+      const yref = i === 0 ? "y" : `y${i + 1}`;
+      for (const line of row.lines || []) {
+        const values = line.mirror ? [line.y, -line.y] : [line.y];
+        values.forEach((y, k) => {
+          shapes.push({
+            type: "line",
+            xref: "x domain",
+            yref,
+            x0: 0,
+            x1: 1,
+            y0: y,
+            y1: y,
+            line: { color: TRACE_STYLES.limit.color, width: 1, dash: "dash" },
+            name: "limit",
+            label: k === 0 ? { text: line.label, textposition: "end", yanchor: "bottom", font: { size: 10, color: "#4A5A63" } } : undefined,
+          });
+        });
+      }
+    });
+    return shapes;
+  }
+
+  layout(panel, range) {
+    const n = panel.rows.length;
+    const span = (1 - ROW_GAP * (n - 1)) / n;
+    const layout = {
+      height: MARGIN.t + MARGIN.b + ROW_HEIGHT * n,
+      margin: MARGIN,
+      paper_bgcolor: "rgba(0,0,0,0)",
+      plot_bgcolor: "#FFFFFF",
+      font: { family: "system-ui, -apple-system, 'Segoe UI', sans-serif", size: 11, color: "#24323A" },
+      showlegend: true,
+      legend: { orientation: "h", x: 0, y: 1, yanchor: "bottom", font: { size: 11 }, bgcolor: "rgba(0,0,0,0)" },
+      hovermode: "x unified",
+      dragmode: "zoom",
+      xaxis: {
+        range: range || undefined,
+        autorange: range ? false : true,
+        showgrid: true,
+        gridcolor: "#ECEEEA",
+        zeroline: false,
+        ticksuffix: " s",
+        anchor: n === 1 ? "y" : `y${n}`,
+      },
+      shapes: [...this.eventShapes(panel), ...this.limitShapes(panel)],
+    };
+    panel.rows.forEach((row, i) => {
+      const top = 1 - i * (span + ROW_GAP);
+      const key = i === 0 ? "yaxis" : `yaxis${i + 1}`;
+      layout[key] = {
+        domain: [Math.max(0, top - span), top],
+        anchor: "x",
+        title: { text: row.unit ? `${row.label} [${row.unit}]` : row.label, font: { size: 11 } },
+        gridcolor: "#ECEEEA",
+        zerolinecolor: "#C9CFCB",
+        fixedrange: true,
+        automargin: true,
+      };
+    });
+    return layout;
+  }
+
+  // ----- drawing ---------------------------------------------------------------
+  async draw() {
+    this.container.replaceChildren();
+    for (const panel of this.panels) {
+      const box = document.createElement("div");
+      box.className = "panel";
+      const title = document.createElement("h3");
+      title.textContent = panel.title;
+      const legend = document.createElement("div");
+      legend.className = "panel-kinds";
+      for (const kind of panel.event_kinds) {
+        const chip = document.createElement("span");
+        chip.className = "kind-chip";
+        const sw = document.createElement("span");
+        sw.className = "swatch";
+        sw.style.background = eventColour(kind);
+        chip.append(sw, document.createTextNode(kindLabel(kind)));
+        legend.append(chip);
+      }
+      const chart = document.createElement("div");
+      chart.className = "chart";
+      chart.id = `chart-${panel.id}`;
+      box.append(title, legend, chart);
+      this.container.append(box);
+      this.figures.set(panel.id, chart);
+    }
+    for (const panel of this.emptyPanels) {
+      const box = document.createElement("div");
+      box.className = "panel empty-panel";
+      const title = document.createElement("h3");
+      title.textContent = panel.title;
+      const why = document.createElement("p");
+      why.className = "empty";
+      why.textContent = panel.empty_reason || "Nothing to draw.";
+      box.append(title, why);
+      this.container.append(box);
+    }
+    const series = await this.fetchSeries(null);
+    this.fullRange = [series.t0, series.t1];
+    const config = { responsive: true, displaylogo: false, scrollZoom: false, modeBarButtonsToRemove: ["select2d", "lasso2d", "autoScale2d"] };
+    await Promise.all(
+      this.panels.map((panel) => {
+        const div = this.figures.get(panel.id);
+        return Plotly.newPlot(div, this.traces(panel, series), this.layout(panel, this.fullRange), config).then(() => {
+          div.on("plotly_relayout", (ev) => this.onRelayout(panel.id, ev));
+        });
+      }),
+    );
+    this.range = null;
+    document.body.dataset.chartsReady = "1";
+    this.announce(series);
+  }
+
+  announce(series) {
+    document.body.dataset.window = `${series.t0},${series.t1}`;
+    if (this.onWindow) this.onWindow(series);
+  }
+
+  onRelayout(sourceId, ev) {
+    if (this.syncing) return;
+    let range = null;
+    if (ev["xaxis.range[0]"] !== undefined && ev["xaxis.range[1]"] !== undefined) {
+      range = [Number(ev["xaxis.range[0]"]), Number(ev["xaxis.range[1]"])];
+    } else if (Array.isArray(ev["xaxis.range"])) {
+      range = ev["xaxis.range"].map(Number);
+    } else if (ev["xaxis.autorange"]) {
+      range = null;
+    } else {
+      return; // a change that is not about time
+    }
+    this.setRange(range, sourceId);
+  }
+
+  // Move every chart to [t0, t1] (null: the whole run), then refresh the data.
+  setRange(range, sourceId = null) {
+    const target = range || this.fullRange;
+    this.range = range;
+    this.syncing = true;
+    const updates = [];
+    for (const [id, div] of this.figures) {
+      if (id === sourceId) continue;
+      updates.push(Plotly.relayout(div, { "xaxis.range": [...target], "xaxis.autorange": false }));
+    }
+    Promise.all(updates).finally(() => {
+      this.syncing = false;
+    });
+    clearTimeout(this.timer);
+    this.timer = setTimeout(() => this.refresh(), REFRESH_MS);
+  }
+
+  async refresh() {
+    const ticket = ++this.request;
+    const range = this.range;
+    const series = await this.fetchSeries(range);
+    if (ticket !== this.request) return; // a newer zoom superseded this one
+    const target = range || this.fullRange;
+    this.syncing = true;
+    try {
+      await Promise.all(
+        this.panels.map((panel) => {
+          const div = this.figures.get(panel.id);
+          return Plotly.react(div, this.traces(panel, series), this.layout(panel, target), div._context);
+        }),
+      );
+    } finally {
+      this.syncing = false;
+    }
+    this.announce(series);
+  }
+
+  zoomToEvent(ev) {
+    const duration = Math.max(ev.end_s - ev.start_s, 0);
+    const pad = Math.max(1.0, duration * 0.75); // context on both sides [s]
+    let t0 = ev.start_s - pad;
+    let t1 = ev.end_s + pad;
+    if (this.fullRange) {
+      t0 = Math.max(this.fullRange[0], t0);
+      t1 = Math.min(this.fullRange[1], t1);
+    }
+    this.setRange([t0, t1]);
+  }
+
+  setKindVisible(kind, visible) {
+    if (visible) this.hiddenKinds.delete(kind);
+    else this.hiddenKinds.add(kind);
+    for (const panel of this.panels) {
+      const div = this.figures.get(panel.id);
+      Plotly.relayout(div, { shapes: [...this.eventShapes(panel), ...this.limitShapes(panel)] });
+    }
+  }
+}
