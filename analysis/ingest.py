@@ -50,11 +50,11 @@ from analysis.channel_map import (
 )
 from analysis.errors import ChannelMapError, IngestError
 from analysis.ingest_order import (
-    PARQUET_OPTS,
     ROW_GROUP_ROWS,
     distance,
     duplicate_masks,
     late_rows,
+    open_writer,
     rewrite_stream,
     time_stats,
 )
@@ -248,16 +248,15 @@ class _StreamWriter:
         if not self.pending:
             return
         if self.writer is None:
-            self.writer = pq.ParquetWriter(self.path, self.schema, **PARQUET_OPTS)
+            self.writer = open_writer(self.path, self.schema)
         self.writer.write_table(pa.concat_tables(self.pending), row_group_size=ROW_GROUP_ROWS)
         self.pending, self.pending_rows = [], 0
 
     def close(self) -> np.ndarray:
         self._flush()
         if self.writer is None:
-            pq.write_table(self.schema.empty_table(), self.path, **PARQUET_OPTS)
-        else:
-            self.writer.close()
+            self.writer = open_writer(self.path, self.schema)
+        self.writer.close()
         return np.concatenate(self.t_parts) if self.t_parts else np.zeros(0)
 
 
