@@ -27,6 +27,7 @@ than 5 median periods are counted and listed.
 from __future__ import annotations
 
 import hashlib
+from decimal import Decimal
 import os
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
@@ -162,7 +163,8 @@ def _first_time_ns(info: FileInfo, source: SourceSpec, ttype: pa.DataType) -> in
     raw = _raw_time(col)
     low = raw.min()
     ns = _ns_per_unit(source)
-    return int(low) * ns if raw.dtype.kind in "iu" else int(round(float(low) * ns))
+    # Decimal(float) is exact: no float rounding of epoch values at ns scale
+    return int(low) * ns if raw.dtype.kind in "iu" else int(round(Decimal(float(low)) * ns))
 
 
 class _Clock:

@@ -83,6 +83,7 @@ class BadLines:
         for k in range(min(room, n)):
             why = reason if isinstance(reason, str) else reason[k]
             self.listed.append({self.unit: int(lines[k]), "reason": why})
+        self.listed.sort(key=lambda item: int(item[self.unit]))  # type: ignore[call-overload]
 
 
 def _open_text(path: Path, compression: str | None) -> tuple[pa.NativeFile, pa.NativeFile]:
