@@ -320,6 +320,13 @@ def compare_runs(
             "The roll lag is one number per run; its interval needs at least two runs of each "
             "version."
         )
+    if any(k.stat is not None and k.stat.kind in ("max", "min") for k in kdefs):
+        notes.append(
+            "Intervals of extremes (peak slip speed, max roll error, minimum tip-over margin) are "
+            "indicative only: the bootstrap reproduces the spread of a sample maximum or minimum "
+            "poorly (Efron & Tibshirani 1993 show it failing for the maximum, from memory); "
+            "read them with the per-segment values."
+        )
     if not same:
         notes.append(
             "Runs are not on one course: overall KPIs cover each run's whole length and are "
