@@ -1,0 +1,92 @@
+"""``outrigger analyse`` and ``outrigger check``: run the detectors, gate on limits."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from typing import Any
+
+from analysis.archive import Archive
+from analysis.limits import check_limits, load_limits
+from analysis.pipeline import analyse_run, load_analysis
+from analysis.profile import load_thresholds
+from server.cli import add_data_option, data_dir
+
+
+def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
+    """Add the ``analyse`` and ``check`` commands."""
+    p = sub.add_parser(
+        "analyse",
+        help="run every detector on a stored run and store the results",
+        description="Run every detector on a stored run; replaces its stored results.",
+    )
+    p.add_argument("run", metavar="RUN", help="run id (see `outrigger runs`)")
+    p.add_argument("--thresholds", metavar="FILE", help="TOML file overriding profile thresholds")
+    p.add_argument("--json", action="store_true", help="print the full result as JSON")
+    add_data_option(p)
+    p.set_defaults(func=_analyse)
+
+    c = sub.add_parser(
+        "check",
+        help="check a run's results against limits; exit 1 if any is broken",
+        description=(
+            "Check a run's stored analysis against a limits file, for build pipelines. "
+            "Exit 0 when every limit holds, 1 when any is broken (each is named), 2 on bad input. "
+            "The run is analysed first if it never was."
+        ),
+    )
+    c.add_argument("run", metavar="RUN", help="run id")
+    c.add_argument("--limits", metavar="FILE", required=True, help="limits TOML file")
+    c.add_argument("--json", action="store_true", help="print the verdict as JSON")
+    add_data_option(c)
+    c.set_defaults(func=_check)
+
+
+def _print_summary(result: dict[str, Any]) -> None:
+    counts = result.get("event_counts", {})
+    print(f"run {result['run']}  (analysis {result.get('analysis_version')})")
+    listed = ", ".join(f"{k} {v}" for k, v in counts.items() if v) or "none"
+    print(f"  events: {listed}")
+    for item in result.get("skipped", []):
+        print(f"  skipped {item['detector']}: {item['reason']}")
+    for detector, lines in result.get("notes", {}).items():
+        for line in lines:
+            print(f"  note ({detector}): {line}")
+
+
+def _analyse(args: argparse.Namespace) -> int:
+    archive = Archive(data_dir(args))
+    archive.get_meta(args.run)  # RunNotFoundError before any work
+    profile = archive.load_profile(args.run)
+    thresholds = (
+        load_thresholds(args.thresholds, base=profile.thresholds) if args.thresholds else None
+    )
+    result = analyse_run(archive, args.run, thresholds).to_json(args.run)
+    if args.json:
+        json.dump(result, sys.stdout, indent=2)
+        print()
+    else:
+        _print_summary(result)
+    return 0
+
+
+def _check(args: argparse.Namespace) -> int:
+    limits = load_limits(args.limits)
+    archive = Archive(data_dir(args))
+    archive.get_meta(args.run)
+    summary = load_analysis(archive, args.run)
+    if summary is None:
+        summary = analyse_run(archive, args.run).to_json(args.run)
+    wheels = tuple(a.name for a in archive.load_profile(args.run).wheels().values())
+    broken = check_limits(summary, limits, wheels)
+    if args.json:
+        json.dump({"run": args.run, "passed": not broken, "broken": broken}, sys.stdout, indent=2)
+        print()
+    elif broken:
+        print(f"run {args.run}: {len(broken)} limit(s) broken")
+        for line in broken:
+            print(f"  BROKEN {line}")
+    else:
+        print(f"run {args.run}: every limit in {args.limits} holds")
+    return 1 if broken else 0
