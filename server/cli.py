@@ -23,6 +23,7 @@ COMMAND_MODULES = (
     "server.cli_analysis",
     "server.cli_compare",
     "server.cli_serve",
+    "server.cli_demo",
 )
 
 DEFAULT_DATA_DIR = "outrigger-data"

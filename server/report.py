@@ -113,7 +113,7 @@ def _figure(signal: dict[str, str], view: dict[str, Any]) -> go.Figure:
         fig.add_trace(
             go.Scattergl(
                 x=data["x"], y=data["y"], mode="lines",
-                name=f"{v}: {tr['name']}", legendgroup=v, showlegend=True,
+                name=html.escape(f"{v}: {tr['name']}"), legendgroup=v, showlegend=True,
                 line={"color": RUN_COLOURS[v], "width": 1.3, "dash": RUN_DASH[v]},
             )
         )  # fmt: skip

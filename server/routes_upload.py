@@ -17,14 +17,10 @@ import shutil
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import IO, Annotated, Any
+from typing import IO, TYPE_CHECKING, Annotated, Any
 
 from fastapi import APIRouter, Depends, Request
-from python_multipart.multipart import (
-    MultipartCallbacks,
-    MultipartParser,
-    parse_options_header,
-)
+from python_multipart.multipart import MultipartParser, parse_options_header
 
 from analysis.archive import Archive
 from analysis.channel_map import load_channel_map
@@ -33,6 +29,9 @@ from analysis.pipeline import analyse_run
 from analysis.profile import load_profile
 from server.deps import ApiError, get_archive, get_jobs, require_write
 from server.jobs import JobManager, Progress
+
+if TYPE_CHECKING:
+    from python_multipart.multipart import MultipartCallbacks
 
 router = APIRouter(prefix="/api", tags=["upload"])
 

@@ -166,7 +166,7 @@ async function showThresholds(analysis) {
         "label",
         { title: spec.meaning },
         el("span", { className: "th-key" }, spec.key),
-        el("input", { type: "number", step: "any", min: "0", name: spec.key, value: String(used[spec.key] ?? spec.default) }),
+        el("input", { type: "number", step: "any", min: "0", name: spec.key, value: String(Number(Number(used[spec.key] ?? spec.default).toPrecision(6))) }),
         el("span", { className: "th-unit" }, spec.unit || "–"),
       ),
     ),

@@ -32,7 +32,9 @@ function row(run) {
   return el(
     "tr",
     { dataset: { runId: run.run_id } },
-    el("td", { className: "run-name" }, link, el("div", { className: "run-id" }, run.run_id), tags),
+    el("td", { className: "run-name" }, link, el("div", { className: "run-id" }, run.run_id), tags,
+      // Compare page: this run as version A; the page offers runs of the same course first.
+      el("a", { className: "compare-link", style: { fontSize: "0.8rem" }, href: `/compare.html?a=${encodeURIComponent(run.run_id)}` }, "Compare with…")),
     el("td", {}, run.course || "–"),
     el("td", {}, run.controller || "–"),
     el("td", {}, run.date ? run.date.replace("T", " ").replace("+00:00", "").replace("Z", "") : "–"),
