@@ -29,9 +29,13 @@ class CompareArchive:
     hill: str  # gullhaven-hill, lean-ctl 1.4
 
 
-def _store(archive: Archive, folder: Path, controller: str, seed: int, course: str, name: str) -> str:
+def _store(
+    archive: Archive, folder: Path, controller: str, seed: int, course: str, name: str
+) -> str:
     folder.mkdir(parents=True, exist_ok=True)
-    run = demo.simulate_run(controller, seed=seed, duration_s=SECONDS, course=course, name=name)
+    run = demo.simulate_run(
+        controller, seed=seed, duration_s=SECONDS, course=course, name=f"run{seed}"
+    )
     logs = []
     for file_name, table in demo.foreign_tables(run).items():
         path = folder / file_name

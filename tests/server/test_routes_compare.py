@@ -35,7 +35,12 @@ def test_compare_same_course(api, stocked_compare) -> None:
     assert comp["same_course"] is True and comp["refusal"] is None
     assert [x["run"] for x in comp["runs_a"]] == [s.a]
     keys = {row["key"] for row in comp["kpis"]}
-    assert {"roll_error_rms", "min_tip_margin", "wheel_l.saturation_share", "wheel_l.energy"} <= keys
+    assert {
+        "roll_error_rms",
+        "min_tip_margin",
+        "wheel_l.saturation_share",
+        "wheel_l.energy",
+    } <= keys
     assert set(comp["segment_kpis"]) == {seg["name"] for seg in comp["segments"]}
     assert {t["version"] for t in charts["traces"]} == {"A", "B"}
     assert charts["segments"] == comp["segments"]
