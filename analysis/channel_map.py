@@ -162,11 +162,6 @@ def _unit_problem(
             f"which expects {si_unit!r} or a unit convertible to it.",
             1.0,
         )
-    if quantity.unitless and not ureg.Unit(si_unit).dimensionless:
-        return (
-            f"{where}: unit {unit!r} is a pure number but {signal!r} expects {si_unit!r}.",
-            1.0,
-        )
     # pint treats the radian as dimensionless, so 'Hz' would pass for 'rad/s' with
     # factor 1; demand that an angle signal's unit carries an angle.
     want_rad = ureg.get_root_units(si_unit)[1]._units.get("radian", 0)

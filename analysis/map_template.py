@@ -118,7 +118,8 @@ def guess_signal(name: str, actuators: Sequence[str] = ()) -> str | None:
         return catalogue.leg_length(side)
     if tokens & {"height", "h"} and is_ref:
         return catalogue.HEIGHT_REF
-    if tokens & {"vel", "v", "speed", "vx", "vy"} and not actuator:
+    velocity = tokens & {"vel", "speed", "vx", "vy"} or ("v" in tokens and tokens & {"x", "y"})
+    if velocity and not actuator:
         lateral = "y" in tokens or "vy" in tokens
         if is_ref:
             return None if lateral else catalogue.VEL_X_REF
