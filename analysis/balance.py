@@ -73,8 +73,9 @@ def detect_balance(
     DetectorResult
         ``detector="balance"``; events ``pitch_excursion`` (enter above
         ``pitch_limit``, leave below ``PITCH_EXIT_FRACTION * pitch_limit``) and
-        ``fall`` (enter above ``fall_pitch``, last while beyond ``pitch_limit``;
-        or the final stretch beyond ``pitch_limit`` when the run ends tilted);
+        ``fall`` (from where ``|pitch|`` passes ``fall_pitch`` until it is back
+        within ``pitch_limit``; or the final stretch beyond ``pitch_limit`` when
+        the run ends tilted, joined to a fall it overlaps);
         ``peak`` is the signed pitch of largest magnitude [rad]. KPIs
         ``excursion_count``, ``max_abs_pitch`` [rad], ``fell``, ``fall_time_s``
         (start of the first fall, or None) and ``fall_reason``.
@@ -122,6 +123,10 @@ def detect_balance(
         min_duration_s=th.min_duration_s,
         merge_gap_s=th.merge_gap_s,
     )
+    # A fall starts where |pitch| passes the recoverable angle (not where it first
+    # passed pitch_limit on the way) and lasts until it is back within pitch_limit.
+    beyond_fall = ap > th.fall_pitch
+    fall_iv = [(a + int(np.argmax(beyond_fall[a : b + 1])), b) for a, b in fall_iv]
     reasons = [[REASON_FALL_PITCH] for _ in fall_iv]
     end_iv, too_short = _ended_tilted(tv, ap, th) if tv.size else (None, True)
     if too_short:
@@ -133,7 +138,7 @@ def detect_balance(
         overlapping = [i for i, (a, b) in enumerate(fall_iv) if b >= end_iv[0]]
         if overlapping:
             first = overlapping[0]
-            fall_iv = fall_iv[:first] + [(min(fall_iv[first][0], end_iv[0]), end_iv[1])]
+            fall_iv = fall_iv[:first] + [(fall_iv[first][0], end_iv[1])]
             reasons = reasons[:first] + [[REASON_FALL_PITCH, REASON_ENDED_TILTED]]
         else:
             fall_iv = [*fall_iv, end_iv]

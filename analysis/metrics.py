@@ -20,6 +20,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import fft as sp_fft
 from scipy import signal as sps
 
 from analysis.events import GAP_FACTOR, data_gaps
@@ -276,9 +277,18 @@ def _uniform(t: np.ndarray, x: np.ndarray, grid: np.ndarray) -> tuple[np.ndarray
     # Intervals between valid samples longer than GAP_FACTOR median periods are holes.
     med = float(np.median(np.diff(t)))
     hole = np.diff(tv) > GAP_FACTOR * med
-    k = np.clip(np.searchsorted(tv, grid, side="right") - 1, 0, tv.size - 2)
-    inside = (grid >= tv[0]) & (grid <= tv[-1]) & ~hole[k]
+    inside = (grid >= tv[0]) & (grid <= tv[-1])
+    if hole.any():
+        k = np.clip(np.searchsorted(tv, grid, side="right") - 1, 0, tv.size - 2)
+        inside &= ~hole[k]
     return values, inside
+
+
+def _xcorr_window(a: np.ndarray, b: np.ndarray, max_k: int) -> np.ndarray:
+    """``sum_n a[n + k] b[n]`` for ``k = -max_k .. max_k``, by FFT padded just enough."""
+    size = sp_fft.next_fast_len(a.size + max_k, real=True)
+    full = sp_fft.irfft(sp_fft.rfft(a, size) * np.conj(sp_fft.rfft(b, size)), size)
+    return np.concatenate((full[size - max_k :], full[: max_k + 1]))
 
 
 def lag_by_xcorr(t: np.ndarray, ref: np.ndarray, y: np.ndarray, max_lag_s: float) -> LagEstimate:
@@ -305,10 +315,11 @@ def lag_by_xcorr(t: np.ndarray, ref: np.ndarray, y: np.ndarray, max_lag_s: float
     -----
     Both signals are interpolated onto a uniform grid with the median sample
     period; grid points inside data gaps or NaN runs are left out. After removing
-    the means, the cross-correlation ``R(k) = sum_n ref[n] y[n + k] / N(k)``
-    ([1], cross-correlation function and its
-    sample estimate) is divided by the number of
-    valid pairs ``N(k)`` at each lag, so holes do not bias it toward lag zero.
+    the means, the cross-correlation ``R(k) = sum_n ref[n] y[n + k]`` over the
+    pairs where both are logged ([1], cross-correlation function and its sample
+    estimate) is divided by ``sqrt(sum ref[n]^2 * sum y[n + k]^2)`` over the same
+    pairs, so neither the shrinking overlap nor holes bias it toward lag zero;
+    lags where fewer than half the pairs overlap are not considered.
     Its maximum over ``|k dt| <= max_lag_s`` is refined to a fraction of a
     sample by fitting a parabola through the peak and its two neighbours
     (``delta = (R[-1] - R[+1]) / (2 (R[-1] - 2 R[0] + R[+1]))``, common
@@ -327,10 +338,16 @@ def lag_by_xcorr(t: np.ndarray, ref: np.ndarray, y: np.ndarray, max_lag_s: float
     dt = float(np.median(np.diff(t)))
     if not dt > 0:
         return LagEstimate(float("nan"), float("nan"), False, "time base does not increase")
-    n = int(np.floor((t[-1] - t[0]) / dt)) + 1
-    grid = t[0] + dt * np.arange(n)
-    r, r_ok = _uniform(t, ref, grid)
-    v, v_ok = _uniform(t, y, grid)
+    steps = np.diff(t)
+    if np.all(np.abs(steps - dt) <= 1e-6 * dt):  # already uniform: use the samples as they are
+        n = t.size
+        r_ok, v_ok = np.isfinite(ref), np.isfinite(y)
+        r, v = np.where(r_ok, ref, 0.0), np.where(v_ok, y, 0.0)
+    else:
+        n = int(np.floor((t[-1] - t[0]) / dt)) + 1
+        grid = t[0] + dt * np.arange(n)
+        r, r_ok = _uniform(t, ref, grid)
+        v, v_ok = _uniform(t, y, grid)
     both = r_ok & v_ok
     if both.sum() < 4:
         return LagEstimate(
@@ -340,15 +357,23 @@ def lag_by_xcorr(t: np.ndarray, ref: np.ndarray, y: np.ndarray, max_lag_s: float
     v = np.where(v_ok, v - v[both].mean(), 0.0)
     if not (np.any(r[both] != 0) and np.any(v[both] != 0)):
         return LagEstimate(float("nan"), float("nan"), False, "a signal is constant")
-    max_k = max(1, int(np.floor(max_lag_s / dt)))
-    lags = sps.correlation_lags(n, n, mode="full")
-    sel = np.abs(lags) <= max_k
-    # [1] R(k) = sum_n ref[n] y[n + k], then divided by the pair count.
-    num = sps.correlate(v, r, mode="full", method="fft")[sel]
-    pairs = sps.correlate(v_ok.astype(float), r_ok.astype(float), mode="full", method="fft")[sel]
-    e_r = sps.correlate(v_ok.astype(float), r * r, mode="full", method="fft")[sel]
-    e_v = sps.correlate(v * v, r_ok.astype(float), mode="full", method="fft")[sel]
-    lags = lags[sel]
+    max_k = min(n - 1, max(1, int(np.floor(max_lag_s / dt))))
+    lags = np.arange(-max_k, max_k + 1)
+    # [1] R(k) = sum_n ref[n] y[n + k], normalised by the energies of the pairs used.
+    num = _xcorr_window(v, r, max_k)
+    if both.all():  # no holes: pair counts and energies from cumulative sums
+        cs_r = np.concatenate(([0.0], np.cumsum(r * r)))
+        cs_v = np.concatenate(([0.0], np.cumsum(v * v)))
+        pos = np.maximum(lags, 0)
+        neg = np.maximum(-lags, 0)
+        pairs = (n - np.abs(lags)).astype(float)
+        e_r = cs_r[n - pos] - cs_r[neg]  # ref samples n with 0 <= n + k < N
+        e_v = cs_v[n - neg] - cs_v[pos]  # y samples n + k with 0 <= n < N
+    else:
+        r_okf, v_okf = r_ok.astype(float), v_ok.astype(float)
+        pairs = _xcorr_window(v_okf, r_okf, max_k)
+        e_r = _xcorr_window(v_okf, r * r, max_k)
+        e_v = _xcorr_window(v * v, r_okf, max_k)
     usable = pairs > 0.5 * max(1.0, pairs.max()) if pairs.size else pairs > 0
     with np.errstate(invalid="ignore", divide="ignore"):
         corr = np.where(usable, num / np.sqrt(np.clip(e_r * e_v, 1e-300, None)), -np.inf)

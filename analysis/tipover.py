@@ -416,7 +416,10 @@ def detect_tip_margin(
         events ``low_tip_margin`` (channel None) with ``peak`` the minimum
         margin and ``detail["side"]`` the side the ZMP moved toward ("left" or
         "right": the loaded, outer wheel, toward which the robot would tip;
-        ``detail["unloading_wheel"]`` is the other).
+        ``detail["unloading_wheel"]`` is the other; both None when no sample of
+        the event has a defined ZMP). Samples near free fall (``f_z < F_Z_MIN``)
+        have no ZMP and a margin of 0 (``detail["unsupported"]``, KPI
+        ``unsupported_s``).
 
     Notes
     -----
@@ -443,6 +446,10 @@ def detect_tip_margin(
     b = profile.track_width
     y_zmp = zmp_lateral(L_c, roll, force.f_y, force.f_z)
     margin = tip_margin(y_zmp, b)
+    # Near free fall neither wheel carries load: the ZMP is undefined, and the margin
+    # is at most 0 (the inner wheel has certainly unloaded); it is reported as 0.
+    unsupported = (force.f_z < F_Z_MIN) & np.isfinite(roll) & np.isfinite(L_c)
+    margin = np.where(unsupported, 0.0, margin)
     ssf = static_stability_factor(b, L_c)
     result.notes = list(force.notes)
     result.series = pd.DataFrame(
@@ -456,11 +463,12 @@ def detect_tip_margin(
             cat.STATIC_STABILITY_FACTOR: ssf,
         }
     )
-    free_fall = int(np.sum(np.isfinite(force.f_z) & (force.f_z < F_Z_MIN)))
-    if free_fall:
+    unsupported_s, _ = time_where(t, unsupported, np.isfinite(margin))
+    if unsupported.any():
         result.notes.append(
-            f"{free_fall} sample(s) with vertical specific force below {F_Z_MIN:.2f} m/s² "
-            f"(near free fall): the ZMP is undefined there and left out."
+            f"{int(unsupported.sum())} sample(s) with vertical specific force below "
+            f"{F_Z_MIN:.2f} m/s² (near free fall, no wheel loaded): the ZMP is undefined "
+            f"there and the margin is reported as 0."
         )
     valid = np.isfinite(margin)
     if not valid.any():
@@ -489,28 +497,39 @@ def detect_tip_margin(
         tv, mv, intervals, cat.LOW_TIP_MARGIN, None, peak="min", detail=detail
     )
     for event, (a, bi) in zip(events, intervals, strict=True):  # loop over events
-        k = a + int(np.argmin(mv[a : bi + 1]))
-        side = _side(yv[k])
+        k = _argmin_supported(mv[a : bi + 1], yv[a : bi + 1])
+        side = None if k is None else _side(yv[a + k])
         event.detail["side"] = side
-        event.detail["unloading_wheel"] = "right" if side == "left" else "left"
-        event.detail["zmp_y_m"] = float(yv[k])
+        event.detail["unloading_wheel"] = {"left": "right", "right": "left"}.get(side or "")
+        event.detail["zmp_y_m"] = None if k is None else float(yv[a + k])
+        event.detail["unsupported"] = bool(unsupported[valid][a : bi + 1].any())
     result.events = events
 
     below_s, below_share = time_where(t, margin < th.tip_margin_on, valid)
     k_min = int(np.argmin(mv))
+    k_side = _argmin_supported(mv, yv)
     result.kpis = {
         "min_margin": float(mv[k_min]),
         "min_margin_t_s": float(tv[k_min]),
         "p1_margin": float(np.percentile(mv, 1.0)),
         "time_below_s": below_s,
         "share_below": below_share,
-        "side_of_min": _side(yv[k_min]),
+        "side_of_min": None if k_side is None else _side(yv[k_side]),
+        "unsupported_s": unsupported_s,
         "event_count": len(events),
         "min_static_stability_factor": float(np.nanmin(ssf)) if np.isfinite(ssf).any() else None,
         "method": force.method,
         "accel_cutoff_hz": float(th.accel_cutoff),
     }
     return result
+
+
+def _argmin_supported(margin: np.ndarray, y_zmp: np.ndarray) -> int | None:
+    """Index of the lowest margin among samples with a defined ZMP, or None."""
+    ok = np.isfinite(y_zmp)
+    if not ok.any():
+        return None
+    return int(np.argmin(np.where(ok, margin, np.inf)))
 
 
 def _side(y_zmp: float) -> str:

@@ -12,6 +12,7 @@ import pytest
 
 from analysis import catalogue as cat
 from analysis.balance import REASON_ENDED_TILTED, REASON_FALL_PITCH, detect_balance
+from analysis.events import DetectorResult
 from analysis.profile import RobotProfile, profile_from_dict
 
 DT = 0.01  # s, 100 Hz log
@@ -41,14 +42,15 @@ def _frame(t: np.ndarray, pitch_deg: np.ndarray) -> pd.DataFrame:
     return pd.DataFrame({cat.T: t, cat.PITCH: np.deg2rad(pitch_deg)})
 
 
-def _kinds(res: object) -> list[str]:
-    return [e.kind for e in res.events]  # type: ignore[attr-defined]
+def _kinds(res: DetectorResult) -> list[str]:
+    return [e.kind for e in res.events]
 
 
 def test_excursion_without_fall() -> None:
     t = np.arange(0.0, 6.0, DT)
     pitch = np.where((t >= 2.0) & (t < 2.5), -30.0, 2.0)  # nose up 30 deg for 0.5 s
     res = detect_balance(_frame(t, pitch), _profile())
+    # By construction: 30 deg is beyond the 20 deg limit, short of the 45 deg fall angle.
     assert _kinds(res) == [cat.PITCH_EXCURSION]
     ev = res.events[0]
     assert (ev.start_s, round(ev.end_s, 6)) == (2.0, 2.49)
@@ -60,12 +62,17 @@ def test_excursion_without_fall() -> None:
 
 def test_fall_beyond_recoverable_angle_then_later_events_marked() -> None:
     t = np.arange(0.0, 8.0, DT)
-    # Tips forward past 45 deg at 3 s, lies at 80 deg for 1 s, is picked up and
-    # wobbles to 25 deg at 6 s: the later excursion follows from the fall.
-    pitch = np.select([t < 3.0, t < 4.0, (t >= 6.0) & (t < 6.3)], [0.0, 80.0, 25.0], 0.0)
+    # Tips forward from 2.5 s (30 deg), past 45 deg at 3 s, lies at 80 deg for 1 s, is
+    # picked up and wobbles to 25 deg at 6 s: the later excursion follows from the fall.
+    pitch = np.select(
+        [t < 2.5, t < 3.0, t < 4.0, (t >= 6.0) & (t < 6.3)], [0.0, 30.0, 80.0, 25.0], 0.0
+    )
     res = detect_balance(_frame(t, pitch), _profile())
     falls = [e for e in res.events if e.kind == cat.FALL]
     assert len(falls) == 1
+    # By construction: the fall starts where pitch passes 45 deg (3 s), not at the 20 deg
+    # limit (2.5 s), and ends when it is back within the limit (last sample before 4 s).
+    assert falls[0].end_s == pytest.approx(3.99)
     assert falls[0].start_s == pytest.approx(3.0) and falls[0].detail["reason"] == [
         REASON_FALL_PITCH
     ]
@@ -78,6 +85,7 @@ def test_run_ending_tilted_is_a_fall() -> None:
     pitch = np.where(t >= 3.0, 35.0, 0.0)  # beyond the limit, not past 45 deg, to the end
     res = detect_balance(_frame(t, pitch), _profile())
     falls = [e for e in res.events if e.kind == cat.FALL]
+    # By construction: 35 deg held for the last 2 s (window 1 s), never past 45 deg.
     assert len(falls) == 1 and falls[0].detail["reason"] == [REASON_ENDED_TILTED]
     assert falls[0].start_s == pytest.approx(3.0) and falls[0].end_s == pytest.approx(t[-1])
     assert res.kpis["fall_time_s"] == pytest.approx(3.0)
@@ -92,11 +100,13 @@ def test_short_tilt_at_the_end_is_no_fall() -> None:
 
 def test_fall_that_ends_tilted_is_one_event() -> None:
     t = np.arange(0.0, 5.0, DT)
-    pitch = np.where(t >= 2.0, 90.0, 0.0)  # falls flat and stays there
+    pitch = np.clip((t - 2.0) * 90.0, 0.0, 90.0)  # tips over in 1 s, lies flat to the end
     res = detect_balance(_frame(t, pitch), _profile())
     falls = [e for e in res.events if e.kind == cat.FALL]
     assert len(falls) == 1
     assert falls[0].detail["reason"] == [REASON_FALL_PITCH, REASON_ENDED_TILTED]
+    # By construction: 45 deg is passed at 2.5 s; the fall lasts to the last sample.
+    assert falls[0].start_s == pytest.approx(2.51) and falls[0].end_s == pytest.approx(t[-1])
 
 
 def test_nan_samples_inside_an_excursion_do_not_split_it() -> None:

@@ -326,6 +326,33 @@ def test_detector_nan_gap_and_short_run() -> None:
     assert any("shorter than the filter padding" in note for note in res.notes)
 
 
+def test_detector_free_fall_counts_as_no_support() -> None:
+    n = 300
+    t = np.arange(n) * 0.01
+    falling = (t >= 1.0) & (t < 1.5)
+    # In free fall an accelerometer reads zero specific force (definition of specific
+    # force, common practice, no source).
+    frame = _frame(
+        n,
+        {
+            cat.ROLL: np.zeros(n),
+            cat.ACCEL_X: np.zeros(n),
+            cat.ACCEL_Y: np.zeros(n),
+            cat.ACCEL_Z: np.where(falling, 0.0, G),
+        },
+    )
+    res = detect_tip_margin(frame, _profile())
+    zmp = res.series[cat.ZMP_Y].to_numpy()
+    margin = res.series[cat.TIP_MARGIN].to_numpy()
+    # No wheel carries load: the ZMP is undefined and the margin is reported as 0.
+    assert np.isnan(zmp[(t > 1.1) & (t < 1.4)]).all()
+    assert margin[(t > 1.1) & (t < 1.4)] == pytest.approx(np.zeros(29))
+    assert len(res.events) == 1 and res.events[0].detail["unsupported"] is True
+    # No sample of the event has a ZMP, so no side is named.
+    assert res.events[0].detail["side"] is None
+    assert res.kpis["unsupported_s"] > 0.4
+
+
 def test_detector_linear_com_model_uses_mean_leg_length() -> None:
     n = 200
     frame = _frame(
