@@ -19,7 +19,6 @@ in line with the run folders.
 from __future__ import annotations
 
 import json
-import math
 import os
 import re
 import secrets
@@ -27,25 +26,27 @@ import shutil
 import sqlite3
 import tomllib
 from collections.abc import Iterator
-from contextlib import closing, contextmanager, suppress
+from contextlib import closing, contextmanager
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
 from analysis import catalogue
+from analysis.archive_files import (
+    asof_indices,
+    profile_from_si,
+    read_frame,
+    write_frame,
+    write_json,
+)
 from analysis.channel_map import parse_channel_map
 from analysis.errors import ArchiveError, ChannelMapError, ProfileError, RunNotFoundError
 from analysis.profile import (
-    Actuator,
-    ComModel,
-    MotorConstants,
     RobotProfile,
-    Thresholds,
     profile_from_dict,
 )
 
@@ -55,7 +56,6 @@ CONFIG_KINDS = {"profile": "profiles", "map": "maps"}
 #: As-of join tolerance, in periods of the joined stream: one period plus half a
 #: period of allowance for timestamp jitter; well below the 5-period gap limit.
 ASOF_PERIODS = 1.5
-_JSON_COLUMNS_KEY = b"outrigger.json_columns"
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS runs (
@@ -67,27 +67,6 @@ CREATE TABLE IF NOT EXISTS run_tags (run_id TEXT NOT NULL, tag TEXT NOT NULL);
 CREATE INDEX IF NOT EXISTS run_tags_tag ON run_tags (tag);
 CREATE INDEX IF NOT EXISTS runs_hash ON runs (source_hash);
 """
-
-
-def _json_safe(obj: Any) -> Any:
-    """Plain JSON data: numpy scalars to Python, NaN and inf to null."""
-    if isinstance(obj, dict):
-        return {str(k): _json_safe(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple | np.ndarray):
-        return [_json_safe(v) for v in obj]
-    if isinstance(obj, np.generic):
-        obj = obj.item()
-    if isinstance(obj, float) and not math.isfinite(obj):
-        return None
-    if isinstance(obj, pd.Timestamp | datetime):
-        return obj.isoformat()
-    return obj
-
-
-def _write_json(path: Path, data: dict[str, Any]) -> None:
-    tmp = path.with_name(path.name + f".{secrets.token_hex(3)}.tmp")
-    tmp.write_text(json.dumps(_json_safe(data), indent=1, allow_nan=False), encoding="utf-8")
-    os.replace(tmp, path)
 
 
 def _pid_alive(pid: int) -> bool:
@@ -242,7 +221,7 @@ class Archive:
         else:
             raise ArchiveError(f"Run {run_id} already exists in {self.root}.")
         meta["run_id"] = run_id
-        _write_json(staging / "meta.json", meta)
+        write_json(staging / "meta.json", meta)
         target = self.root / "runs" / run_id
         try:
             os.rename(staging, target)
@@ -329,7 +308,7 @@ class Archive:
             if not isinstance(tags, list | tuple) or not all(isinstance(t, str) for t in tags):
                 raise ArchiveError(f"Tags must be a list of strings, found {tags!r}.")
             meta["tags"] = list(dict.fromkeys(t.strip() for t in tags if t.strip()))
-        _write_json(self._run_dir(run_id) / "meta.json", meta)
+        write_json(self._run_dir(run_id) / "meta.json", meta)
         self._upsert_row(meta)
         return meta
 
@@ -353,21 +332,7 @@ class Archive:
         meta = self.get_meta(run_id)
         if meta.get("profile_toml"):
             return profile_from_dict(tomllib.loads(meta["profile_toml"]), source=f"run {run_id}")
-        d = meta["profile"]
-        actuators = tuple(
-            Actuator(**{**a, "motor": MotorConstants(**a["motor"]) if a.get("motor") else None})
-            for a in d["actuators"]
-        )
-        return RobotProfile(
-            name=d["name"],
-            wheel_radius=d["wheel_radius"],
-            track_width=d["track_width"],
-            mass=d["mass"],
-            com=ComModel(**d["com"]),
-            wheel_encoder_reference=d["wheel_encoder_reference"],
-            actuators=actuators,
-            thresholds=Thresholds.from_mapping(d["thresholds"], where=f"run {run_id}"),
-        )
+        return profile_from_si(meta["profile"], where=f"run {run_id}")
 
     # --- frames -----------------------------------------------------------------------
 
@@ -382,7 +347,7 @@ class Archive:
             for col in s["columns"][1:]:
                 name = col
                 if name in owners and col.startswith(catalogue.EXTRA_PREFIX):
-                    name = catalogue.extra(f"{s['name']}.{col[len(catalogue.EXTRA_PREFIX):]}")
+                    name = catalogue.extra(f"{s['name']}.{col[len(catalogue.EXTRA_PREFIX) :]}")
                 owners.setdefault(name, (s["name"], col))
         return base, owners
 
@@ -450,16 +415,10 @@ class Archive:
             rate = info[stream].get("rate_hz") or 0.0
             tol = ASOF_PERIODS / rate if rate > 0 else 0.0
             tab = read(stream, [s for _, s in pairs], None if t0 is None else t0 - tol)
-            ot = tab.column(catalogue.T).to_numpy()
-            idx = np.searchsorted(ot, t, side="right") - 1
-            safe = np.clip(idx, 0, max(len(ot) - 1, 0))
-            ok = (idx >= 0) & (len(ot) > 0)
-            if len(ot):
-                ok &= (t - ot[safe]) <= tol
-            take = pa.array(safe, mask=~ok) if len(ot) else pa.nulls(len(t), pa.int64())
+            take = asof_indices(t, tab.column(catalogue.T).to_numpy(), tol)
             for name, stored in pairs:
                 col = tab.column(stored)
-                out[name] = col.take(take) if len(ot) else pa.nulls(len(t), col.type)
+                out[name] = col.take(take)
         frame = pa.table({k: v for k, v in out.items()}).to_pandas()
         return frame[[catalogue.T, *[c for c in wanted]]]
 
@@ -474,9 +433,9 @@ class Archive:
         try:
             new = staging / "results"
             new.mkdir()
-            _write_frame(events, new / "events.parquet")
-            _write_frame(series, new / "series.parquet")
-            _write_json(new / "summary.json", summary)
+            write_frame(events, new / "events.parquet")
+            write_frame(series, new / "series.parquet")
+            write_json(new / "summary.json", summary)
             old = self.root / "staging" / f"{os.getpid()}-old-{secrets.token_hex(4)}"
             current = run_dir / "results"
             if current.exists():
@@ -493,7 +452,7 @@ class Archive:
         if not (res / "summary.json").is_file():
             return None
         summary: dict[str, Any] = json.loads((res / "summary.json").read_text(encoding="utf-8"))
-        return _read_frame(res / "events.parquet"), summary
+        return read_frame(res / "events.parquet"), summary
 
     def read_result_series(
         self,
@@ -513,7 +472,7 @@ class Archive:
             filters.append((catalogue.T, ">=", t0))
         if t1 is not None:
             filters.append((catalogue.T, "<=", t1))
-        return _read_frame(path, list(dict.fromkeys(cols)), filters or None)
+        return read_frame(path, list(dict.fromkeys(cols)), filters or None)
 
     # --- stored configs -----------------------------------------------------------------
 
@@ -556,31 +515,3 @@ class Archive:
             stored = ", ".join(self.list_configs(kind)) or "none"
             raise error(f"No stored {kind} named {name!r} (stored: {stored}).")
         return path
-
-
-def _write_frame(frame: pd.DataFrame, path: Path) -> None:
-    """DataFrame to Parquet; object columns of dicts/lists are stored as JSON text."""
-    frame = frame.copy()
-    json_cols = []
-    for col in frame.columns:
-        if frame[col].dtype == object and frame[col].map(lambda v: isinstance(v, dict | list)).any():
-            frame[col] = frame[col].map(lambda v: json.dumps(_json_safe(v)))
-            json_cols.append(str(col))
-    table = pa.Table.from_pandas(frame, preserve_index=False)
-    table = table.replace_schema_metadata(
-        {**(table.schema.metadata or {}), _JSON_COLUMNS_KEY: json.dumps(json_cols).encode()}
-    )
-    pq.write_table(table, path, compression="zstd")
-
-
-def _read_frame(
-    path: Path, columns: list[str] | None = None, filters: list[Any] | None = None
-) -> pd.DataFrame:
-    table = pq.read_table(path, columns=columns, filters=filters)
-    meta = table.schema.metadata or {}
-    frame = table.to_pandas()
-    with suppress(ValueError, TypeError):
-        for col in json.loads(meta.get(_JSON_COLUMNS_KEY, b"[]")):
-            if col in frame:
-                frame[col] = frame[col].map(lambda v: json.loads(v) if isinstance(v, str) else v)
-    return frame

@@ -17,6 +17,7 @@ no hand-written factor table.
 from __future__ import annotations
 
 import fnmatch
+import os
 import re
 import tomllib
 from collections.abc import Mapping, Sequence
@@ -142,7 +143,7 @@ def _unit_problem(
         if unit not in DIMENSIONLESS_UNITS:
             return (
                 f"{where}: unit {unit!r} for dimensionless {signal!r}; use one of "
-                f'{", ".join(repr(u) for u in DIMENSIONLESS_UNITS)}.',
+                f"{', '.join(repr(u) for u in DIMENSIONLESS_UNITS)}.",
                 1.0,
             )
         return None, float(ureg.Quantity(1.0, unit or "1").to("dimensionless").magnitude)
@@ -173,7 +174,10 @@ def _unit_problem(
             1.0,
         )
     if float(ureg.Quantity(0.0, unit).to(si_unit).magnitude) != 0.0:
-        return f"{where}: unit {unit!r} has an offset; only multiplicative units are supported.", 1.0
+        return (
+            f"{where}: unit {unit!r} has an offset; only multiplicative units are supported.",
+            1.0,
+        )
     return None, float(quantity.to(si_unit).magnitude)
 
 
@@ -264,12 +268,12 @@ def channel_map_from_dict(
         time_origin = s.get("time_origin", "epoch" if time_unit == ISO8601 else None)
         if time_origin not in TIME_ORIGINS:
             problems.append(
-                f"{where}: time_origin must be \"epoch\" (Unix time) or \"boot\", "
+                f'{where}: time_origin must be "epoch" (Unix time) or "boot", '
                 f"found {time_origin!r}."
             )
             time_origin = "boot"
         elif time_unit == ISO8601 and time_origin != "epoch":
-            problems.append(f"{where}: ISO 8601 times are absolute; use time_origin = \"epoch\".")
+            problems.append(f'{where}: ISO 8601 times are absolute; use time_origin = "epoch".')
         origins.add(str(time_origin))
         delimiter = s.get("delimiter")
         if delimiter is not None and delimiter not in DELIMITERS:
@@ -305,6 +309,7 @@ def channel_map_from_dict(
                     + "."
                 )
                 continue
+            signal = str(signal)
             if signal in signal_home:
                 problems.append(
                     f"{cwhere}: signal {signal!r} is already mapped in {signal_home[signal]}; "
@@ -339,7 +344,7 @@ def channel_map_from_dict(
         )
     if len(origins) > 1:
         problems.append(
-            "sources mix time_origin \"epoch\" and \"boot\"; all files of a run share one clock."
+            'sources mix time_origin "epoch" and "boot"; all files of a run share one clock.'
         )
     if problems:
         raise ChannelMapError(
@@ -355,11 +360,15 @@ def parse_channel_map(
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise ChannelMapError(f"The {origin} is not valid TOML: {exc}. Fix the line it names.")
+        raise ChannelMapError(
+            f"The {origin} is not valid TOML: {exc}. Fix the line it names."
+        ) from exc
     return channel_map_from_dict(data, profile, text=text, origin=origin)
 
 
-def load_channel_map(path: str | Path, profile: RobotProfile | None = None) -> ChannelMap:
+def load_channel_map(
+    path: str | os.PathLike[str], profile: RobotProfile | None = None
+) -> ChannelMap:
     """Read and check a channel-map TOML file."""
     p = Path(path)
     if not p.is_file():

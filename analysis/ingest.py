@@ -27,7 +27,6 @@ than 5 median periods are counted and listed.
 from __future__ import annotations
 
 import hashlib
-from decimal import Decimal
 import os
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
@@ -42,7 +41,6 @@ import pyarrow.parquet as pq
 
 from analysis import __version__, catalogue
 from analysis.channel_map import (
-    ISO8601,
     ChannelMap,
     SourceSpec,
     channel_map_from_dict,
@@ -50,6 +48,7 @@ from analysis.channel_map import (
     load_channel_map,
 )
 from analysis.errors import ChannelMapError, IngestError
+from analysis.ingest_formats import iter_file
 from analysis.ingest_order import (
     ROW_GROUP_ROWS,
     distance,
@@ -59,8 +58,15 @@ from analysis.ingest_order import (
     rewrite_stream,
     time_stats,
 )
-from analysis.ingest_read import BadLines, FileInfo, inspect_file, iter_file
-from analysis.profile import RobotProfile, load_profile, unit_registry
+from analysis.ingest_read import BadLines, FileInfo, inspect_file
+from analysis.ingest_time import (
+    Clock,
+    extra_type,
+    first_time_ns,
+    raw_time,
+    time_type,
+)
+from analysis.profile import RobotProfile, load_profile
 
 if TYPE_CHECKING:
     from analysis.archive import Archive
@@ -101,95 +107,15 @@ def combined_hash(hashes: Iterable[str]) -> str:
     return hashlib.sha256("\n".join(sorted(hashes)).encode()).hexdigest()
 
 
-# --- types and time ------------------------------------------------------------------
-
-
-def _time_type(info: FileInfo, source: SourceSpec) -> pa.DataType:
-    if source.time_unit == ISO8601:
-        return pa.timestamp("ns", "UTC")
-    if info.fmt == "parquet":
-        t = pq.ParquetFile(info.path).schema_arrow.field(source.time_column).type
-    elif info.peek is not None and source.time_column in info.peek.column_names:
-        t = info.peek.schema.field(source.time_column).type
-    else:
-        t = pa.float64()
-    if pa.types.is_timestamp(t) or pa.types.is_string(t):
-        raise IngestError(
-            f"{info.path.name}: time column {source.time_column!r} holds date-time text or "
-            f"timestamps, but the map says time_unit = {source.time_unit!r}. "
-            f'Set time_unit = "iso8601".'
-        )
-    return pa.int64() if pa.types.is_integer(t) else pa.float64()
-
-
-def _extra_type(info: FileInfo, column: str) -> pa.DataType:
-    if info.fmt == "parquet":
-        return pq.ParquetFile(info.path).schema_arrow.field(column).type
-    if info.peek is None or column not in info.peek.column_names:
-        return pa.string()
-    t = info.peek.schema.field(column).type
-    if pa.types.is_integer(t) or pa.types.is_floating(t):
-        return pa.float64()
-    if pa.types.is_boolean(t):
-        return pa.bool_()
-    return pa.string()
-
-
-def _ns_per_unit(source: SourceSpec) -> int:
-    unit = "ns" if source.time_unit == ISO8601 else source.time_unit
-    return int(round(unit_registry().Quantity(1, unit).to("ns").magnitude))
-
-
-def _raw_time(col: pa.ChunkedArray | pa.Array) -> np.ndarray:
-    if pa.types.is_timestamp(col.type):
-        col = col.cast(pa.int64())
-    return np.asarray(col.to_numpy())
-
-
-def _first_time_ns(info: FileInfo, source: SourceSpec, ttype: pa.DataType) -> int | None:
-    """Earliest timestamp among the first rows of a file (all rows for Parquet). [ns]"""
-    from analysis.ingest_read import _validate
-
-    if info.fmt == "parquet":
-        col = pq.read_table(info.path, columns=[source.time_column]).column(source.time_column)
-        col = col.cast(ttype)
-    elif info.peek is not None and source.time_column in info.peek.column_names:
-        col, _ = _validate(info.peek.column(source.time_column).combine_chunks().cast(pa.string()), ttype)
-    else:
-        return None
-    col = pc.drop_null(col)
-    if len(col) == 0:
-        return None
-    raw = _raw_time(col)
-    low = raw.min()
-    ns = _ns_per_unit(source)
-    # Decimal(float) is exact: no float rounding of epoch values at ns scale
-    return int(low) * ns if raw.dtype.kind in "iu" else int(round(Decimal(float(low)) * ns))
-
-
-class _Clock:
-    """Raw time of one source -> seconds since the run's origin, keeping ns precision."""
-
-    def __init__(self, source: SourceSpec, origin_ns: int) -> None:
-        self.ns = _ns_per_unit(source)
-        self.factor = source.time_factor  # s per raw unit (pint)
-        self.base, rem = divmod(origin_ns, self.ns)  # origin in raw units + ns remainder
-        self.rem_s = rem * 1e-9
-        self.origin_raw = origin_ns / self.ns
-
-    def seconds(self, raw: np.ndarray) -> np.ndarray:
-        if raw.dtype.kind in "iu":
-            return (raw - np.int64(self.base)).astype(np.float64) * self.factor - self.rem_s
-        return (raw - self.origin_raw) * self.factor
-
-
 # --- streaming writer ------------------------------------------------------------------
 
 
 class _StreamWriter:
     """Convert tables of one source and write them to Parquet in ~1M-row row groups."""
 
-    def __init__(self, path: Path, source: SourceSpec, clock: _Clock, extras: dict[str, pa.DataType]):
+    def __init__(
+        self, path: Path, source: SourceSpec, clock: Clock, extras: dict[str, pa.DataType]
+    ):
         self.path = path
         self.source = source
         self.clock = clock
@@ -211,7 +137,7 @@ class _StreamWriter:
         self.t_min = np.inf
 
     def add(self, raw: pa.Table) -> None:
-        t = self.clock.seconds(_raw_time(raw.column(self.source.time_column)))
+        t = self.clock.seconds(raw_time(raw.column(self.source.time_column)))
         arrays: list[pa.Array | pa.ChunkedArray] = [pa.array(t)]
         for c in self.source.columns:
             col = raw.column(c.raw)
@@ -287,7 +213,9 @@ def _resolve(
 def _refuse_bad(info: FileInfo, bad: BadLines) -> None:
     if bad.count <= MAX_BAD_SHARE * max(bad.total, 1):
         return
-    named = "; ".join(f"{bad.unit} {b[bad.unit]}: {b['reason']}" for b in bad.listed[:MAX_NAMED_LINES])
+    named = "; ".join(
+        f"{bad.unit} {b[bad.unit]}: {b['reason']}" for b in bad.listed[:MAX_NAMED_LINES]
+    )
     more = f" (and {bad.count - MAX_NAMED_LINES} more)" if bad.count > MAX_NAMED_LINES else ""
     raise IngestError(
         f"{info.path.name}: {bad.count} of {bad.total} {bad.unit}s do not parse "
@@ -394,15 +322,15 @@ def ingest_files(
     firsts: list[int] = []
     for sname, files_of in groups.items():
         src, info = sources[sname], infos[files_of[0]]
-        ttype = _time_type(info, src)
+        ttype = time_type(info, src)
         mapped = {c.raw for c in src.columns}
         extras[sname] = {
-            c: _extra_type(info, c) for c in info.columns if c != src.time_column and c not in mapped
+            c: extra_type(info, c) for c in info.columns if c != src.time_column and c not in mapped
         }
         types[sname] = {src.time_column: ttype, **{c.raw: pa.float64() for c in src.columns}}
         types[sname].update(extras[sname])
         for p in files_of:
-            f = _first_time_ns(infos[p], src, ttype)
+            f = first_time_ns(infos[p], src, ttype)
             if f is not None:
                 firsts.append(f)
     origin_ns = min(firsts) if firsts else 0
@@ -419,7 +347,7 @@ def ingest_files(
         for sname, files_of in groups.items():
             src = sources[sname]
             w = _StreamWriter(
-                staging / "streams" / f"{sname}.parquet", src, _Clock(src, origin_ns), extras[sname]
+                staging / "streams" / f"{sname}.parquet", src, Clock(src, origin_ns), extras[sname]
             )
             writers[sname] = w
             for p in files_of:
@@ -496,8 +424,12 @@ def _build_meta(
     distance_m = None
     for sname, r in report.items():
         if catalogue.VEL_X in r["signals"]:
-            tab = pq.read_table(staging / "streams" / f"{sname}.parquet", columns=[catalogue.T, catalogue.VEL_X])
-            distance_m = distance(tab.column(0).to_numpy(), tab.column(1).to_numpy(zero_copy_only=False))
+            tab = pq.read_table(
+                staging / "streams" / f"{sname}.parquet", columns=[catalogue.T, catalogue.VEL_X]
+            )
+            distance_m = distance(
+                tab.column(0).to_numpy(), tab.column(1).to_numpy(zero_copy_only=False)
+            )
     streams = [
         {
             "name": s,

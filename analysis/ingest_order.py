@@ -159,7 +159,10 @@ def rewrite_stream(path: Path, shift: float, needs_sort: bool) -> tuple[np.ndarr
                 col = pq.read_table(path, columns=[name]).column(name).take(order_arr)
                 col = col.filter(keep_arr)
             f = Path(td) / f"{k}.arrow"
-            with pa.OSFile(str(f), "wb") as sink, pa.ipc.new_file(sink, pa.schema([schema.field(k)])) as w:
+            with (
+                pa.OSFile(str(f), "wb") as sink,
+                pa.ipc.new_file(sink, pa.schema([schema.field(k)])) as w,
+            ):
                 w.write_table(pa.table({name: col}, schema=pa.schema([schema.field(k)])))
             files.append(f)
             del col

@@ -95,7 +95,11 @@ def guess_signal(name: str, actuators: Sequence[str] = ()) -> str | None:
         if "gyro" in tokens and axis in tokens:
             return rate_sig
     if tokens & {"acc", "accel", "imu"} and not tokens & (_TORQUE | _POS):
-        for axis, sig in (("x", catalogue.ACCEL_X), ("y", catalogue.ACCEL_Y), ("z", catalogue.ACCEL_Z)):
+        for axis, sig in (
+            ("x", catalogue.ACCEL_X),
+            ("y", catalogue.ACCEL_Y),
+            ("z", catalogue.ACCEL_Z),
+        ):
             if axis in tokens:
                 return sig
     actuator = None
@@ -142,7 +146,9 @@ def guess_time(columns: Sequence[str], first_row: dict[str, object]) -> tuple[st
         except (TypeError, ValueError):
             v = 0.0
         # Unix time now is about 1.7e9 s: magnitude tells the unit (common practice, no source).
-        epoch_unit = next((u for u, lo in (("ns", 1e17), ("us", 1e14), ("ms", 1e11), ("s", 1e8)) if v >= lo), None)
+        epoch_unit = next(
+            (u for u, lo in (("ns", 1e17), ("us", 1e14), ("ms", 1e11), ("s", 1e8)) if v >= lo), None
+        )
         origin = "epoch" if epoch_unit else "boot"
         return col, unit or epoch_unit or "s", origin
     return None
@@ -187,24 +193,36 @@ def template(headers: Sequence[FileHeader], actuators: Sequence[str] = ()) -> st
                 mapped[col] = (sig, unit)
         torques = sum(1 for s, _ in mapped.values() if "torque" in s)
         kind = "torque" if torques and torques >= len(mapped) / 2 else "state"
-        out += ["[[source]]", f'name = "{name}"', f'files = "{re.sub(r"[0-9]+", "*", h.path.name)}"   {GUESS}']
+        out += [
+            "[[source]]",
+            f'name = "{name}"',
+            f'files = "{re.sub(r"[0-9]+", "*", h.path.name)}"   {GUESS}',
+        ]
         out.append(f'kind = "{kind}"   {GUESS}')
         if time:
             out.append(f'time_column = "{time[0]}"   {GUESS}')
             out.append(f'time_unit = "{time[1]}"   {GUESS}')
             out.append(f'time_origin = "{time[2]}"   {GUESS}')
         else:
-            out += ['time_column = "?"   # name the time column', 'time_unit = "s"   # s | ms | us | ns | iso8601', 'time_origin = "boot"']
+            out += [
+                'time_column = "?"   # name the time column',
+                'time_unit = "s"   # s | ms | us | ns | iso8601',
+                'time_origin = "boot"',
+            ]
         out.append("")
         out.append("[source.columns]")
         for col in h.columns:
             if time and col == time[0]:
                 continue
-            key = col if re.fullmatch(r"[A-Za-z0-9_-]+", col) else '"' + col.replace('"', '\\"') + '"'
+            key = (
+                col if re.fullmatch(r"[A-Za-z0-9_-]+", col) else '"' + col.replace('"', '\\"') + '"'
+            )
             if col in mapped:
                 sig, unit = mapped[col]
                 out.append(f'{key} = {{ signal = "{sig}", unit = "{unit}" }}   {GUESS}')
             else:
-                out.append(f'# {key} = {{ signal = "?", unit = "?" }}   # no guess; kept as extra.{col}')
+                out.append(
+                    f'# {key} = {{ signal = "?", unit = "?" }}   # no guess; kept as extra.{col}'
+                )
         out.append("")
     return "\n".join(out)

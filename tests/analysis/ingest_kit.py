@@ -45,11 +45,17 @@ def state_lines(n: int = 1000, start_us: int = START_US, sep: str = ",") -> list
     ]
 
 
-def torque_lines(n: int = 250, start_ms: float = START_US / 1000 + 1.0, sep: str = ",") -> list[str]:
+def torque_lines(
+    n: int = 250, start_ms: float = START_US / 1000 + 1.0, sep: str = ","
+) -> list[str]:
     """Header and ``n`` torque rows at 100 Hz (file line of row i is i + 2)."""
     rows = [sep.join(["t_ms", "tq_l_cmd", "tq_l_req"])]
     for i in range(n):
-        rows.append(sep.join([f"{start_ms + i * TORQUE_PERIOD_MS:.1f}", f"{0.01 * i:.3f}", f"{0.012 * i:.3f}"]))
+        rows.append(
+            sep.join(
+                [f"{start_ms + i * TORQUE_PERIOD_MS:.1f}", f"{0.01 * i:.3f}", f"{0.012 * i:.3f}"]
+            )
+        )
     return rows
 
 
@@ -60,7 +66,13 @@ def write(path: Path, lines: list[str], newline: str = "\n", final_newline: bool
     return path
 
 
-def map_text(time_column: str = "stamp_us", time_unit: str = "us", time_origin: str = "epoch", files: str = "*_state.*", extra: str = "") -> str:
+def map_text(
+    time_column: str = "stamp_us",
+    time_unit: str = "us",
+    time_origin: str = "epoch",
+    files: str = "*_state.*",
+    extra: str = "",
+) -> str:
     """A one-source state map with the given time settings."""
     return f"""
 [[source]]

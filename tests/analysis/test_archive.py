@@ -100,7 +100,9 @@ def _same_profile(a, b):
     """Equal, thresholds to float rounding (they pass deg -> rad -> deg through pint)."""
     assert dataclasses.replace(a, thresholds=b.thresholds) == b
     # 1e-12 relative: two unit conversions in float64
-    assert dataclasses.asdict(a.thresholds) == pytest.approx(dataclasses.asdict(b.thresholds), rel=1e-12)
+    assert dataclasses.asdict(a.thresholds) == pytest.approx(
+        dataclasses.asdict(b.thresholds), rel=1e-12
+    )
 
 
 def test_load_profile_without_toml_text(tmp_path):
@@ -198,7 +200,9 @@ def test_load_frame_asof_never_bridges_a_gap(tmp_path):
 def test_load_frame_columns_and_window(tmp_path):
     archive = Archive(tmp_path / "data")
     out = _asof_run(tmp_path, archive)
-    frame = archive.load_frame(out.run_id, ["wheel_l.torque_cmd", "roll", "no_such"], t0=0.5, t1=0.6)
+    frame = archive.load_frame(
+        out.run_id, ["wheel_l.torque_cmd", "roll", "no_such"], t0=0.5, t1=0.6
+    )
     assert list(frame.columns) == ["t", "wheel_l.torque_cmd", "roll"]
     assert frame["t"].min() >= 0.5 and frame["t"].max() <= 0.6
     # window start: the earlier torque sample (0.453 s) lies before t0 and is still used
@@ -211,7 +215,13 @@ def test_results_round_trip_and_replace(tmp_path):
     out = _run(tmp_path, archive)
     assert archive.read_results(out.run_id) is None
     events = pd.DataFrame(
-        {"kind": ["slip"], "channel": ["wheel_l"], "start_s": [0.1], "end_s": [0.2], "details": [{"peak": 0.3}]}
+        {
+            "kind": ["slip"],
+            "channel": ["wheel_l"],
+            "start_s": [0.1],
+            "end_s": [0.2],
+            "details": [{"peak": 0.3}],
+        }
     )
     series = pd.DataFrame({"t": np.arange(10) * 0.1, "slip_ratio": np.linspace(0, 1, 10)})
     archive.write_results(out.run_id, events, series, {"kpi": np.float64(1.5), "nan": float("nan")})

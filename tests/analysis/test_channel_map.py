@@ -65,7 +65,11 @@ def test_time_factor_from_pint():
 @pytest.mark.parametrize(
     ("signal", "unit", "match"),
     [
-        ("wheel_l.torque", "deg", r"'deg' has the wrong dimension for 'wheel_l.torque', which expects 'N\*m'"),
+        (
+            "wheel_l.torque",
+            "deg",
+            r"'deg' has the wrong dimension for 'wheel_l.torque', which expects 'N\*m'",
+        ),
         ("roll", "rpm", r"wrong dimension for 'roll', which expects 'rad'"),
         ("yaw_rate", "Hz", r"'Hz' carries no angle but 'yaw_rate' expects 'rad/s'"),
         ("roll", "1", r"'1' carries no angle but 'roll' expects 'rad'"),
@@ -109,7 +113,13 @@ d = { signal = "roll", unit = "deg" }
     with pytest.raises(ChannelMapError) as info:
         parse_channel_map(text)
     msg = str(info.value)
-    for part in ("furlongs", "used twice", "kind must be one of", "time_unit must be one of", "mix time_origin"):
+    for part in (
+        "furlongs",
+        "used twice",
+        "kind must be one of",
+        "time_unit must be one of",
+        "mix time_origin",
+    ):
         assert part in msg
 
 
@@ -122,9 +132,20 @@ def test_profile_actuators_decide_valid_signals():
 
 def test_check_headers():
     cmap = load_channel_map(MAP)
-    state_cols = ["stamp_us", "roll_deg", "pitch_deg", "gyro_x_dps", "acc_z_g", "speed", "leg_l_mm", "whl_l_rpm"]
+    state_cols = [
+        "stamp_us",
+        "roll_deg",
+        "pitch_deg",
+        "gyro_x_dps",
+        "acc_z_g",
+        "speed",
+        "leg_l_mm",
+        "whl_l_rpm",
+    ]
     check_headers(cmap, {"a_state.csv": state_cols})
-    with pytest.raises(ChannelMapError, match=r"'speed' absent from the file \(columns found: stamp_us, roll_deg"):
+    with pytest.raises(
+        ChannelMapError, match=r"'speed' absent from the file \(columns found: stamp_us, roll_deg"
+    ):
         check_headers(cmap, {"a_state.csv": [c for c in state_cols if c != "speed"]})
     with pytest.raises(ChannelMapError, match=r"time column 't_ms' of source 'torque' is missing"):
         check_headers(cmap, {"a_torque.csv": ["time", "tq_l_cmd", "tq_l_req"]})
@@ -164,10 +185,22 @@ def test_template_guesses(column, signal, unit):
 
 
 def test_template_time_guess_and_marks(tmp_path):
-    assert guess_time(["stamp_us", "x"], {"stamp_us": 1_795_858_260_000_000}) == ("stamp_us", "us", "epoch")
+    assert guess_time(["stamp_us", "x"], {"stamp_us": 1_795_858_260_000_000}) == (
+        "stamp_us",
+        "us",
+        "epoch",
+    )
     assert guess_time(["time"], {"time": 12.5}) == ("time", "s", "boot")
     assert guess_time(["ts"], {"ts": "2026-11-28T09:31:00Z"}) == ("ts", "iso8601", "epoch")
-    text = template([FileHeader(tmp_path / "lap3_state.csv", ["stamp_us", "imu_roll_deg", "battery_v"], {"stamp_us": 1.7e15})])
+    text = template(
+        [
+            FileHeader(
+                tmp_path / "lap3_state.csv",
+                ["stamp_us", "imu_roll_deg", "battery_v"],
+                {"stamp_us": 1.7e15},
+            )
+        ]
+    )
     assert 'imu_roll_deg = { signal = "roll", unit = "deg" }   # GUESS: confirm' in text
     assert '# battery_v = { signal = "?"' in text
     assert 'files = "lap*_state.csv"' in text

@@ -5,7 +5,7 @@ from __future__ import annotations
 import gzip
 import json
 import math
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta, timezone
 
 import numpy as np
 import pandas as pd
@@ -276,7 +276,7 @@ def test_progress_reports_fractions(tmp_path):
 
 def test_time_zone_offsets_match_timedelta(tmp_path):
     # Same instant written in two zones must give t = 0 for both rows -> duplicate dropped.
-    base = datetime(2026, 11, 28, 9, 31, tzinfo=timezone.utc)
+    base = datetime(2026, 11, 28, 9, 31, tzinfo=UTC)
     other = base.astimezone(timezone(timedelta(hours=-3)))
     lines = ["time,roll_deg,speed", f"{base.isoformat()},1,2", f"{other.isoformat()},1,2"]
     lines += [f"{(base + timedelta(seconds=0.01 * i)).isoformat()},1,2" for i in range(1, 50)]

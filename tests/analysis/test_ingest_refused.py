@@ -35,35 +35,70 @@ def test_missing_time_column(tmp_path, archive):
     lines = state_lines(50)
     lines[1] = lines[1].replace("stamp_us", "stamp")
     path = write(tmp_path / "a_state.csv", lines)
-    _refused(archive, [path], MAP, PROFILE, ChannelMapError, r"time column 'stamp_us'.*columns found: stamp, roll_deg")
+    _refused(
+        archive,
+        [path],
+        MAP,
+        PROFILE,
+        ChannelMapError,
+        r"time column 'stamp_us'.*columns found: stamp, roll_deg",
+    )
 
 
 def test_map_names_absent_column(tmp_path, archive):
     lines = state_lines(50)
     lines[1] = lines[1].replace("whl_l_rpm", "wheel_rpm")
     path = write(tmp_path / "a_state.csv", lines)
-    _refused(archive, [path], MAP, PROFILE, ChannelMapError, r"'whl_l_rpm' absent from the file \(columns found: .*wheel_rpm")
+    _refused(
+        archive,
+        [path],
+        MAP,
+        PROFILE,
+        ChannelMapError,
+        r"'whl_l_rpm' absent from the file \(columns found: .*wheel_rpm",
+    )
 
 
 def test_unknown_unit(tmp_path, archive):
     cmap = tmp_path / "m.toml"
     cmap.write_text(map_text(extra='gyro_x_dps = { signal = "roll_rate", unit = "degs_per_sec" }'))
     path = write(tmp_path / "a_state.csv", state_lines(50))
-    _refused(archive, [path], cmap, PROFILE, ChannelMapError, r"'degs_per_sec' is unknown to the units library")
+    _refused(
+        archive,
+        [path],
+        cmap,
+        PROFILE,
+        ChannelMapError,
+        r"'degs_per_sec' is unknown to the units library",
+    )
 
 
 def test_wrong_dimension_names_expected_unit(tmp_path, archive):
     cmap = tmp_path / "m.toml"
     cmap.write_text(map_text(extra='whl_l_rpm = { signal = "wheel_l.torque", unit = "deg" }'))
     path = write(tmp_path / "a_state.csv", state_lines(50))
-    _refused(archive, [path], cmap, PROFILE, ChannelMapError, r"'deg' has the wrong dimension for 'wheel_l.torque', which expects 'N\*m'")
+    _refused(
+        archive,
+        [path],
+        cmap,
+        PROFILE,
+        ChannelMapError,
+        r"'deg' has the wrong dimension for 'wheel_l.torque', which expects 'N\*m'",
+    )
 
 
 def test_unknown_signal_lists_valid_names(tmp_path, archive):
     cmap = tmp_path / "m.toml"
     cmap.write_text(map_text(extra='whl_l_rpm = { signal = "wheel_left.vel", unit = "rpm" }'))
     path = write(tmp_path / "a_state.csv", state_lines(50))
-    _refused(archive, [path], cmap, PROFILE, ChannelMapError, r"unknown signal 'wheel_left.vel'. Valid signals: roll, pitch.*wheel_l.vel")
+    _refused(
+        archive,
+        [path],
+        cmap,
+        PROFILE,
+        ChannelMapError,
+        r"unknown signal 'wheel_left.vel'. Valid signals: roll, pitch.*wheel_l.vel",
+    )
 
 
 def test_profile_missing_field(tmp_path, archive):
@@ -97,12 +132,26 @@ def test_too_many_bad_lines_named(tmp_path, archive):
     lines[30] = lines[30][:15]
     path = write(tmp_path / "a_state.csv", lines)
     # 3 bad lines of 200 = 1.5% > 1%
-    _refused(archive, [path], MAP, PROFILE, IngestError, r"3 of 200 lines do not parse \(1\.5%.*line 11: expected 10 fields, found 1.*line 21: 'abc' in column 'pitch_deg'.*line 31")
+    _refused(
+        archive,
+        [path],
+        MAP,
+        PROFILE,
+        IngestError,
+        r"3 of 200 lines do not parse \(1\.5%.*line 11: expected 10 fields, found 1.*line 21: 'abc' in column 'pitch_deg'.*line 31",
+    )
 
 
 def test_file_matching_no_source(tmp_path, archive):
     path = write(tmp_path / "a_imu.csv", state_lines(50))
-    _refused(archive, [path], MAP, PROFILE, ChannelMapError, r"'a_imu.csv' matches no source.*state: '\*_state\.\*'")
+    _refused(
+        archive,
+        [path],
+        MAP,
+        PROFILE,
+        ChannelMapError,
+        r"'a_imu.csv' matches no source.*state: '\*_state\.\*'",
+    )
 
 
 def test_file_matching_two_sources(tmp_path, archive):

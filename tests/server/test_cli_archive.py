@@ -73,7 +73,21 @@ def test_runs_and_show(tmp_path, capsys):
 
 def test_data_dir_from_environment(tmp_path, capsys):
     path = _state(tmp_path)
-    assert cli.main(["ingest", str(path), "--map", str(MAP), "--profile", str(PROFILE), "--no-analyse", "--quiet"]) == 0
+    assert (
+        cli.main(
+            [
+                "ingest",
+                str(path),
+                "--map",
+                str(MAP),
+                "--profile",
+                str(PROFILE),
+                "--no-analyse",
+                "--quiet",
+            ]
+        )
+        == 0
+    )
     run_id = capsys.readouterr().out.strip()
     assert (tmp_path / "env-data" / "runs" / run_id / "meta.json").is_file()
 
@@ -82,7 +96,18 @@ def test_errors_exit_2_with_message(tmp_path, capsys):
     bad_map = tmp_path / "bad.toml"
     bad_map.write_text(MAP.read_text().replace('unit = "rpm"', 'unit = "N*m"'))
     path = _state(tmp_path)
-    code = cli.main(["ingest", str(path), "--map", str(bad_map), "--profile", str(PROFILE), "--data", str(tmp_path / "d")])
+    code = cli.main(
+        [
+            "ingest",
+            str(path),
+            "--map",
+            str(bad_map),
+            "--profile",
+            str(PROFILE),
+            "--data",
+            str(tmp_path / "d"),
+        ]
+    )
     assert code == 2
     err = capsys.readouterr().err
     assert "wrong dimension for 'wheel_l.vel', which expects 'rad/s'" in err
@@ -90,7 +115,18 @@ def test_errors_exit_2_with_message(tmp_path, capsys):
     assert cli.main(["show", "nope", "--data", str(tmp_path / "d")]) == 2
     assert "No run 'nope'" in capsys.readouterr().err
     garbled = _state(tmp_path, "lap2_state.csv", n=50, garble=10)
-    code = cli.main(["ingest", str(garbled), "--map", str(MAP), "--profile", str(PROFILE), "--data", str(tmp_path / "d")])
+    code = cli.main(
+        [
+            "ingest",
+            str(garbled),
+            "--map",
+            str(MAP),
+            "--profile",
+            str(PROFILE),
+            "--data",
+            str(tmp_path / "d"),
+        ]
+    )
     assert code == 2
     assert "line 12: expected 8 fields, found 1" in capsys.readouterr().err
 
