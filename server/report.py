@@ -111,7 +111,7 @@ def _figure(signal: dict[str, str], view: dict[str, Any]) -> go.Figure:
             continue
         v = tr["version"]
         fig.add_trace(
-            go.Scattergl(
+            go.Scatter(
                 x=data["x"], y=data["y"], mode="lines",
                 name=html.escape(f"{v}: {tr['name']}"), legendgroup=v, showlegend=True,
                 line={"color": RUN_COLOURS[v], "width": 1.3, "dash": RUN_DASH[v]},

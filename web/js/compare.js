@@ -152,7 +152,7 @@ function charts(data) {
       const s = tr.signals[sig.name];
       if (!s) continue;
       traces.push({
-        type: "scattergl",
+        type: "scatter",
         mode: "lines",
         x: s.x,
         y: s.y,
