@@ -364,7 +364,9 @@ def ingest_files(
             t_of[sname] = w.close()
         say(0.9, "checking time order")
         t_min = min((w.t_min for w in writers.values()), default=0.0)
-        shift = -t_min if np.isfinite(t_min) and t_min < 0 else 0.0
+        # t must start at 0: the origin from the first rows can miss an earlier late row,
+        # or be a row later skipped as bad; then every stream is shifted (rare).
+        shift = -t_min if np.isfinite(t_min) and t_min != 0.0 else 0.0
         report: dict[str, Any] = {}
         for sname, w in writers.items():
             exact, conflicting = w.exact, w.conflicting

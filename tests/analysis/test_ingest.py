@@ -283,3 +283,12 @@ def test_time_zone_offsets_match_timedelta(tmp_path):
     cmap = _map(tmp_path, time_column="time", time_unit="iso8601")
     archive, out = _ingest(tmp_path, lines, cmap=cmap)
     assert out.report["state"]["duplicates_dropped"] == 1
+
+
+def test_skipped_first_row_does_not_set_the_origin(tmp_path):
+    lines = state_lines(300)
+    lines[2] = lines[2].replace(lines[2].split(",")[1], "ERR", 1)  # the earliest row is bad
+    archive, out = _ingest(tmp_path, lines)
+    assert _stream(archive, out.run_id)["t"].iloc[0] == 0.0
+    # the second row, 2.5 ms after 09:31:00, is the run's first sample
+    assert archive.get_meta(out.run_id)["date"] == "2026-11-28T09:31:00.002500Z"
