@@ -39,7 +39,9 @@ PLANT_SECONDS = 30.0
 SPIKE_INDEX = 1234
 SPIKE_NM = 2.875
 HOLE = (2000, 2100)  # rows removed: t = 20.00 .. 20.99 s
-DEMO_SECONDS = 40.0
+#: Demo run length: None drives the whole gullhaven-loop (about 90 s, 200 Hz state log),
+#: which holds saturation, slip and roll-tracking events.
+DEMO_SECONDS: float | None = None
 
 PLANT_UNITS = {
     "roll": "rad",
@@ -66,7 +68,7 @@ class RunInputs:
     profile_path: Path
 
 
-def write_demo_inputs(folder: Path, duration_s: float = DEMO_SECONDS) -> RunInputs:
+def write_demo_inputs(folder: Path, duration_s: float | None = DEMO_SECONDS) -> RunInputs:
     """Simulate a short demo run and write it as the demo's foreign log files."""
     from analysis import demo, demo_course
 

@@ -130,7 +130,7 @@ def test_series_of_all_drawn_signals_respects_the_budget(
     body = response.json()
     assert set(body["signals"]) == set(signals)
     for name, s in body["signals"].items():
-        assert s["downsampled"], name  # 40 s at the demo rate is far more than 300 samples
+        assert s["downsampled"], name  # 90 s at 200 or 100 Hz is far more than 300 samples
         assert len(s["t"]) == len(s["y"])
         gaps = sum(v is None for v in s["y"])
         assert len(s["t"]) - gaps <= 300, name

@@ -26,7 +26,7 @@ function fillChoices(select, values) {
 }
 
 function row(run) {
-  const link = el("a", { href: `/run.html?id=${encodeURIComponent(run.run_id)}` }, run.name || run.run_id);
+  const link = el("a", { className: "run-open", href: `/run.html?id=${encodeURIComponent(run.run_id)}` }, run.name || run.run_id);
   const tags = el("div", { className: "tags" });
   for (const tag of run.tags || []) tags.append(el("span", { className: "tag" }, tag));
   return el(
@@ -34,7 +34,7 @@ function row(run) {
     { dataset: { runId: run.run_id } },
     el("td", { className: "run-name" }, link, el("div", { className: "run-id" }, run.run_id), tags,
       // Compare page: this run as version A; the page offers runs of the same course first.
-      el("a", { className: "compare-link", style: { fontSize: "0.8rem" }, href: `/compare.html?a=${encodeURIComponent(run.run_id)}` }, "Compare with…")),
+      el("a", { className: "compare-link", href: `/compare.html?a=${encodeURIComponent(run.run_id)}` }, "Compare with…")),
     el("td", {}, run.course || "–"),
     el("td", {}, run.controller || "–"),
     el("td", {}, run.date ? run.date.replace("T", " ").replace("+00:00", "").replace("Z", "") : "–"),

@@ -146,7 +146,7 @@ export class Timelines {
       hovermode: "x unified",
       dragmode: "zoom",
       xaxis: {
-        range: range || undefined,
+        range: range ? [...range] : undefined, // a copy: plotly changes its range in place
         autorange: range ? false : true,
         showgrid: true,
         gridcolor: "#ECEEEA",

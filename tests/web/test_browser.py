@@ -1,0 +1,215 @@
+"""The dashboard in headless Chromium: upload a demo run, find it, open it, zoom to events.
+
+Covers only what the browser does (the API has its own tests): the upload form
+and progress, the runs table, every timeline drawn with traces and event
+shapes, an event click zooming every chart, the keys stepping through events,
+and user text shown as text.
+"""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+import pytest
+from dashboard_fixtures import RunInputs
+from live_server import LiveServer
+
+pytestmark = pytest.mark.browser
+
+TIMELINES = ["torque", "wheels", "roll", "tip", "balance"]
+
+# Every chart's x range, as [[t0, t1], ...].
+RANGES_JS = "() => [...document.querySelectorAll('.chart')].map(d => d.layout.xaxis.range)"
+
+
+def _upload_through_the_page(page: Any, live: LiveServer, inputs: RunInputs, name: str) -> str:
+    page.goto(f"{live.url}/upload.html")
+    page.set_input_files("#logs", [str(p) for p in inputs.logs])
+    page.set_input_files("#map-file", str(inputs.map_path))
+    page.set_input_files("#profile-file", str(inputs.profile_path))
+    page.fill("input[name=name]", name)
+    page.fill("input[name=course]", "gullhaven-loop")
+    page.fill("input[name=tags]", "browser, demo")
+    page.click("#submit")
+    link = page.wait_for_selector("#run-link", timeout=120_000)
+    assert page.locator("#error").is_hidden()
+    assert page.eval_on_selector("#job-bar", "b => b.value") == 1
+    href = link.get_attribute("href")
+    assert href and href.startswith("/run.html?id=")
+    return href.split("=", 1)[1]
+
+
+@pytest.fixture(scope="module")
+def uploaded(browser: Any, live: LiveServer, web_demo_inputs: RunInputs) -> str:
+    context = browser.new_context()
+    page = context.new_page()
+    try:
+        return _upload_through_the_page(page, live, web_demo_inputs, "Browser upload")
+    finally:
+        context.close()
+
+
+def _open_run(page: Any, live: LiveServer, run_id: str) -> None:
+    page.goto(f"{live.url}/run.html?id={run_id}")
+    page.wait_for_selector("body[data-charts-ready='1']", timeout=60_000)
+
+
+def _wait_for_range_around(page: Any, start: float, end: float) -> list[list[float]]:
+    page.wait_for_function(
+        """([s, e]) => {
+            const charts = [...document.querySelectorAll('.chart')];
+            return charts.length > 0 && charts.every(d => {
+                const r = d.layout.xaxis.range;
+                return r && r[0] <= s && r[1] >= e && (r[1] - r[0]) < 60;
+            });
+        }""",
+        arg=[start, end],
+        timeout=15_000,
+    )
+    ranges: list[list[float]] = page.evaluate(RANGES_JS)
+    return ranges
+
+
+def test_runs_page_lists_the_uploaded_run(
+    page: Any, live: LiveServer, uploaded: str, artifacts
+) -> None:
+    page.goto(f"{live.url}/")
+    page.wait_for_selector("body[data-loaded='1']")
+    row = page.locator(f"tr[data-run-id='{uploaded}']")
+    assert row.count() == 1
+    assert row.locator("a.run-open").inner_text() == "Browser upload"
+    assert row.locator(".badge").count() == 4
+    assert "gullhaven-loop" in row.inner_text()
+    assert "not a safety system" in page.locator("footer").inner_text()
+    page.screenshot(path=str(artifacts / "runs-page.png"), full_page=True)
+    row.locator("a.run-open").click()
+    page.wait_for_selector("body[data-charts-ready='1']", timeout=60_000)
+    assert f"id={uploaded}" in page.url
+    assert page.page_errors == []
+
+
+def test_run_page_draws_every_timeline_and_zooms_to_events(
+    page: Any, live: LiveServer, uploaded: str, artifacts
+) -> None:
+    series_requests: list[str] = []
+    page.on("request", lambda r: series_requests.append(r.url) if "/series?" in r.url else None)
+    _open_run(page, live, uploaded)
+    analysis = page.request.get(f"{live.url}/api/runs/{uploaded}").json()["analysis"]
+    plan = page.request.get(f"{live.url}/api/runs/{uploaded}/charts").json()["panels"]
+    kinds_present = {e["kind"] for e in analysis["events"]}
+
+    charts = page.evaluate(
+        """() => [...document.querySelectorAll('.chart')].map(d => ({
+            id: d.id,
+            traces: d.data.length,
+            points: d.data.reduce((n, t) => n + t.x.length, 0),
+            drawnLines: d.querySelectorAll('.scatterlayer .trace path.js-line').length,
+            eventShapes: (d.layout.shapes || []).filter(s => s.type === 'rect').length,
+            drawnShapes: d.querySelectorAll('.shapelayer path').length,
+        }))"""
+    )
+    assert [c["id"] for c in charts] == [f"chart-{p}" for p in TIMELINES]
+    with_shapes = 0
+    for chart, panel in zip(charts, plan, strict=True):
+        assert chart["traces"] > 0 and chart["points"] > 0, chart
+        assert chart["drawnLines"] > 0, chart
+        if kinds_present & set(panel["event_kinds"]):
+            assert chart["eventShapes"] > 0, chart
+            assert chart["drawnShapes"] >= chart["eventShapes"], chart
+            with_shapes += 1
+    assert with_shapes >= 3, f"demo events cover too few timelines: {sorted(kinds_present)}"
+
+    # Ingest report and detector status are on the page.
+    assert page.locator("#ingest-report dl").count() > 0
+    assert page.locator("#skipped").inner_text().strip()
+    rows = page.locator("#events tr.event-row")
+    assert rows.count() == len(analysis["events"])
+
+    # Clicking an event zooms every chart to it, with padding on both sides.
+    first = analysis["events"][0]
+    rows.nth(0).click()
+    ranges = _wait_for_range_around(page, first["start_s"], first["end_s"])
+    assert all(r == ranges[0] for r in ranges), ranges  # one synchronised time axis
+    assert ranges[0][0] < first["start_s"] or ranges[0][0] == pytest.approx(0, abs=1e-6)
+    assert ranges[0][1] > first["end_s"]
+    # The zoom asked the server for that window again.
+    page.wait_for_function("() => document.body.dataset.window.split(',')[0] !== '0'")
+    assert any("t0=" in url for url in series_requests)
+
+    # '.' steps to the next event, ',' back.
+    page.locator("body").press(".")
+    second = analysis["events"][1]
+    _wait_for_range_around(page, second["start_s"], second["end_s"])
+    assert page.locator("#events tr.event-row.active").get_attribute("data-index") == "1"
+    page.locator("body").press(",")
+    _wait_for_range_around(page, first["start_s"], first["end_s"])
+    page.screenshot(path=str(artifacts / "run-page.png"), full_page=True)
+    assert page.page_errors == []
+
+
+def test_zooming_one_chart_moves_all_of_them(page: Any, live: LiveServer, uploaded: str) -> None:
+    _open_run(page, live, uploaded)
+    page.evaluate(
+        "() => Plotly.relayout(document.getElementById('chart-tip'), "
+        "{'xaxis.range[0]': 10, 'xaxis.range[1]': 12})"
+    )
+    page.wait_for_function(
+        """() => [...document.querySelectorAll('.chart')].every(d => {
+            const r = d.layout.xaxis.range; return Math.abs(r[0] - 10) < 1e-6 && Math.abs(r[1] - 12) < 1e-6;
+        })"""
+    )
+    # A 2 s window of the 200 Hz demo state log fits the budget: full resolution comes back.
+    page.wait_for_function("() => document.body.dataset.window.startsWith('9.')")
+    points = page.evaluate(
+        "() => document.getElementById('chart-roll').data[0].x.filter(t => t >= 10 && t <= 12).length"
+    )
+    # 200 Hz over 2 s, both ends inclusive: 401 samples (demo state rate; common practice).
+    assert points == 401
+
+
+def test_user_text_is_shown_as_text(page: Any, live: LiveServer, uploaded: str) -> None:
+    odd = '<img src=x onerror="window.__injected=1">Loop & <b>bold</b>'
+    response = page.request.patch(
+        f"{live.url}/api/runs/{uploaded}",
+        data=json.dumps(
+            {"name": odd, "notes": "<script>window.__injected=2</script>", "tags": ["<i>t</i>"]}
+        ),
+        headers={"Content-Type": "application/json"},
+    )
+    assert response.status == 200
+    _open_run(page, live, uploaded)
+    assert page.locator("#run-name").text_content() == odd
+    assert page.locator("#run-name img, #run-name b, #run-notes script, #run-tags i").count() == 0
+    assert page.evaluate("() => window.__injected") is None
+    page.goto(f"{live.url}/")
+    page.wait_for_selector("body[data-loaded='1']")
+    assert page.locator(f"tr[data-run-id='{uploaded}'] a.run-open").text_content() == odd
+    assert page.evaluate("() => window.__injected") is None
+    page.request.patch(
+        f"{live.url}/api/runs/{uploaded}",
+        data=json.dumps({"name": "Browser upload", "notes": "", "tags": ["browser", "demo"]}),
+        headers={"Content-Type": "application/json"},
+    )
+
+
+def test_upload_error_is_shown_in_plain_words(
+    page: Any, live: LiveServer, web_demo_inputs: RunInputs, tmp_path
+) -> None:
+    bad_map = tmp_path / "bad-map.toml"
+    bad_map.write_text(
+        web_demo_inputs.map_path.read_text().replace(
+            'time_column = "stamp_us"', 'time_column = "when"'
+        ),
+        encoding="utf-8",
+    )
+    page.goto(f"{live.url}/upload.html")
+    page.set_input_files("#logs", [str(p) for p in web_demo_inputs.logs])
+    page.set_input_files("#map-file", str(bad_map))
+    page.set_input_files("#profile-file", str(web_demo_inputs.profile_path))
+    page.click("#submit")
+    page.wait_for_selector("#error:not([hidden])", timeout=60_000)
+    text = page.locator("#error").inner_text()
+    assert "ChannelMapError" in text
+    assert "when" in text
+    assert "Traceback" not in text
