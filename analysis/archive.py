@@ -43,6 +43,7 @@ from analysis.archive_files import (
     write_frame,
     write_json,
 )
+from analysis.archive_fleet import delete_fleet_rows
 from analysis.channel_map import parse_channel_map
 from analysis.errors import ArchiveError, ChannelMapError, ProfileError, RunNotFoundError
 from analysis.profile import (
@@ -318,6 +319,7 @@ class Archive:
         trash = self.root / "staging" / f"{os.getpid()}-del-{secrets.token_hex(4)}"
         os.rename(path, trash)
         self._delete_row(run_id)
+        delete_fleet_rows(self.root, run_id)
         shutil.rmtree(trash, ignore_errors=True)
 
     def run_files(self, run_id: str) -> list[Path]:

@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from analysis import __version__, catalogue
+from analysis.archive_fleet import write_fleet_rows
 from analysis.balance import detect_balance
 from analysis.events import DetectorResult, Event, events_frame
 from analysis.limits import headline_kpis
@@ -220,9 +221,9 @@ def analyse_run(
     profile = archive.load_profile(run_id)
     frame = archive.load_frame(run_id)
     result = analyse_frame(frame, profile, thresholds, progress)
-    archive.write_results(
-        run_id, events_frame(result.events), result.series, result.summary(run_id)
-    )
+    events = events_frame(result.events)
+    archive.write_results(run_id, events, result.series, result.summary(run_id))
+    write_fleet_rows(archive.root, run_id, archive.get_meta(run_id), events, result.kpis)
     return result
 
 

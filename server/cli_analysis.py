@@ -1,4 +1,4 @@
-"""``outrigger analyse`` and ``outrigger check``: run the detectors, gate on limits."""
+"""``outrigger analyse``, ``analyse-all``, ``fleet`` and ``check``: run the detectors, query, gate."""
 
 from __future__ import annotations
 
@@ -8,6 +8,9 @@ import sys
 from typing import Any
 
 from analysis.archive import Archive
+from analysis.archive_fleet import read_fleet
+from analysis.catalogue import EVENT_KINDS
+from analysis.errors import ThresholdsError
 from analysis.limits import check_limits, load_limits
 from analysis.pipeline import analyse_run, load_analysis
 from analysis.profile import load_thresholds
@@ -26,6 +29,32 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p.add_argument("--json", action="store_true", help="print the full result as JSON")
     add_data_option(p)
     p.set_defaults(func=_analyse)
+
+    a = sub.add_parser(
+        "analyse-all",
+        help="re-analyse every stored run (e.g. after a detector change)",
+        description="Re-analyse every stored run matching the filters, one after another.",
+    )
+    a.add_argument("--course", help="only runs of this course")
+    a.add_argument("--controller", help="only runs of this controller version")
+    add_data_option(a)
+    a.set_defaults(func=_analyse_all)
+
+    f = sub.add_parser(
+        "fleet",
+        help="events or KPIs of every analysed run, as one table",
+        description=(
+            "Print the fleet table of events or KPIs across all analysed runs "
+            "(the partitioned Parquet dataset under <archive>/fleet/)."
+        ),
+    )
+    f.add_argument("table", choices=["events", "kpis"], help="which table")
+    f.add_argument("--kind", help="events: only this event kind")
+    f.add_argument("--course", help="only runs of this course")
+    f.add_argument("--controller", help="only runs of this controller version")
+    f.add_argument("--csv", action="store_true", help="print CSV instead of an aligned table")
+    add_data_option(f)
+    f.set_defaults(func=_fleet)
 
     c = sub.add_parser(
         "check",
@@ -68,6 +97,43 @@ def _analyse(args: argparse.Namespace) -> int:
         print()
     else:
         _print_summary(result)
+    return 0
+
+
+def _analyse_all(args: argparse.Namespace) -> int:
+    archive = Archive(data_dir(args))
+    runs = archive.list_runs(course=args.course, controller=args.controller)
+    if not runs:
+        print("no stored run matches; nothing to analyse")
+        return 0
+    for i, row in enumerate(runs, 1):
+        result = analyse_run(archive, row["run_id"])
+        print(f"[{i}/{len(runs)}] {row['run_id']}: {len(result.events)} events")
+    return 0
+
+
+def _fleet(args: argparse.Namespace) -> int:
+    archive = Archive(data_dir(args))
+    table = read_fleet(archive.root, args.table)
+    if table.empty:
+        print("no analysed run in this archive yet (run `outrigger analyse RUN`)")
+        return 0
+    if args.kind:
+        if args.table != "events":
+            raise ThresholdsError("--kind filters the events table; drop it for kpis.")
+        if args.kind not in EVENT_KINDS:
+            raise ThresholdsError(
+                f"Unknown event kind {args.kind!r}; use one of: {', '.join(EVENT_KINDS)}."
+            )
+        table = table[table["kind"] == args.kind]
+    for col in ("course", "controller"):
+        wanted = getattr(args, col)
+        if wanted:
+            table = table[table[col] == wanted]
+    if args.csv:
+        table.to_csv(sys.stdout, index=False)
+    else:
+        print(table.to_string(index=False, max_colwidth=40))
     return 0
 
 

@@ -77,3 +77,15 @@ def test_analyse_unknown_run_exits_2(archive_with_run, capsys):
     root, _ = archive_with_run
     assert main(["analyse", "no-such-run", "--data", str(root)]) == 2
     assert "no-such-run" in capsys.readouterr().err
+
+
+def test_fleet_tables_follow_analysis_and_cli_filters(archive_with_run, capsys):
+    root, run_id = archive_with_run
+    assert main(["analyse-all", "--data", str(root)]) == 0
+    assert run_id in capsys.readouterr().out
+    assert main(["fleet", "events", "--kind", "saturation", "--csv", "--data", str(root)]) == 0
+    lines = capsys.readouterr().out.strip().splitlines()
+    assert lines[0].startswith("kind,") and len(lines) > 1
+    assert all(line.startswith("saturation,") for line in lines[1:])
+    assert main(["fleet", "events", "--kind", "wobble", "--data", str(root)]) == 2
+    assert "Unknown event kind" in capsys.readouterr().err
