@@ -51,3 +51,18 @@ def test_write_read_replace_delete(tmp_path):
 
 def test_empty_archive_reads_empty(tmp_path):
     assert read_fleet(tmp_path, "kpis").empty
+
+
+def test_duckdb_queries_the_fleet_with_sql(tmp_path):
+    # DuckDB as the reference SQL engine named in DESIGN.md ("Scale").
+    import duckdb
+
+    write_fleet_rows(tmp_path, "run-a", META_A, _events(2), KPIS)
+    write_fleet_rows(tmp_path, "run-b", META_B, _events(3), KPIS)
+    pattern = str(tmp_path / "fleet" / "events" / "*" / "*.parquet")
+    rows = duckdb.sql(
+        "SELECT controller, count(*) AS n FROM read_parquet(?, hive_partitioning = true) "
+        "WHERE kind = 'slip' GROUP BY controller ORDER BY controller",
+        params=[pattern],
+    ).fetchall()
+    assert rows == [("lean-ctl 1.4", 2), ("lean-ctl 2.0", 3)]
