@@ -81,9 +81,8 @@ def cmd_serve(args: argparse.Namespace) -> int:
 
 def cmd_demo(args: argparse.Namespace) -> int:
     """Load the bundled demo runs into the archive (once), then serve."""
-    from analysis.ingest_demo import load_demo_runs
-
     from analysis.archive import Archive
+    from analysis.ingest_demo import load_demo_runs
 
     data = data_dir(args)
     archive = Archive(Path(data))

@@ -6,10 +6,11 @@ series is reduced on the server to a point budget with MinMaxLTTB [1] from the
 ``minmax_ratio * n_out`` buckets, then runs Largest-Triangle-Three-Buckets on
 them, so a single-sample spike (a saturation peak, a slip burst) survives.
 
-Gaps stay gaps: where two consecutive valid samples (NaN samples dropped) lie
-further apart than ``GAP_FACTOR`` median sample periods -- the rule ingestion
-and the detectors use for data gaps -- a null point is inserted between them so
-that the chart breaks the line instead of drawing across missing data.
+Gaps stay gaps: where two consecutive samples lie further apart than
+``GAP_FACTOR`` median sample periods -- the rule ingestion and the detectors use
+for data gaps -- or a run of NaN samples spans that long, a null point is
+inserted so that the chart breaks the line instead of drawing across missing
+data.
 
 This module is the one place in ``server/`` that does arithmetic on signals
 (DESIGN.md allows it: it decides what to draw, it computes no physics).
@@ -36,6 +37,8 @@ MIN_POINTS = 10
 MAX_POINTS = 20_000
 #: MinMaxLTTB preselection ratio; 4 is the library default and the paper's choice.
 MINMAX_RATIO = 4
+#: Series at least this long are downsampled on all cores.
+PARALLEL_FROM = 200_000
 
 _DOWNSAMPLER = MinMaxLTTBDownsampler()
 
@@ -62,8 +65,47 @@ class Reduced:
     downsampled: bool
 
 
+@dataclass(frozen=True)
+class TimeBase:
+    """Data gaps of a time axis, found once and shared by every series on it.
+
+    Attributes
+    ----------
+    gaps : ndarray of int
+        Positions ``i`` where the step ``t[i] -> t[i+1]`` is a data gap.
+    median_dt : float
+        Median sample step; NaN when fewer than 3 samples. [s]
+    """
+
+    gaps: np.ndarray
+    median_dt: float
+
+
+def time_base(t: np.ndarray) -> TimeBase:
+    """Find the data gaps of a time axis.
+
+    Parameters
+    ----------
+    t : ndarray
+        Sample times, increasing. [s]
+
+    Returns
+    -------
+    TimeBase
+        A step is a gap when longer than ``GAP_FACTOR`` times the median step
+        (common practice, no source; the same rule as ``analysis.events``).
+    """
+    if t.size < 3:
+        return TimeBase(np.empty(0, dtype=np.int64), float("nan"))
+    dt = np.diff(t)
+    median = float(np.median(dt))
+    if not np.isfinite(median) or median <= 0:
+        return TimeBase(np.empty(0, dtype=np.int64), median)
+    return TimeBase(np.flatnonzero(dt > GAP_FACTOR * median), median)
+
+
 def select_indices(t: np.ndarray, y: np.ndarray, n_out: int) -> np.ndarray:
-    """Indices of the valid samples to keep, at most about ``n_out`` of them.
+    """Indices of the valid samples to keep, at most ``n_out`` of them.
 
     Parameters
     ----------
@@ -79,42 +121,40 @@ def select_indices(t: np.ndarray, y: np.ndarray, n_out: int) -> np.ndarray:
     ndarray of int
         Sorted indices into ``t``/``y``. All valid indices when they fit the budget.
     """
-    valid = np.flatnonzero(~np.isnan(y))
-    if valid.size <= n_out:
-        return valid
+    nan = np.isnan(y)
+    n_valid = y.size - int(np.count_nonzero(nan))
+    if n_valid <= n_out:
+        return np.flatnonzero(~nan)
+    # MinMaxLTTB skips NaN values itself; only the forced first/last point may be NaN.
     picked = _DOWNSAMPLER.downsample(
-        np.ascontiguousarray(t[valid], dtype=np.float64),
-        np.ascontiguousarray(y[valid], dtype=np.float64),
+        np.ascontiguousarray(t, dtype=np.float64),
+        np.ascontiguousarray(y, dtype=np.float64),
         n_out=n_out,
         minmax_ratio=MINMAX_RATIO,
+        parallel=y.size >= PARALLEL_FROM,
     )
-    return valid[np.sort(np.asarray(picked, dtype=np.int64))]
+    picked = np.sort(np.asarray(picked, dtype=np.int64))
+    return picked[~nan[picked]]
 
 
-def gap_starts(t_valid: np.ndarray) -> np.ndarray:
-    """Positions ``i`` where the step from ``t_valid[i]`` to ``t_valid[i+1]`` is a data gap.
-
-    Parameters
-    ----------
-    t_valid : ndarray
-        Times of the valid samples, increasing. [s]
-
-    Returns
-    -------
-    ndarray of int
-        A step is a gap when longer than ``GAP_FACTOR`` times the median step
-        (common practice, no source; the same rule as ``analysis.events``).
-    """
-    if t_valid.size < 3:
-        return np.empty(0, dtype=np.int64)
-    dt = np.diff(t_valid)
-    median = float(np.median(dt))
-    if not np.isfinite(median) or median <= 0:
-        return np.empty(0, dtype=np.int64)
-    return np.flatnonzero(dt > GAP_FACTOR * median)
+def _nan_run_breaks(t: np.ndarray, nan: np.ndarray, median_dt: float) -> np.ndarray:
+    """Times at which to break the line inside interior NaN runs that span a data gap."""
+    edges = np.diff(nan.astype(np.int8))
+    starts = np.flatnonzero(edges == 1) + 1  # first NaN of a run
+    ends = np.flatnonzero(edges == -1) + 1  # first valid sample after a run
+    if nan[0]:
+        ends = ends[1:]  # a leading run connects nothing
+    starts = starts[: ends.size]  # a trailing run connects nothing
+    if not starts.size or not np.isfinite(median_dt):
+        return np.empty(0)
+    before, after = t[starts - 1], t[ends]
+    long = (after - before) > GAP_FACTOR * median_dt
+    return 0.5 * (before[long] + after[long])
 
 
-def reduce_series(t: np.ndarray, y: np.ndarray, n_out: int) -> Reduced:
+def reduce_series(
+    t: np.ndarray, y: np.ndarray, n_out: int, base: TimeBase | None = None
+) -> Reduced:
     """Downsample one series to a point budget, keeping extremes and gaps.
 
     Parameters
@@ -125,27 +165,30 @@ def reduce_series(t: np.ndarray, y: np.ndarray, n_out: int) -> Reduced:
         Values (bool is drawn as 0/1); NaN marks missing samples. [any]
     n_out : int
         Point budget, between :data:`MIN_POINTS` and :data:`MAX_POINTS`. [-]
+    base : TimeBase, optional
+        ``time_base(t)`` when already known (several series on one time axis).
 
     Returns
     -------
     Reduced
         Full resolution when the window holds no more valid samples than ``n_out``.
+        A null point breaks the line in each gap of the time stamps and in each
+        run of NaN samples that spans a gap.
     """
     t = np.asarray(t, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64)
-    valid_mask = ~np.isnan(y)
-    n_valid = int(valid_mask.sum())
+    base = base if base is not None else time_base(t)
     keep = select_indices(t, y, n_out)
-    # Gaps are judged on all valid samples, not the reduced ones, whose spacing is coarse.
-    t_valid = t[valid_mask]
-    gaps = gap_starts(t_valid)
+    nan = np.isnan(y)
+    n_valid = y.size - int(np.count_nonzero(nan))
+    breaks = 0.5 * (t[base.gaps] + t[base.gaps + 1])
+    if n_valid < y.size:
+        breaks = np.concatenate([breaks, _nan_run_breaks(t, nan, base.median_dt)])
     t_out = t[keep]
     y_out = y[keep]
-    if gaps.size:
-        # One null point in the middle of each gap: the line breaks there.
-        t_gap = 0.5 * (t_valid[gaps] + t_valid[gaps + 1])
-        t_out = np.concatenate([t_out, t_gap])
-        y_out = np.concatenate([y_out, np.full(t_gap.size, np.nan)])
+    if breaks.size:
+        t_out = np.concatenate([t_out, breaks])
+        y_out = np.concatenate([y_out, np.full(breaks.size, np.nan)])
         order = np.argsort(t_out, kind="stable")
         t_out, y_out = t_out[order], y_out[order]
     return Reduced(t=t_out, y=y_out, n_samples=n_valid, downsampled=n_valid > n_out)

@@ -13,7 +13,14 @@ from analysis.archive import Archive
 from analysis.pipeline import load_analysis
 from server.charts import chart_plan, unit_of
 from server.deps import ApiError, get_archive
-from server.downsample import MAX_POINTS, MIN_POINTS, json_times, json_values, reduce_series
+from server.downsample import (
+    MAX_POINTS,
+    MIN_POINTS,
+    json_times,
+    json_values,
+    reduce_series,
+    time_base,
+)
 
 router = APIRouter(prefix="/api/runs", tags=["series"])
 
@@ -93,12 +100,12 @@ def series(
     out: dict[str, Any] = {}
     for frame in frames:
         t = frame[cat.T].to_numpy(dtype=np.float64)
+        base = time_base(t)  # data gaps found once per time axis
         for name in frame.columns:
             if name == cat.T or name not in names:
                 continue
-            reduced = reduce_series(
-                t, frame[name].to_numpy(dtype=np.float64, na_value=np.nan), points
-            )
+            values = frame[name].to_numpy(dtype=np.float64, na_value=np.nan)
+            reduced = reduce_series(t, values, points, base)
             out[name] = {
                 "t": json_times(reduced.t),
                 "y": json_values(reduced.y),

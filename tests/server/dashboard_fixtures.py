@@ -70,7 +70,7 @@ class RunInputs:
 
 def write_demo_inputs(folder: Path, duration_s: float | None = DEMO_SECONDS) -> RunInputs:
     """Simulate a short demo run and write it as the demo's foreign log files."""
-    from analysis import demo, demo_course
+    from analysis import demo
 
     folder.mkdir(parents=True, exist_ok=True)
     run = demo.simulate_run(duration_s=duration_s)
@@ -82,7 +82,7 @@ def write_demo_inputs(folder: Path, duration_s: float | None = DEMO_SECONDS) -> 
     map_path = folder / "marram2-map.toml"
     map_path.write_text(demo.channel_map_toml(), encoding="utf-8")
     profile_path = folder / "marram2-profile.toml"
-    profile_path.write_text(demo_course.profile_toml(), encoding="utf-8")
+    profile_path.write_text(demo.profile_toml(), encoding="utf-8")
     return RunInputs(sorted(logs), map_path, profile_path)
 
 

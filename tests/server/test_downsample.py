@@ -95,6 +95,15 @@ def test_select_indices_all_nan() -> None:
     assert select_indices(t, np.full(10, np.nan), 5).size == 0
 
 
+def test_leading_nan_is_never_selected_and_short_nan_runs_do_not_break() -> None:
+    t, y = _sine(50_000)
+    y[:41] = np.nan  # a filter settling at the start
+    y[30_000] = np.nan  # one lost sample: shorter than a gap, the line goes on
+    reduced = reduce_series(t, y, 500)
+    assert not np.isnan(reduced.y).any()
+    assert reduced.n_samples == 50_000 - 42
+
+
 def test_json_values_rounds_to_significant_digits_and_nulls_gaps() -> None:
     out = json_values(np.array([1.23456789, -0.000123456789, math.nan, math.inf]))
     # 6 significant digits relative to the largest finite magnitude (1.23...): 5 decimals.

@@ -241,16 +241,24 @@ function setupEdit() {
 
 // ----- load --------------------------------------------------------------------------
 async function load() {
-  const data = await getJSON(`/api/runs/${encodeURIComponent(runId)}`);
+  // Every request at once; the charts' series go out as soon as the plan is in.
+  const id = encodeURIComponent(runId);
+  const runRequest = getJSON(`/api/runs/${id}`);
+  const planRequest = getJSON(`/api/runs/${id}/charts`);
+  const infoRequest = serverInfo();
+  const data = await runRequest;
   run = data.run;
   const analysis = data.analysis;
   events = analysis ? analysis.events : [];
+  const { panels } = await planRequest;
+  timelines = new Timelines(document.getElementById("charts"), runId, panels, events);
+  const drawn = timelines.draw();
   showHead(run);
   showKpis(data.headline, analysis);
   showDetectors(analysis);
   showIngest(run);
-  await showThresholds(analysis);
-  const info = await serverInfo();
+  showEvents();
+  const info = await infoRequest;
   const legend = document.getElementById("legend");
   legend.replaceChildren(
     eventLegend(info.event_kinds, (kind, visible) => {
@@ -258,10 +266,8 @@ async function load() {
       showEvents();
     }),
   );
-  const { panels } = await getJSON(`/api/runs/${encodeURIComponent(runId)}/charts`);
-  timelines = new Timelines(document.getElementById("charts"), runId, panels, events);
-  showEvents();
-  await timelines.draw();
+  await showThresholds(analysis);
+  await drawn;
 }
 
 async function main() {

@@ -1,0 +1,269 @@
+"""Benchmark: the Run page of a one-hour, 400 Hz run, against plotting every sample.
+
+Builds the run as ``bench_analysis.py`` does (a simulated demo lap of the invented
+robot repeated to one hour at 400 Hz), ingests and analyses it into a scratch
+archive under ``bench-output/dashboard/`` (git-ignored; reused when present),
+serves the real app with uvicorn on 127.0.0.1 and measures:
+
+* the series request of the Run page at the default point budget (every
+  signal the page draws): server time and bytes; a zoom request (10 s window);
+* in headless Chromium (Debian's ``/usr/bin/chromium``): navigation to all
+  charts drawn, the bytes of JSON the page loaded, and a zoom round trip
+  (request + redraw);
+* beside them, the same figures for a figure that plots every sample of the
+  roll and tip-over timelines: JSON bytes, server time, and the time Chromium
+  takes to draw it.
+
+Targets (dashboard issue): first full draw under 2 s, a zoom round trip under
+200 ms, the page's data under 2 MB however long the run.
+
+Run: ``.venv/bin/python benchmarks/bench_dashboard.py [--minutes N] [--fresh]``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import shutil
+import socket
+import statistics
+import sys
+import threading
+import time
+from pathlib import Path
+from typing import Any
+
+import httpx
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+from fastapi import Response
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+from bench_analysis import RATE_HZ, build_frame, identity_map  # noqa: E402
+
+from analysis import catalogue as cat  # noqa: E402
+from analysis.archive import Archive  # noqa: E402
+from analysis.demo import profile_toml  # noqa: E402
+from analysis.ingest import ingest_files  # noqa: E402
+from analysis.pipeline import analyse_run  # noqa: E402
+from server.app import create_app  # noqa: E402
+
+ROOT = Path(__file__).resolve().parent.parent
+OUT = ROOT / "bench-output" / "dashboard"
+CHROMIUM = "/usr/bin/chromium"
+CHROMIUM_ARGS = [
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+]
+#: Signals of the every-sample figure: the roll and tip-over timelines.
+FULL_SIGNALS = (cat.ROLL, cat.ROLL_REF, cat.ROLL_ZMP_LEAN, cat.ROLL_ERROR, cat.TIP_MARGIN)
+REPEATS = 5
+
+
+def prepare(minutes: float, fresh: bool) -> tuple[Path, str]:
+    """The scratch archive and the id of its analysed one-hour run (built once)."""
+    archive_dir = OUT / "archive"
+    if not fresh and archive_dir.is_dir():
+        runs = Archive(archive_dir).list_runs()
+        if runs and runs[0]["analysed"] and abs(runs[0]["duration_s"] - 60 * minutes) < 1:
+            return archive_dir, runs[0]["run_id"]
+    shutil.rmtree(OUT, ignore_errors=True)
+    OUT.mkdir(parents=True)
+    t0 = time.perf_counter()
+    frame = build_frame(minutes)
+    src = OUT / "run.parquet"
+    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), src, compression="zstd")
+    (OUT / "map.toml").write_text(identity_map(list(frame.columns)))
+    (OUT / "profile.toml").write_text(profile_toml())
+    print(f"built {len(frame):,} rows x {frame.shape[1]} columns at {RATE_HZ:g} Hz", flush=True)
+    del frame
+    archive = Archive(archive_dir)
+    run_id = ingest_files(archive, [src], OUT / "map.toml", OUT / "profile.toml").run_id
+    analyse_run(archive, run_id)
+    print(f"ingested and analysed in {time.perf_counter() - t0:.1f} s", flush=True)
+    return archive_dir, run_id
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port: int = s.getsockname()[1]
+        return port
+
+
+def every_sample_json(archive_dir: Path, run_id: str) -> bytes:
+    """JSON of every sample of :data:`FULL_SIGNALS` (what an undownsampled figure needs)."""
+    archive = Archive(archive_dir)
+    raw = [s for s in FULL_SIGNALS if s in archive.columns(run_id)]
+    frame = archive.load_frame(run_id, columns=raw)
+    derived = archive.read_result_series(run_id, columns=[s for s in FULL_SIGNALS if s not in raw])
+    t = frame[cat.T].to_numpy().tolist()
+    traces = {}
+    for name in FULL_SIGNALS:
+        source = frame if name in frame else derived
+        y = source[name].to_numpy(dtype=float, na_value=np.nan)
+        traces[name] = {"t": t, "y": [None if v != v else v for v in y.tolist()]}
+    return json.dumps({"signals": traces}, separators=(",", ":")).encode()
+
+
+def timed_get(client: httpx.Client, url: str, params: dict[str, Any]) -> tuple[float, int]:
+    """Median time [s] of REPEATS requests, and the response size [bytes]."""
+    times, size = [], 0
+    for _ in range(REPEATS):
+        t0 = time.perf_counter()
+        response = client.get(url, params=params)
+        times.append(time.perf_counter() - t0)
+        response.raise_for_status()
+        size = len(response.content)
+    return statistics.median(times), size
+
+
+def browser_figures(base: str, run_id: str) -> dict[str, float]:
+    """Navigation to all charts drawn, page JSON bytes, zoom round trip, every-sample draw."""
+    from playwright.sync_api import sync_playwright
+
+    out: dict[str, float] = {}
+    with sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=CHROMIUM, headless=True, args=CHROMIUM_ARGS)
+        draws, data_bytes, zooms = [], [], []
+        for _ in range(3):
+            context = browser.new_context(viewport={"width": 1440, "height": 1000})
+            page = context.new_page()
+            sizes: list[int] = []
+            page.on(
+                "response",
+                lambda r, sizes=sizes: sizes.append(len(r.body())) if "/api/" in r.url else None,
+            )
+            page.goto(f"{base}/run.html?id={run_id}")
+            page.wait_for_selector("body[data-charts-ready='1']", timeout=120_000)
+            draws.append(float(page.evaluate("document.body.dataset.chartsReadyMs")))
+            data_bytes.append(float(sum(sizes)))
+            page.evaluate(
+                "() => Plotly.relayout(document.getElementById('chart-tip'), "
+                "{'xaxis.range[0]': 1800, 'xaxis.range[1]': 1810})"
+            )
+            page.wait_for_function("() => document.body.dataset.refreshMs !== undefined")
+            zooms.append(float(page.evaluate("document.body.dataset.refreshMs")))
+            context.close()
+        out["draw_ms"] = statistics.median(draws)
+        out["page_bytes"] = statistics.median(data_bytes)
+        out["zoom_ms"] = statistics.median(zooms)
+
+        page = browser.new_page(viewport={"width": 1440, "height": 1000})
+        parse = []
+        for _ in range(3):
+            page.goto(f"{base}/bench/every-sample.html")
+            parse.append(float(page.evaluate("window.plotlyMs")))
+        out["plotly_ms"] = statistics.median(parse)
+        page.wait_for_function("() => window.Plotly !== undefined")
+        try:
+            ms = page.evaluate(
+                """async (url) => {
+                    const start = performance.now();
+                    const body = await (await fetch(url)).json();
+                    const traces = Object.entries(body.signals).map(([name, s], i) => ({
+                        type: 'scatter', mode: 'lines', x: s.t, y: s.y, name,
+                        yaxis: i === 0 ? 'y' : 'y' + (i + 1)}));
+                    const layout = {height: 900, grid: {rows: traces.length, columns: 1}};
+                    await Plotly.newPlot('f', traces, layout);
+                    return performance.now() - start;
+                }""",
+                f"{base}/bench/every-sample",
+            )
+            out["full_draw_ms"] = float(ms)
+        except Exception as exc:  # the browser gave up: report it instead of a number
+            print(f"every-sample figure failed in Chromium: {exc}")
+            out["full_draw_ms"] = float("nan")
+        browser.close()
+    return out
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--minutes", type=float, default=60.0, help="run length (default 60)")
+    parser.add_argument("--fresh", action="store_true", help="rebuild the scratch archive")
+    parser.add_argument("--no-browser", action="store_true", help="skip the Chromium figures")
+    args = parser.parse_args()
+
+    archive_dir, run_id = prepare(args.minutes, args.fresh)
+    import uvicorn
+
+    app = create_app(archive_dir)
+    t0 = time.perf_counter()
+    full = every_sample_json(archive_dir, run_id)
+    full_server_s = time.perf_counter() - t0
+
+    @app.get("/bench/every-sample", include_in_schema=False)
+    def every_sample() -> Response:  # bench-only route, never part of the product
+        return Response(full, media_type="application/json")
+
+    @app.get("/bench/every-sample.html", include_in_schema=False)
+    def every_sample_page() -> Response:
+        html = (
+            '<!doctype html><div id="f"></div><script>window.t0 = performance.now()</script>'
+            '<script src="/vendor/plotly.min.js"></script>'
+            "<script>window.plotlyMs = performance.now() - window.t0</script>"
+        )
+        return Response(html, media_type="text/html")
+
+    # The static mount answers "/" last; move the two bench routes in front of it.
+    for _ in range(2):
+        app.router.routes.insert(0, app.router.routes.pop())
+    port = _free_port()
+    server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning"))
+    thread = threading.Thread(target=server.run, daemon=True)
+    thread.start()
+    while not server.started:
+        time.sleep(0.05)
+    base = f"http://127.0.0.1:{port}"
+    try:
+        with httpx.Client(base_url=base, timeout=120) as client:
+            panels = client.get(f"/api/runs/{run_id}/charts").json()["panels"]
+            signals = sorted({t["signal"] for p in panels for r in p["rows"] for t in r["traces"]})
+            page_s, page_bytes = timed_get(
+                client, f"/api/runs/{run_id}/series", {"signals": ",".join(signals)}
+            )
+            zoom_s, zoom_bytes = timed_get(
+                client,
+                f"/api/runs/{run_id}/series",
+                {"signals": ",".join(signals), "t0": 1800, "t1": 1810},
+            )
+            sub_s, sub_bytes = timed_get(
+                client, f"/api/runs/{run_id}/series", {"signals": ",".join(FULL_SIGNALS)}
+            )
+        figures = {} if args.no_browser else browser_figures(base, run_id)
+    finally:
+        server.should_exit = True
+        thread.join(timeout=10)
+
+    mb = 1024 * 1024
+    print(f"\nRun page of a {args.minutes:g}-minute, {RATE_HZ:g} Hz run ({len(signals)} signals):")
+    print(f"  series request, default budget  {page_s * 1e3:8.0f} ms  {page_bytes / mb:8.2f} MB")
+    print(f"  zoom request, 10 s window       {zoom_s * 1e3:8.0f} ms  {zoom_bytes / mb:8.2f} MB")
+    if figures:
+        print(f"  navigation to all charts drawn  {figures['draw_ms']:8.0f} ms   (target < 2000)")
+        print(
+            f"  page JSON loaded                {figures['page_bytes'] / mb:8.2f} MB   (target < 2)"
+        )
+        print(f"  zoom round trip in the page     {figures['zoom_ms']:8.0f} ms   (target < 200)")
+        print(f"  plotly.js load + parse alone   {figures['plotly_ms']:8.0f} ms   (any chart page)")
+    print(
+        f"Roll and tip-over timelines ({len(FULL_SIGNALS)} signals), downsampled vs every sample:"
+    )
+    print(f"  downsampled: request {sub_s * 1e3:8.0f} ms, {sub_bytes / mb:8.2f} MB")
+    print(f"  every sample: server {full_server_s * 1e3:8.0f} ms, {len(full) / mb:8.2f} MB", end="")
+    if figures:
+        print(f", Chromium fetch + draw {figures['full_draw_ms']:8.0f} ms")
+    else:
+        print()
+
+
+if __name__ == "__main__":
+    main()
