@@ -208,7 +208,9 @@ def find_intervals(
     last = np.concatenate((first[1:] - 1, [group.size - 1]))
     m_starts, m_ends = starts[first], ends[last]
     long_enough = (t[m_ends] - t[m_starts]) >= min_duration_s
-    return [(int(a), int(b)) for a, b in zip(m_starts[long_enough], m_ends[long_enough], strict=True)]
+    return [
+        (int(a), int(b)) for a, b in zip(m_starts[long_enough], m_ends[long_enough], strict=True)
+    ]
 
 
 def intervals_to_events(

@@ -103,11 +103,13 @@ THRESHOLD_SPECS: dict[str, ThresholdSpec] = {
             15.0,
             "A yaw_slip event starts where |wheel yaw rate - gyro| exceeds this.",
         ),
+        ThresholdSpec("yaw_rate_diff_off_deg_s", "deg/s", "rad/s", 8.0, "... and ends below this."),
         ThresholdSpec(
-            "yaw_rate_diff_off_deg_s", "deg/s", "rad/s", 8.0, "... and ends below this."
-        ),
-        ThresholdSpec(
-            "tip_margin_on", "", "", 0.3, "A low_tip_margin event starts where the margin drops below this."
+            "tip_margin_on",
+            "",
+            "",
+            0.3,
+            "A low_tip_margin event starts where the margin drops below this.",
         ),
         ThresholdSpec("tip_margin_off", "", "", 0.35, "... and ends where it rises above this."),
         ThresholdSpec(
@@ -382,7 +384,9 @@ def _read_toml(path: Path, error: type[Exception], what: str) -> dict[str, Any]:
 
 def _number(table: Mapping[str, Any], key: str, where: str, *, positive: bool = True) -> float:
     if key not in table:
-        raise ProfileError(f"Profile is missing {where}.{key}. Add it (see README, 'Robot profile').")
+        raise ProfileError(
+            f"Profile is missing {where}.{key}. Add it (see README, 'Robot profile')."
+        )
     value = table[key]
     if isinstance(value, bool) or not isinstance(value, int | float) or not np.isfinite(value):
         raise ProfileError(f"Profile {where}.{key} must be a number, found {value!r}.")
@@ -413,15 +417,15 @@ def profile_from_dict(data: Mapping[str, Any], source: str = "profile") -> Robot
     ref = robot.get("wheel_encoder_reference")
     if ref not in ("leg", "ground"):
         raise ProfileError(
-            f"Profile robot.wheel_encoder_reference must be \"leg\" (encoder measures the wheel "
-            f"against its leg) or \"ground\", found {ref!r}."
+            f'Profile robot.wheel_encoder_reference must be "leg" (encoder measures the wheel '
+            f'against its leg) or "ground", found {ref!r}.'
         )
 
     com_t = data.get("com")
     if not isinstance(com_t, dict):
         raise ProfileError(
-            f"{source}: no [com] table. Give model = \"constant\" with height_m, or "
-            f"model = \"linear\" with offset_m and leg_factor."
+            f'{source}: no [com] table. Give model = "constant" with height_m, or '
+            f'model = "linear" with offset_m and leg_factor.'
         )
     model = com_t.get("model")
     if model == "constant":
@@ -433,13 +437,13 @@ def profile_from_dict(data: Mapping[str, Any], source: str = "profile") -> Robot
             leg_factor=_number(com_t, "leg_factor", "com", positive=False),
         )
     else:
-        raise ProfileError(f"Profile com.model must be \"constant\" or \"linear\", found {model!r}.")
+        raise ProfileError(f'Profile com.model must be "constant" or "linear", found {model!r}.')
 
     acts_t = data.get("actuators")
     if not isinstance(acts_t, dict) or not acts_t:
         raise ProfileError(
             f"{source}: no [actuators.<name>] tables. Describe at least the two wheels, e.g. "
-            f"[actuators.wheel_l] with role = \"wheel\", side = \"left\", peak_torque_nm, "
+            f'[actuators.wheel_l] with role = "wheel", side = "left", peak_torque_nm, '
             f"continuous_torque_nm."
         )
     actuators = []
@@ -453,13 +457,17 @@ def profile_from_dict(data: Mapping[str, Any], source: str = "profile") -> Robot
             )
         role = t.get("role")
         if role not in ROLES:
-            raise ProfileError(f"Profile {where}.role must be one of {', '.join(ROLES)}, found {role!r}.")
+            raise ProfileError(
+                f"Profile {where}.role must be one of {', '.join(ROLES)}, found {role!r}."
+            )
         side_raw = t.get("side")
         if side_raw is not None and side_raw not in SIDES:
-            raise ProfileError(f"Profile {where}.side must be \"left\" or \"right\", found {side_raw!r}.")
+            raise ProfileError(
+                f'Profile {where}.side must be "left" or "right", found {side_raw!r}.'
+            )
         side = SIDES[side_raw] if side_raw is not None else None
         if role == "wheel" and side is None:
-            raise ProfileError(f"Profile {where} is a wheel and needs side = \"left\" or \"right\".")
+            raise ProfileError(f'Profile {where} is a wheel and needs side = "left" or "right".')
         peak = _number(t, "peak_torque_nm", where)
         cont = _number(t, "continuous_torque_nm", where)
         if cont > peak:
@@ -497,7 +505,7 @@ def profile_from_dict(data: Mapping[str, Any], source: str = "profile") -> Robot
     sides = sorted(a.side for a in actuators if a.role == "wheel" and a.side)
     if sides != ["l", "r"]:
         raise ProfileError(
-            f"Profile needs exactly one left and one right wheel actuator (role = \"wheel\"), "
+            f'Profile needs exactly one left and one right wheel actuator (role = "wheel"), '
             f"found sides {sides}."
         )
     thresholds_t = data.get("thresholds", {})
