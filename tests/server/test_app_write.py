@@ -171,3 +171,21 @@ def test_token_protects_writes_and_leaves_reads_open(
         )
         assert ok.status_code == 200
         assert c.get(f"/api/runs/{run_id}").json()["run"]["name"] == "renamed"
+
+
+@pytest.mark.parametrize(
+    ("host", "loopback"),
+    [
+        ("127.0.0.1", True),
+        ("localhost", True),
+        ("::1", True),
+        ("0.0.0.0", False),
+        ("10.1.2.3", False),
+    ],
+)
+def test_serve_cautions_when_the_host_is_not_loopback(host: str, loopback: bool) -> None:
+    from server.cli_serve import is_loopback, open_host_caution
+
+    assert is_loopback(host) is loopback
+    assert "add --token" in open_host_caution(host, None)
+    assert "need the token" in open_host_caution(host, "t")
