@@ -175,8 +175,17 @@ def _row(k: KpiDef, d: Difference) -> KpiRow:
     )  # fmt: skip
 
 
+#: Below this peak correlation of roll with its reference a lag is not reported
+#: (common practice, no source): the peak of two weakly related signals is noise.
+MIN_LAG_CORRELATION = 0.5
+
+
 def _lag(run: RunData, position: np.ndarray, lo: float, hi: float) -> float:
-    """Roll lag of one run over a course stretch, by cross-correlation (NaN if undefined)."""
+    """Roll lag of one run over a course stretch, by cross-correlation.
+
+    NaN where undefined: too few samples, the peak at the search bound, or a peak
+    correlation below :data:`MIN_LAG_CORRELATION`.
+    """
     sel = (position >= lo) & (position <= hi)
     if sel.sum() < 8:
         return float("nan")
@@ -185,7 +194,11 @@ def _lag(run: RunData, position: np.ndarray, lo: float, hi: float) -> float:
     ref = f[cat.ROLL_REF].to_numpy(dtype=float)[sel]
     roll = f[cat.ROLL].to_numpy(dtype=float)[sel]
     est = lag_by_xcorr(t, ref, roll, run.profile.thresholds.roll_lag_max_s)
-    return est.lag_s
+    if est.at_bound or not est.correlation >= MIN_LAG_CORRELATION:
+        # On a straight the reference barely moves: the peak is noise, not a lag.
+        return float("nan")
+    # Compared as a magnitude: leading the reference is no better than lagging it.
+    return abs(est.lag_s)
 
 
 def _course_names(runs: Sequence[RunData]) -> set[str]:

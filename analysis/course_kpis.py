@@ -188,7 +188,7 @@ def kpi_definitions(runs: Sequence[RunData], tip_edges: np.ndarray | None) -> li
                    Statistic("total", "roll_abs")),
         ]  # fmt: skip
     if everyone("f", cat.ROLL_REF) and everyone("f", cat.ROLL):
-        out.append(KpiDef("roll_lag", "roll_lag", None, "Roll lag behind reference", "s",
+        out.append(KpiDef("roll_lag", "roll_lag", None, "Roll lag |behind or ahead of| reference", "s",
                           LOWER, None))  # fmt: skip
     out += [
         KpiDef("mean_speed", "mean_speed", None, "Mean speed", "m/s", HIGHER,

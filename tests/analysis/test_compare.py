@@ -239,3 +239,14 @@ def test_gate_interval_mode_and_no_worse(worse_comparison) -> None:
 def test_bad_gate_files_are_refused(table, message) -> None:
     with pytest.raises(CompareError, match=message):
         gate_from_mapping(table, where="gate.toml")
+
+
+def test_roll_lag_is_not_reported_when_the_reference_carries_no_timing(run_a) -> None:
+    # A reference of pure sensor-level noise carries no timing: its correlation peak
+    # with roll is noise, so the comparison must report no lag rather than a number
+    # (common practice, no source).
+    flat = make_run("flat", seed=3)
+    noise = np.random.default_rng(5).normal(0.0, 1e-3, len(flat.frame))
+    flat.frame = flat.frame.assign(**{cat.ROLL_REF: noise})
+    comp = compare_runs([flat], [flat], n_boot=N_BOOT)
+    assert np.isnan(comp.kpi("roll_lag").a)
