@@ -192,7 +192,8 @@ def template(headers: Sequence[FileHeader], actuators: Sequence[str] = ()) -> st
                 unit = guess_unit(col) or (entry.unit if entry else "")
                 mapped[col] = (sig, unit)
         torques = sum(1 for s, _ in mapped.values() if "torque" in s)
-        kind = "torque" if torques and torques >= len(mapped) / 2 else "state"
+        torque_file = bool(set(_tokens(h.path.name)) & _TORQUE)
+        kind = "torque" if torque_file or (torques and torques >= len(mapped) / 2) else "state"
         out += [
             "[[source]]",
             f'name = "{name}"',

@@ -206,3 +206,10 @@ def test_template_time_guess_and_marks(tmp_path):
     assert 'files = "lap*_state.csv"' in text
     cmap = parse_channel_map(text)
     assert [c.signal for c in cmap.sources[0].columns] == ["roll"]
+
+
+def test_template_guesses_a_torque_stream_from_its_file_name(tmp_path):
+    text = template(
+        [FileHeader(tmp_path / "lap3_torque.csv", ["t_us", "wl_tq_req"], {"t_us": 1.7e15})]
+    )
+    assert 'kind = "torque"' in text
