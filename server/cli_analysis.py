@@ -9,6 +9,7 @@ from typing import Any
 
 from analysis.archive import Archive
 from analysis.archive_fleet import read_fleet
+from analysis.batch import BatchOutcome, reanalyse
 from analysis.catalogue import EVENT_KINDS
 from analysis.errors import ThresholdsError
 from analysis.limits import check_limits, load_limits
@@ -33,10 +34,18 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     a = sub.add_parser(
         "analyse-all",
         help="re-analyse every stored run (e.g. after a detector change)",
-        description="Re-analyse every stored run matching the filters, one after another.",
+        description=(
+            "Re-analyse every stored run matching the filters: here, one after another, or "
+            "on a Dask cluster with --dask. Exit 1 if any run failed."
+        ),
     )
     a.add_argument("--course", help="only runs of this course")
     a.add_argument("--controller", help="only runs of this controller version")
+    a.add_argument(
+        "--dask",
+        metavar="ADDRESS",
+        help="scheduler address of a Dask cluster whose workers see this archive (optional)",
+    )
     add_data_option(a)
     a.set_defaults(func=_analyse_all)
 
@@ -106,10 +115,28 @@ def _analyse_all(args: argparse.Namespace) -> int:
     if not runs:
         print("no stored run matches; nothing to analyse")
         return 0
-    for i, row in enumerate(runs, 1):
-        result = analyse_run(archive, row["run_id"])
-        print(f"[{i}/{len(runs)}] {row['run_id']}: {len(result.events)} events")
-    return 0
+    client = None
+    if args.dask:
+        try:
+            from distributed import Client
+        except ImportError as exc:
+            raise ThresholdsError(
+                "--dask needs the dask.distributed package: pip install 'dask[distributed]'."
+            ) from exc
+        client = Client(args.dask)
+    total = len(runs)
+    count = iter(range(1, total + 1))
+
+    def show(o: BatchOutcome) -> None:
+        what = f"{o.events} events" if o.error is None else f"FAILED: {o.error}"
+        print(f"[{next(count)}/{total}] {o.run_id}: {what}")
+
+    try:
+        outcomes = reanalyse(archive.root, [r["run_id"] for r in runs], client, show)
+    finally:
+        if client is not None:
+            client.close()
+    return 1 if any(o.error for o in outcomes) else 0
 
 
 def _fleet(args: argparse.Namespace) -> int:
