@@ -37,6 +37,7 @@ from server import (
     routes_upload,
 )
 from server.jobs import JobManager
+from server.run_cache import DEFAULT_CACHE_MB, RunCache
 
 log = logging.getLogger("outrigger.server")
 
@@ -96,6 +97,7 @@ def create_app(
     token: str | None = None,
     max_upload_mb: int = 2048,
     web_dir: Path | None = None,
+    cache_mb: int = DEFAULT_CACHE_MB,
 ) -> FastAPI:
     """Build the dashboard application.
 
@@ -109,9 +111,13 @@ def create_app(
         Largest upload accepted, all files together. [MiB]
     web_dir : Path, optional
         Folder of the static pages; the bundled ``web/`` by default.
+    cache_mb : int
+        Bound on the in-memory chart columns of recent runs; 0 turns the cache off. [MiB]
     """
     if max_upload_mb <= 0:
         raise ArchiveError(f"--max-upload-mb must be a positive number, found {max_upload_mb}.")
+    if cache_mb < 0:
+        raise ArchiveError(f"The chart cache size must be 0 (off) or more MiB, found {cache_mb}.")
     archive = Archive(Path(data_dir))
     web = Path(web_dir) if web_dir is not None else WEB_DIR
     if not (web / "index.html").is_file():
@@ -136,6 +142,7 @@ def create_app(
     app.state.archive = archive
     app.state.token = token or None
     app.state.jobs = JobManager()
+    app.state.run_cache = RunCache(int(cache_mb) * 1024 * 1024)
     app.state.max_upload_bytes = int(max_upload_mb) * 1024 * 1024
     app.state.upload_root = upload_root
     app.state.features = {

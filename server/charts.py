@@ -7,6 +7,10 @@ signal, its unit and a line style, horizontal limit lines with values taken from
 the thresholds of the run's last analysis (converted to SI by
 ``analysis.profile``), and the event kinds shaded on the panel. Only signals the
 run actually has are planned; an empty panel says why.
+
+Units are those the page shows (angles in deg and deg/s, by
+``analysis.display``): each trace carries its shown ``unit`` and its stored
+``si_unit``, and limit lines are given in the shown unit of their row.
 """
 
 from __future__ import annotations
@@ -15,6 +19,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from analysis import catalogue as cat
+from analysis.display import display_unit, scalar_to_display
 from analysis.profile import RobotProfile, Thresholds
 
 MAIN, SECOND, REF, LIMIT = "main", "second", "ref", "limit"
@@ -57,7 +62,17 @@ class _Row:
 def _trace(name: str, label: str, style: str, available: set[str], **extra: Any) -> list[dict]:
     if name not in available:
         return []
-    return [{"signal": name, "label": label, "style": style, "unit": unit_of(name), **extra}]
+    si_unit = unit_of(name)
+    shown, _ = display_unit(si_unit)
+    return [
+        {"signal": name, "label": label, "style": style, "unit": shown, "si_unit": si_unit, **extra}
+    ]
+
+
+def _line(value_si: float, of_signal: str, label: str, mirror: bool) -> dict[str, Any]:
+    """A horizontal limit line in the shown unit of the signal it bounds."""
+    shown, _ = scalar_to_display(value_si, unit_of(of_signal))
+    return {"y": shown, "label": label, "mirror": mirror}
 
 
 def _row(label: str, channel: str | None, traces: list[list[dict]], lines=()) -> _Row | None:
@@ -143,7 +158,7 @@ def chart_plan(
                 ],
             )
         )
-    roll_band = [{"y": th.roll_band, "label": "tolerance band", "mirror": True}]
+    roll_band = [_line(th.roll_band, cat.ROLL_ERROR, "tolerance band", mirror=True)]
     roll_rows = [
         _row(
             "roll",
@@ -161,10 +176,10 @@ def chart_plan(
             "tip-over margin",
             None,
             [_trace(cat.TIP_MARGIN, "margin (model estimate)", MAIN, available)],
-            [{"y": th.tip_margin_on, "label": "low-margin threshold", "mirror": False}],
+            [_line(th.tip_margin_on, cat.TIP_MARGIN, "low-margin threshold", mirror=False)],
         )
     ]
-    pitch_limit = [{"y": th.pitch_limit, "label": "pitch limit", "mirror": True}]
+    pitch_limit = [_line(th.pitch_limit, cat.PITCH, "pitch limit", mirror=True)]
     balance_rows = [
         _row(
             "pitch",

@@ -1,4 +1,5 @@
-"""What every route module shares: the archive, the job manager, the write guard.
+"""What every route module shares: the archive, the job manager, the chart cache, the
+write guard.
 
 The objects live on ``app.state`` (set by :func:`server.app.create_app`); the
 routes reach them through these FastAPI dependencies, so each route module
@@ -17,6 +18,7 @@ from analysis.errors import OutriggerError
 if TYPE_CHECKING:
     from analysis.archive import Archive
     from server.jobs import JobManager
+    from server.run_cache import RunCache
 
 
 class ApiError(OutriggerError):
@@ -43,6 +45,17 @@ def get_jobs(request: Request) -> JobManager:
     """The background job manager."""
     jobs: JobManager = request.app.state.jobs
     return jobs
+
+
+def get_run_cache(request: Request) -> RunCache:
+    """The in-memory cache of the chart columns of recent runs."""
+    cache: RunCache = request.app.state.run_cache
+    return cache
+
+
+def forget_run(request: Request, run_id: str) -> None:
+    """Drop a run from the chart cache; every route that changes a run calls this."""
+    get_run_cache(request).invalidate(run_id)
 
 
 def require_write(request: Request) -> None:

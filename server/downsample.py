@@ -80,6 +80,15 @@ class TimeBase:
     gaps: np.ndarray
     median_dt: float
 
+    def window(self, i0: int, i1: int) -> TimeBase:
+        """The gaps inside the slice ``t[i0:i1]`` of the same axis (positions relative to i0).
+
+        The median step stays that of the whole axis: a short window is judged by
+        the run's sample rate, not by its own few steps.
+        """
+        lo, hi = np.searchsorted(self.gaps, [i0, i1 - 1])  # a gap i needs t[i + 1] inside
+        return TimeBase(self.gaps[lo:hi] - i0, self.median_dt)
+
 
 def time_base(t: np.ndarray) -> TimeBase:
     """Find the data gaps of a time axis.

@@ -11,14 +11,15 @@ from pathlib import Path
 from typing import Annotated, Any
 
 import pandas as pd
-from fastapi import APIRouter, Body, Depends, Query
+from fastapi import APIRouter, Body, Depends, Query, Request
 from fastapi.responses import Response, StreamingResponse
 from pydantic import BaseModel, Field
 
 from analysis.archive import Archive
+from analysis.display import display_event_peak, display_headline
 from analysis.pipeline import analyse_run, headline_kpis, load_analysis
 from analysis.profile import Thresholds
-from server.deps import ApiError, get_archive, get_jobs, require_write
+from server.deps import ApiError, forget_run, get_archive, get_jobs, require_write
 from server.jobs import JobManager, Progress
 
 router = APIRouter(prefix="/api/runs", tags=["runs"])
@@ -61,6 +62,7 @@ def list_runs(
     for run in reversed(runs):
         row = dict(run)
         row["kpis"] = _headline(archive, run["run_id"]) if run.get("analysed") else None
+        row["kpis_shown"] = display_headline(row["kpis"])
         out.append(row)
     return {"runs": out, "count": len(out)}
 
@@ -68,13 +70,21 @@ def list_runs(
 @router.get("/{run_id}")
 def get_run(run_id: str, archive: ArchiveDep) -> dict[str, Any]:
     """One run: metadata (with the ingest report), its analysis (KPIs, events, skipped
-    detectors, thresholds used) and the headline KPIs."""
+    detectors, thresholds used) and the headline KPIs.
+
+    Values are SI; ``headline_shown`` and each event's ``shown`` give them in the
+    units the page shows (angles in degrees, ``analysis.display``)."""
     meta = archive.get_meta(run_id)
     analysis = load_analysis(archive, run_id)
+    headline = headline_kpis(analysis) if analysis is not None else None
+    if analysis is not None:
+        for event in analysis.get("events", []):
+            event["shown"] = display_event_peak(event)
     return {
         "run": meta,
         "analysis": analysis,
-        "headline": headline_kpis(analysis) if analysis is not None else None,
+        "headline": headline,
+        "headline_shown": display_headline(headline),
     }
 
 
@@ -87,7 +97,7 @@ class RunEdit(BaseModel):
 
 
 @router.patch("/{run_id}", dependencies=[Depends(require_write)])
-def edit_run(run_id: str, edit: RunEdit, archive: ArchiveDep) -> dict[str, Any]:
+def edit_run(run_id: str, edit: RunEdit, archive: ArchiveDep, request: Request) -> dict[str, Any]:
     """Change a run's name, notes or tags; returns the updated metadata."""
     if edit.tags is not None:
         bad = [t for t in edit.tags if not t.strip() or len(t) > 64]
@@ -101,6 +111,7 @@ def edit_run(run_id: str, edit: RunEdit, archive: ArchiveDep) -> dict[str, Any]:
         notes=edit.notes,
         tags=[t.strip() for t in edit.tags] if edit.tags is not None else None,
     )
+    forget_run(request, run_id)
     return {"run": archive.get_meta(run_id)}
 
 
@@ -108,6 +119,7 @@ def edit_run(run_id: str, edit: RunEdit, archive: ArchiveDep) -> dict[str, Any]:
 def delete_run(
     run_id: str,
     archive: ArchiveDep,
+    request: Request,
     confirm: Annotated[str | None, Query(description="repeat the run id to confirm")] = None,
 ) -> dict[str, Any]:
     """Delete a run and its files; needs ``?confirm=<run_id>``."""
@@ -118,6 +130,7 @@ def delete_run(
             f"DELETE /api/runs/{run_id}?confirm={run_id} (found confirm={confirm!r})."
         )
     archive.delete_run(run_id)
+    forget_run(request, run_id)
     return {"deleted": run_id}
 
 
@@ -215,6 +228,7 @@ def reanalyse(
     run_id: str,
     archive: ArchiveDep,
     jobs: JobsDep,
+    request: Request,
     thresholds: Annotated[
         dict[str, Any],
         Body(description='threshold file keys -> numbers, e.g. {"roll_band_deg": 2.0}'),
@@ -233,6 +247,7 @@ def reanalyse(
 
     def work(progress: Progress) -> str:
         analyse_run(archive, run_id, thresholds=checked, progress=progress)
+        forget_run(request, run_id)
         progress(1.0, "analysis stored")
         return run_id
 

@@ -1,33 +1,49 @@
-"""Chart data: the timeline plan of a run and its series over a window, downsampled."""
+"""Chart data: the timeline plan of a run and its series over a window, downsampled.
+
+Series are served from :class:`server.run_cache.RunCache` (the run's chart
+columns as arrays, so a zoom slices instead of reading Parquet); a run too large
+for the cache, or a server started without one, reads the window from the
+archive. Values and units are those shown on the page (angles in degrees, from
+``analysis.display``) unless ``units=si`` asks for the stored SI values.
+"""
 
 from __future__ import annotations
 
-from typing import Annotated, Any
+from functools import partial
+from typing import Annotated, Any, Literal
 
 import numpy as np
-import pandas as pd
 from fastapi import APIRouter, Depends, Query
+from fastapi.responses import JSONResponse
 
 from analysis import catalogue as cat
 from analysis.archive import Archive
+from analysis.display import to_display
 from analysis.pipeline import load_analysis
 from server.charts import chart_plan, unit_of
-from server.deps import ApiError, get_archive
+from server.deps import ApiError, get_archive, get_run_cache
 from server.downsample import (
     MAX_POINTS,
     MIN_POINTS,
+    TimeBase,
     json_times,
     json_values,
     reduce_series,
     time_base,
 )
+from server.run_cache import DERIVED, FRAME, RunCache
 
 router = APIRouter(prefix="/api/runs", tags=["series"])
 
 ArchiveDep = Annotated[Archive, Depends(get_archive)]
+CacheDep = Annotated[RunCache, Depends(get_run_cache)]
 
 #: Point budget per signal when the request names none.
 DEFAULT_POINTS = 2000
+#: Unit systems of the series endpoint.
+Units = Literal["display", "si"]
+UNITS_DISPLAY: Units = "display"
+UNITS_SI: Units = "si"
 
 
 def available_columns(archive: Archive, run_id: str) -> tuple[list[str], list[str]]:
@@ -42,19 +58,61 @@ def available_columns(archive: Archive, run_id: str) -> tuple[list[str], list[st
 
 
 @router.get("/{run_id}/charts")
-def charts(run_id: str, archive: ArchiveDep) -> dict[str, Any]:
+def charts(run_id: str, archive: ArchiveDep, cache: CacheDep) -> dict[str, Any]:
     """The stacked timelines of the Run page: panels, rows, traces (catalogue names),
-    limit lines (SI, from the thresholds of the last analysis), event kinds shaded."""
-    raw, derived = available_columns(archive, run_id)
+    limit lines (from the thresholds of the last analysis), event kinds shaded.
+
+    Units are those the page shows (``"units": "display"``): each trace gives its
+    shown ``unit`` and stored ``si_unit``; limit lines are in the shown unit."""
+    raw, derived = cache.signal_names(archive, run_id)
     analysis = load_analysis(archive, run_id)
     skipped = {s["detector"]: s["reason"] for s in (analysis or {}).get("skipped", [])}
     thresholds = (analysis or {}).get("thresholds")
     panels = chart_plan(archive.load_profile(run_id), set(raw) | set(derived), thresholds, skipped)
-    return {"run_id": run_id, "panels": panels, "signals": {"frame": raw, "derived": derived}}
+    return {
+        "run_id": run_id,
+        "units": UNITS_DISPLAY,
+        "panels": panels,
+        "signals": {"frame": raw, "derived": derived},
+    }
 
 
-def _window(frame: pd.DataFrame, t0: float | None, t1: float | None) -> tuple[float, float]:
-    t = frame[cat.T].to_numpy(dtype=float)
+def _window_from_archive(
+    archive: Archive, run_id: str, source: str, names: list[str], t0: float | None, t1: float | None
+) -> tuple[np.ndarray, dict[str, np.ndarray], TimeBase]:
+    """The window read from Parquet (no cache): times, values, gaps."""
+    if source == FRAME:
+        frame = archive.load_frame(run_id, columns=names, t0=t0, t1=t1)
+    else:
+        frame = archive.read_result_series(run_id, columns=names, t0=t0, t1=t1)
+    t = frame[cat.T].to_numpy(dtype=np.float64)
+    values = {
+        n: frame[n].to_numpy(dtype=np.float64, na_value=np.nan)
+        for n in frame.columns
+        if n != cat.T and n in names
+    }
+    return t, values, time_base(t)
+
+
+def _window_from_cache(
+    cache: RunCache,
+    archive: Archive,
+    run_id: str,
+    source: str,
+    names: list[str],
+    t0: float | None,
+    t1: float | None,
+) -> tuple[np.ndarray, dict[str, np.ndarray], TimeBase]:
+    """The window sliced from the cached whole-run arrays (both ends inclusive)."""
+    cols = cache.columns(archive, run_id, source, names)
+    i0 = 0 if t0 is None else int(np.searchsorted(cols.t, t0, side="left"))
+    i1 = cols.t.size if t1 is None else int(np.searchsorted(cols.t, t1, side="right"))
+    i1 = max(i0, i1)
+    values = {n: v[i0:i1] for n, v in cols.values.items()}
+    return cols.t[i0:i1], values, cols.base.window(i0, i1)
+
+
+def _bounds(t: np.ndarray, t0: float | None, t1: float | None) -> tuple[float, float]:
     lo = float(t[0]) if t0 is None and t.size else (t0 or 0.0)
     hi = float(t[-1]) if t1 is None and t.size else (t1 if t1 is not None else lo)
     return lo, hi
@@ -64,16 +122,21 @@ def _window(frame: pd.DataFrame, t0: float | None, t1: float | None) -> tuple[fl
 def series(
     run_id: str,
     archive: ArchiveDep,
+    cache: CacheDep,
     signals: Annotated[str, Query(description="comma-separated signal names")],
     t0: Annotated[float | None, Query(description="window start [s]")] = None,
     t1: Annotated[float | None, Query(description="window end [s]")] = None,
     points: Annotated[int, Query(description="point budget per signal")] = DEFAULT_POINTS,
-) -> dict[str, Any]:
+    units: Annotated[
+        Units,
+        Query(description="'display': angles in deg and deg/s as the page shows them; 'si'"),
+    ] = UNITS_DISPLAY,
+) -> JSONResponse:
     """Series of chosen signals (frame columns or derived series) over ``[t0, t1]``.
 
     Each signal is reduced to ``points`` with MinMaxLTTB (spikes survive); a window
     holding fewer samples than the budget comes back at full resolution. Data gaps
-    are null values, so charts break the line there.
+    are null values, so charts break the line there. Each signal gives its ``unit``.
     """
     names = [s.strip() for s in signals.split(",") if s.strip()]
     if not names:
@@ -82,41 +145,60 @@ def series(
         raise ApiError(f"points must be between {MIN_POINTS} and {MAX_POINTS}, found {points}.")
     if t0 is not None and t1 is not None and not t1 > t0:
         raise ApiError(f"The window end t1 must be after its start t0, found t0={t0}, t1={t1}.")
-    raw, derived = available_columns(archive, run_id)
+    use_cache = cache.usable(archive, run_id)
+    if use_cache:
+        raw, derived = cache.signal_names(archive, run_id)
+    else:
+        raw, derived = available_columns(archive, run_id)
     unknown = [n for n in names if n not in raw and n not in derived]
     if unknown:
         raise ApiError(
             f"Run {run_id} has no signal {', '.join(unknown)}. "
             f"Signals: {', '.join(raw)}. Derived series: {', '.join(derived) or 'none (not analysed)'}."
         )
-    want_raw = [n for n in names if n in raw]
-    want_derived = [n for n in names if n not in raw]
-    frames = []
-    if want_raw or not want_derived:
-        frames.append(archive.load_frame(run_id, columns=want_raw, t0=t0, t1=t1))
-    if want_derived:
-        frames.append(archive.read_result_series(run_id, columns=want_derived, t0=t0, t1=t1))
-    lo, hi = _window(frames[0], t0, t1)
+    want = {FRAME: [n for n in names if n in raw], DERIVED: [n for n in names if n not in raw]}
+    if not want[DERIVED]:
+        del want[DERIVED]
+    elif not want[FRAME]:
+        del want[FRAME]
     out: dict[str, Any] = {}
-    for frame in frames:
-        t = frame[cat.T].to_numpy(dtype=np.float64)
-        base = time_base(t)  # data gaps found once per time axis
-        for name in frame.columns:
-            if name == cat.T or name not in names:
-                continue
-            values = frame[name].to_numpy(dtype=np.float64, na_value=np.nan)
-            reduced = reduce_series(t, values, points, base)
+    bounds: tuple[float, float] | None = None
+    for source, wanted in want.items():
+        if use_cache:
+            t, values, base = _window_from_cache(cache, archive, run_id, source, wanted, t0, t1)
+        else:
+            t, values, base = _window_from_archive(archive, run_id, source, wanted, t0, t1)
+        bounds = bounds or _bounds(t, t0, t1)
+        for name, y in values.items():
+            if use_cache and t0 is None and t1 is None:  # the first draw: same every time
+                reduced = cache.overview(
+                    archive,
+                    run_id,
+                    (source, name, points),
+                    partial(reduce_series, t, y, points, base),
+                )
+            else:
+                reduced = reduce_series(t, y, points, base)
+            si_unit = unit_of(name)
+            if units == UNITS_SI:
+                shown, unit = reduced.y, si_unit
+            else:
+                shown, unit = to_display(reduced.y, si_unit)
             out[name] = {
                 "t": json_times(reduced.t),
-                "y": json_values(reduced.y),
-                "unit": unit_of(name),
+                "y": json_values(shown),
+                "unit": unit,
                 "samples": reduced.n_samples,
                 "downsampled": reduced.downsampled,
             }
-    return {
+    lo, hi = bounds if bounds is not None else _bounds(np.empty(0), t0, t1)
+    body = {
         "run_id": run_id,
         "t0": lo,
         "t1": hi,
         "points": points,
+        "units": units,
         "signals": {n: out[n] for n in names if n in out},
     }
+    # Built here rather than by FastAPI's generic encoder, which walks every number.
+    return JSONResponse(body)

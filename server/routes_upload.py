@@ -27,7 +27,7 @@ from analysis.channel_map import load_channel_map
 from analysis.ingest import ingest_files
 from analysis.pipeline import analyse_run
 from analysis.profile import load_profile
-from server.deps import ApiError, get_archive, get_jobs, require_write
+from server.deps import ApiError, forget_run, get_archive, get_jobs, require_write
 from server.jobs import JobManager, Progress
 
 if TYPE_CHECKING:
@@ -292,6 +292,7 @@ async def upload(request: Request, archive: ArchiveDep, jobs: JobsDep) -> dict[s
             progress(INGEST_SHARE + (1 - INGEST_SHARE) * fraction, f"analysis: {message}")
 
         analyse_run(archive, outcome.run_id, progress=analysis_progress)
+        forget_run(request, str(outcome.run_id))
         progress(1.0, "ingested and analysed")
         return str(outcome.run_id)
 

@@ -114,3 +114,20 @@ def test_json_values_rounds_to_significant_digits_and_nulls_gaps() -> None:
 
 def test_json_times_keep_tenth_of_a_millisecond() -> None:
     assert json_times(np.array([3599.99751234])) == [3599.9975]
+
+
+def test_time_base_window_keeps_the_gaps_inside_the_slice() -> None:
+    from server.downsample import time_base
+
+    t = np.arange(100) / RATE_HZ
+    t[40:] += 1.0  # a gap between samples 39 and 40
+    t[70:] += 1.0  # and between 69 and 70
+    base = time_base(t)
+    assert base.gaps.tolist() == [39, 69]
+    # A window holds a gap only when both of its samples are inside it.
+    assert base.window(0, 40).gaps.tolist() == []
+    assert base.window(0, 41).gaps.tolist() == [39]
+    assert base.window(39, 71).gaps.tolist() == [0, 30]
+    assert base.window(40, 100).gaps.tolist() == [29]
+    assert base.window(71, 100).gaps.tolist() == []
+    assert base.window(10, 90).median_dt == base.median_dt

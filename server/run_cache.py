@@ -1,0 +1,298 @@
+"""A small, bounded, thread-safe in-memory cache of the chart columns of recent runs.
+
+Reading Parquet is what made the Run page slow: every series request read whole
+row groups of about a million rows, even for a 10 s zoom window. The cache keeps
+the columns a chart asked for (frame columns and derived series) as float64
+numpy arrays, one entry per run, so a zoom is a binary search on the time
+axis and a slice. It is plumbing, not physics: it holds exactly what the
+archive returns.
+
+Bounds: at most :data:`MAX_RUNS` runs and ``max_bytes`` of arrays, least
+recently used first out. A run whose asked columns alone pass the byte bound
+is served straight from the archive, never cached.
+
+Never stale: each entry remembers a fingerprint of the run's files (inode,
+size and modification time of ``meta.json`` and of the stored results) taken
+*before* its arrays were read, and every lookup compares it with the files on
+disk, so a re-analysis by any process (the page, the command line) is seen at
+the next request. The routes that write (re-analyse, edit, delete, upload) also
+drop the run's entry at once with :meth:`RunCache.invalidate`; a load that was
+in flight at that moment is not stored.
+"""
+
+from __future__ import annotations
+
+import os
+import threading
+from collections import OrderedDict
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from analysis import catalogue as cat
+from analysis.archive import Archive
+from server.downsample import Reduced, TimeBase, time_base
+
+#: Sources of chart columns: the run's frame and the derived series of its analysis.
+FRAME, DERIVED = "frame", "derived"
+#: Runs kept at most.
+MAX_RUNS = 4
+#: Whole-run reductions kept per run (one per signal and point budget).
+MAX_OVERVIEWS = 512
+#: Default bound on the bytes of cached arrays (a one-hour 400 Hz run's 34 chart
+#: columns take about 0.4 GB). [MiB]
+DEFAULT_CACHE_MB = 1024
+
+Fingerprint = tuple[tuple[int, int, int] | None, ...]
+
+
+def _stat(path: Path) -> tuple[int, int, int] | None:
+    try:
+        st = os.stat(path)
+    except OSError:
+        return None
+    return (st.st_ino, st.st_size, st.st_mtime_ns)
+
+
+def fingerprint(archive: Archive, run_id: str) -> Fingerprint:
+    """What changes on disk when a run is edited, re-analysed, deleted or replaced."""
+    run_dir = archive.root / "runs" / run_id
+    results = run_dir / "results"
+    return (
+        _stat(run_dir / "meta.json"),
+        _stat(results / "summary.json"),
+        _stat(results / "series.parquet"),
+    )
+
+
+@dataclass
+class Columns:
+    """The columns of one source of one run, on one time axis.
+
+    Attributes
+    ----------
+    t : ndarray
+        Sample times of the whole run. [s]
+    base : TimeBase
+        Data gaps of ``t``, found once.
+    values : dict of str to ndarray
+        Values by signal name, float64, NaN where missing.
+    """
+
+    t: np.ndarray
+    base: TimeBase
+    values: dict[str, np.ndarray] = field(default_factory=dict)
+
+    @property
+    def nbytes(self) -> int:
+        return int(self.t.nbytes + self.base.gaps.nbytes) + sum(
+            int(v.nbytes) for v in self.values.values()
+        )
+
+
+@dataclass
+class _Entry:
+    fingerprint: Fingerprint
+    generation: int
+    names: tuple[list[str], list[str]] | None = None
+    sources: dict[str, Columns] = field(default_factory=dict)
+    overviews: dict[tuple[str, str, int], Reduced] = field(default_factory=dict)
+    load_lock: threading.Lock = field(default_factory=threading.Lock)
+
+    @property
+    def nbytes(self) -> int:
+        views = sum(int(r.t.nbytes + r.y.nbytes) for r in self.overviews.values())
+        return sum(c.nbytes for c in self.sources.values()) + views
+
+
+def _as_float(values: object) -> np.ndarray:
+    """A column as contiguous float64 with NaN for missing values (bool as 0/1)."""
+    import pandas as pd
+
+    series = values if isinstance(values, pd.Series) else pd.Series(values)
+    return np.ascontiguousarray(series.to_numpy(dtype=np.float64, na_value=np.nan))
+
+
+class RunCache:
+    """LRU cache of the chart columns of recent runs; safe to share between threads.
+
+    Parameters
+    ----------
+    max_bytes : int
+        Bound on the bytes of cached arrays; 0 turns the cache off. [B]
+    max_runs : int
+        Runs kept at most. [-]
+    """
+
+    def __init__(self, max_bytes: int, max_runs: int = MAX_RUNS) -> None:
+        self.max_bytes = int(max_bytes)
+        self.max_runs = int(max_runs)
+        self._lock = threading.Lock()
+        self._entries: OrderedDict[str, _Entry] = OrderedDict()
+        self._generations: dict[str, int] = {}
+        self._oversized: dict[str, Fingerprint] = {}
+        self.hits = 0
+        self.loads = 0
+
+    # --- bookkeeping ------------------------------------------------------------
+
+    @property
+    def nbytes(self) -> int:
+        """Bytes of arrays held now. [B]"""
+        with self._lock:
+            return sum(e.nbytes for e in self._entries.values())
+
+    def runs(self) -> list[str]:
+        """Cached run ids, least recently used first."""
+        with self._lock:
+            return list(self._entries)
+
+    def usable(self, archive: Archive, run_id: str) -> bool:
+        """False when the cache is off or the run's chart columns did not fit its bound
+        (the caller then reads the window from the archive)."""
+        if self.max_bytes <= 0:
+            return False
+        with self._lock:
+            marked = self._oversized.get(run_id)
+        return marked is None or marked != fingerprint(archive, run_id)
+
+    def invalidate(self, run_id: str) -> None:
+        """Forget a run at once (after it was re-analysed, edited, deleted or replaced)."""
+        with self._lock:
+            self._entries.pop(run_id, None)
+            self._oversized.pop(run_id, None)
+            self._generations[run_id] = self._generations.get(run_id, 0) + 1
+
+    def clear(self) -> None:
+        """Forget every run."""
+        with self._lock:
+            for run_id in list(self._entries):
+                self._generations[run_id] = self._generations.get(run_id, 0) + 1
+            self._entries.clear()
+            self._oversized.clear()
+
+    def _entry(self, archive: Archive, run_id: str) -> _Entry:
+        """The run's current entry, a fresh one when the files changed since it was made."""
+        now = fingerprint(archive, run_id)
+        with self._lock:
+            entry = self._entries.get(run_id)
+            if entry is not None and entry.fingerprint != now:
+                del self._entries[run_id]
+                entry = None
+            if entry is None:
+                entry = _Entry(now, self._generations.get(run_id, 0))
+                self._entries[run_id] = entry
+            self._entries.move_to_end(run_id)
+            return entry
+
+    def _current(self, run_id: str, entry: _Entry) -> bool:
+        return (
+            self._entries.get(run_id) is entry
+            and self._generations.get(run_id, 0) == entry.generation
+        )
+
+    def _fit(self, keep: str) -> bool:
+        """Evict least recently used runs until the bounds hold; False if ``keep`` alone is
+        too large (it is then dropped too). Call with ``self._lock`` held."""
+        total = sum(e.nbytes for e in self._entries.values())
+        for run_id in list(self._entries):
+            if total <= self.max_bytes and len(self._entries) <= self.max_runs:
+                break
+            if run_id == keep:
+                continue
+            total -= self._entries.pop(run_id).nbytes
+        if total > self.max_bytes or len(self._entries) > self.max_runs:
+            entry = self._entries.pop(keep, None)
+            if entry is not None:
+                self._oversized[keep] = entry.fingerprint
+            return False
+        return True
+
+    # --- reads ------------------------------------------------------------------
+
+    def signal_names(self, archive: Archive, run_id: str) -> tuple[list[str], list[str]]:
+        """Names of the run's frame columns and of its derived series (without ``t``)."""
+        entry = self._entry(archive, run_id)
+        if entry.names is not None:
+            return entry.names
+        raw = [c for c in archive.columns(run_id) if c != cat.T]
+        derived: list[str] = []
+        if archive.read_results(run_id) is not None:
+            # An empty window (t < 0 never occurs): the Parquet statistics skip every row group.
+            series = archive.read_result_series(run_id, t0=-1.0, t1=-1.0)
+            derived = [c for c in series.columns if c != cat.T and c not in raw]
+        with self._lock:
+            if self._current(run_id, entry):
+                entry.names = (raw, derived)
+        return raw, derived
+
+    def columns(self, archive: Archive, run_id: str, source: str, names: list[str]) -> Columns:
+        """The whole-run columns ``names`` of one source (``FRAME`` or ``DERIVED``).
+
+        Names the source does not hold are left out. What is missing is read from
+        the archive once; other runs are served meanwhile.
+        """
+        entry = self._entry(archive, run_id)
+        with entry.load_lock:  # one load per run at a time; other runs go on
+            with self._lock:
+                have = entry.sources.get(source)
+                missing = [n for n in names if have is None or n not in have.values]
+                if have is not None and not missing:
+                    self.hits += 1
+                    return Columns(have.t, have.base, {n: have.values[n] for n in names})
+            self.loads += 1
+            loaded = self._read(archive, run_id, source, missing, have)
+            if have is not None and loaded.t is have.t:
+                values = {**have.values, **loaded.values}
+            else:
+                values = dict(loaded.values)
+            merged = Columns(loaded.t, loaded.base, values)
+            with self._lock:
+                if self.max_bytes > 0 and self._current(run_id, entry):
+                    entry.sources[source] = merged
+                    self._fit(run_id)  # a run too large to keep is served from this read only
+            return Columns(merged.t, merged.base, {n: values[n] for n in names if n in values})
+
+    def overview(
+        self,
+        archive: Archive,
+        run_id: str,
+        key: tuple[str, str, int],
+        compute: Callable[[], Reduced],
+    ) -> Reduced:
+        """The whole-run reduction ``key`` = (source, signal, points), computed once.
+
+        The first draw of a Run page always asks for the whole run at the same
+        budget; its reductions are kept with the run's arrays and dropped with them.
+        """
+        entry = self._entry(archive, run_id)
+        with self._lock:
+            found = entry.overviews.get(key)
+        if found is not None:
+            self.hits += 1
+            return found
+        reduced = compute()
+        with self._lock:
+            if self.max_bytes > 0 and self._current(run_id, entry):
+                if len(entry.overviews) >= MAX_OVERVIEWS:
+                    entry.overviews.clear()
+                entry.overviews[key] = reduced
+                self._fit(run_id)
+        return reduced
+
+    def _read(
+        self, archive: Archive, run_id: str, source: str, names: list[str], have: Columns | None
+    ) -> Columns:
+        if source == FRAME:
+            frame = archive.load_frame(run_id, columns=names)
+        else:
+            frame = archive.read_result_series(run_id, columns=names)
+        t = np.ascontiguousarray(frame[cat.T].to_numpy(dtype=np.float64))
+        if have is not None and have.t.shape == t.shape and np.array_equal(have.t, t):
+            t, base = have.t, have.base  # same time axis: share it
+        else:
+            base = time_base(t)
+        values = {n: _as_float(frame[n]) for n in frame.columns if n != cat.T}
+        return Columns(t, base, values)
