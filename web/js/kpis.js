@@ -1,5 +1,6 @@
 // Headline KPI badges shared by the Runs and Run pages. Values come from the server
-// (analysis.pipeline.headline_kpis); the page only formats them.
+// (analysis.pipeline.headline_kpis), in the units the page shows (angles in degrees,
+// converted by analysis.display on the server); the page only formats them.
 import { el, fmt } from "./api.js";
 import { eventColour } from "./palette.js";
 
@@ -29,24 +30,28 @@ export const HEADLINE = [
     key: "roll_error_rms",
     kind: "roll_error",
     label: "roll err RMS",
-    title: "RMS of roll reference minus roll [rad]",
-    format: (v) => `${fmt(v, 2)} rad`,
+    title: "RMS of roll reference minus roll",
+    format: (v, unit) => `${fmt(v, 2)} ${unit}`.trim(),
   },
 ];
 
-export function badges(kpis) {
+// kpis: SI values by key (used when `shown` is absent); shown: {key: {value, unit}}
+// as the server converted them for display.
+export function badges(kpis, shown = null) {
   const box = el("div", { className: "badges" });
   if (!kpis) {
     box.append(el("span", { className: "badge muted" }, "not analysed"));
     return box;
   }
   for (const spec of HEADLINE) {
-    const value = kpis[spec.key];
+    const display = shown && shown[spec.key] ? shown[spec.key] : null;
+    const value = display ? display.value : kpis[spec.key];
+    const unit = display ? display.unit : "";
     const badge = el(
       "span",
       { className: "badge", title: spec.title, dataset: { kpi: spec.key } },
       el("span", { className: "badge-stripe", style: { background: eventColour(spec.kind) } }),
-      el("span", { className: "badge-value" }, value === null || value === undefined ? "–" : spec.format(value)),
+      el("span", { className: "badge-value" }, value === null || value === undefined ? "–" : spec.format(value, unit)),
       el("span", { className: "badge-label" }, spec.label),
     );
     box.append(badge);

@@ -39,9 +39,9 @@ function showHead(meta) {
 }
 
 // ----- KPIs ---------------------------------------------------------------------
-function showKpis(headline, analysis) {
+function showKpis(headline, shown, analysis) {
   const strip = document.getElementById("kpis");
-  strip.replaceChildren(badges(headline));
+  strip.replaceChildren(badges(headline, shown));
   if (analysis) {
     const counts = analysis.event_counts || {};
     const summary = el("div", { className: "event-counts" });
@@ -121,13 +121,19 @@ function showEvents() {
         el("td", {}, e.channel || "robot"),
         el("td", { className: "num" }, e.start_s.toFixed(2)),
         el("td", { className: "num" }, fmt(e.duration_s, 3)),
-        el("td", { className: "num", title: e.detail && e.detail.signal ? e.detail.signal : "" }, e.peak === null ? "–" : `${fmt(e.peak, 3)} ${(e.detail && e.detail.unit) || ""}`),
+        el("td", { className: "num", title: e.detail && e.detail.signal ? e.detail.signal : "" }, peakText(e)),
       ),
     ),
   );
   document.getElementById("event-count").textContent = `${visibleEvents.length}`;
   document.getElementById("no-events").hidden = visibleEvents.length > 0;
   current = -1;
+}
+
+// The peak in the unit the server converted it to for display (angles in degrees).
+function peakText(e) {
+  const shown = e.shown || { peak: e.peak, unit: (e.detail && e.detail.unit) || "" };
+  return shown.peak === null || shown.peak === undefined ? "–" : `${fmt(shown.peak, 3)} ${shown.unit}`.trim();
 }
 
 function selectEvent(i) {
@@ -254,7 +260,7 @@ async function load() {
   timelines = new Timelines(document.getElementById("charts"), runId, panels, events);
   const drawn = timelines.draw();
   showHead(run);
-  showKpis(data.headline, analysis);
+  showKpis(data.headline, data.headline_shown, analysis);
   showDetectors(analysis);
   showIngest(run);
   showEvents();
