@@ -51,7 +51,7 @@ def data_dir(args: argparse.Namespace) -> str:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    """Build the full parser from every command module that is present."""
+    """Build the full parser from every command module."""
     parser = argparse.ArgumentParser(
         prog="outrigger",
         description="Field-test log analysis for wheel-legged balancing robots.",
@@ -59,13 +59,7 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
     for name in COMMAND_MODULES:
-        try:
-            module = importlib.import_module(name)
-        except ModuleNotFoundError as exc:
-            if exc.name == name:
-                continue  # that command group is not part of this build
-            raise
-        module.register(sub)
+        importlib.import_module(name).register(sub)
     return parser
 
 

@@ -16,9 +16,7 @@ START_US = 1_795_858_260_000_000  # 2026-11-28T09:31:00Z
 
 
 @pytest.fixture(autouse=True)
-def only_archive_commands(monkeypatch, tmp_path):
-    # Other command groups may be mid-development; these tests need only this one.
-    monkeypatch.setattr(cli, "COMMAND_MODULES", ("server.cli_archive",))
+def data_dir_from_env(monkeypatch, tmp_path):
     monkeypatch.setenv(cli.DATA_ENV, str(tmp_path / "env-data"))
 
 
