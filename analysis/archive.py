@@ -442,7 +442,12 @@ class Archive:
             current = run_dir / "results"
             if current.exists():
                 os.rename(current, old)
-            os.rename(new, current)
+            try:
+                os.rename(new, current)
+            except BaseException:
+                if old.exists():  # put the previous results back
+                    os.rename(old, current)
+                raise
             shutil.rmtree(old, ignore_errors=True)
         finally:
             shutil.rmtree(staging, ignore_errors=True)

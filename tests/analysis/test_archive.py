@@ -5,6 +5,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import sqlite3
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -260,3 +261,49 @@ def test_meta_json_is_strict_json(tmp_path):
     out = _run(tmp_path, archive)
     text = (archive.root / "runs" / out.run_id / "meta.json").read_text()
     json.loads(text, parse_constant=lambda c: pytest.fail(f"non-standard JSON constant {c}"))
+
+
+def _results(kpi: int) -> tuple[pd.DataFrame, pd.DataFrame, dict[str, int]]:
+    events = pd.DataFrame({"kind": ["slip"], "start_s": [0.1], "end_s": [0.2]})
+    series = pd.DataFrame({"t": np.arange(5) * 0.1, "slip_ratio": np.zeros(5)})
+    return events, series, {"kpi": kpi}
+
+
+def test_failed_results_swap_keeps_the_previous_results(tmp_path, monkeypatch):
+    archive = Archive(tmp_path / "data")
+    out = _run(tmp_path, archive)
+    archive.write_results(out.run_id, *_results(1))
+    import analysis.archive as archive_mod
+
+    real = archive_mod.os.rename
+
+    def failing(src, dst):
+        # The new results moving into the run folder (after the old ones moved out).
+        if Path(src).name == "results" and Path(src).parent.parent.name == "staging":
+            raise OSError("disk error (simulated)")
+        return real(src, dst)
+
+    monkeypatch.setattr(archive_mod.os, "rename", failing)
+    with pytest.raises(OSError, match="simulated"):
+        archive.write_results(out.run_id, *_results(2))
+    monkeypatch.undo()
+    # The previous analysis is still there, whole; nothing is left in staging.
+    _, summary = archive.read_results(out.run_id)
+    assert summary == {"kpi": 1}
+    assert archive.list_runs()[0]["analysed"] is True
+    assert list((archive.root / "staging").iterdir()) == []
+
+
+def test_failed_catalog_row_at_commit_stores_nothing(tmp_path, monkeypatch):
+    archive = Archive(tmp_path / "data")
+    _run(tmp_path, archive, "first")
+    before = _snapshot(archive)
+
+    def failing(meta):
+        raise sqlite3.OperationalError("database is locked (simulated)")
+
+    monkeypatch.setattr(archive, "_upsert_row", failing)
+    with pytest.raises(sqlite3.OperationalError, match="simulated"):
+        _run(tmp_path, archive, "second", n=500)
+    monkeypatch.undo()
+    assert _snapshot(archive) == before
