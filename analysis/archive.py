@@ -301,6 +301,7 @@ class Archive:
     ) -> dict[str, Any]:
         """Change a run's name, notes or tags (atomic rewrite of meta.json, then the catalog)."""
         meta = self.get_meta(run_id)
+        before = dict(meta)
         if name is not None:
             meta["name"] = str(name)
         if notes is not None:
@@ -309,8 +310,13 @@ class Archive:
             if not isinstance(tags, list | tuple) or not all(isinstance(t, str) for t in tags):
                 raise ArchiveError(f"Tags must be a list of strings, found {tags!r}.")
             meta["tags"] = list(dict.fromkeys(t.strip() for t in tags if t.strip()))
-        write_json(self._run_dir(run_id) / "meta.json", meta)
-        self._upsert_row(meta)
+        path = self._run_dir(run_id) / "meta.json"
+        write_json(path, meta)
+        try:
+            self._upsert_row(meta)
+        except BaseException:
+            write_json(path, before)  # keep meta.json and the catalog in agreement
+            raise
         return meta
 
     def delete_run(self, run_id: str) -> None:

@@ -294,6 +294,24 @@ def test_failed_results_swap_keeps_the_previous_results(tmp_path, monkeypatch):
     assert list((archive.root / "staging").iterdir()) == []
 
 
+def test_failed_catalog_update_leaves_meta_as_before(tmp_path, monkeypatch):
+    archive = Archive(tmp_path / "data")
+    out = _run(tmp_path, archive, tags=["x"])
+    before = _snapshot(archive)
+
+    def failing(meta):
+        raise sqlite3.OperationalError("database is locked (simulated)")
+
+    monkeypatch.setattr(archive, "_upsert_row", failing)
+    with pytest.raises(sqlite3.OperationalError, match="simulated"):
+        archive.update_meta(out.run_id, name="renamed", tags=["z"])
+    monkeypatch.undo()
+    # meta.json (the truth) and the catalog still agree: the change was not made.
+    assert _snapshot(archive) == before
+    assert archive.get_meta(out.run_id).get("name") != "renamed"
+    assert [r["run_id"] for r in archive.list_runs(tag="x")] == [out.run_id]
+
+
 def test_failed_catalog_row_at_commit_stores_nothing(tmp_path, monkeypatch):
     archive = Archive(tmp_path / "data")
     _run(tmp_path, archive, "first")
