@@ -14,7 +14,7 @@ from typing import Any
 
 import pytest
 from compare_archive import CompareArchive, stock
-from conftest import LiveServer
+from live_server import LiveServer
 
 from analysis.archive import Archive
 from analysis.compare import compare_archived
