@@ -249,6 +249,11 @@ def compare_runs(
             f"A comparison needs at least one run of each version, found {len(runs_a)} A "
             f"and {len(runs_b)} B runs."
         )
+    if seed < 0:
+        raise CompareError(
+            f"The bootstrap seed must be a whole number >= 0, found {seed}. "
+            "Give 0 or a positive seed."
+        )
     runs = list(runs_a) + list(runs_b)
     ids = [r.run_id for r in runs]
     traces: list[CourseTrace] = [course_trace(r.frame, r.profile) for r in runs]

@@ -13,10 +13,11 @@ import importlib
 import logging
 import shutil
 import tempfile
-from collections.abc import AsyncIterator
+from collections.abc import AsyncIterator, Mapping
 from contextlib import asynccontextmanager
 from pathlib import Path
 from types import ModuleType
+from typing import Any
 
 import plotly
 from fastapi import FastAPI, Request
@@ -75,6 +76,17 @@ def plotly_js_path() -> Path:
 def error_body(kind: str, message: str) -> dict[str, dict[str, str]]:
     """The one JSON error shape the pages show as-is."""
     return {"error": {"type": kind, "message": message}}
+
+
+def validation_part(err: Mapping[str, Any]) -> str:
+    """One request validation error as ``where: what`` (never an empty ``where``)."""
+    loc = [str(p) for p in err.get("loc", ())]
+    if err.get("type") == "json_invalid":
+        ctx = err.get("ctx") or {}
+        at = f" at character {loc[-1]}" if len(loc) > 1 else ""
+        return f"request body: not valid JSON ({ctx.get('error', 'decode error')}{at})"
+    where = ".".join(p for p in loc if p != "body") or "request body"
+    return f"{where}: {err.get('msg', 'invalid')}"
 
 
 def _load_optional(names: tuple[str, ...]) -> list[ModuleType]:
@@ -165,12 +177,14 @@ def create_app(
 
     @app.exception_handler(RequestValidationError)
     async def validation_error(request: Request, exc: RequestValidationError) -> JSONResponse:
-        parts = []
-        for err in exc.errors():
-            where = ".".join(str(p) for p in err.get("loc", ()) if p != "body")
-            parts.append(f"{where}: {err.get('msg', 'invalid')}")
+        parts = [validation_part(err) for err in exc.errors()]
         return JSONResponse(
-            error_body("RequestError", "Bad request: " + "; ".join(parts) + "."), status_code=400
+            error_body(
+                "RequestError",
+                "Bad request: " + "; ".join(parts) + ". Fix it and send the request again "
+                "(the API reference page, /api.html, lists every parameter).",
+            ),
+            status_code=400,
         )
 
     @app.exception_handler(Exception)

@@ -38,7 +38,17 @@ def get_config(kind: Kind, name: str, archive: ArchiveDep) -> FileResponse:
     return FileResponse(archive.config_path(kind, name), media_type="text/plain; charset=utf-8")
 
 
-@router.put("/{kind}/{name}", dependencies=[Depends(require_write)])
+@router.put(
+    "/{kind}/{name}",
+    dependencies=[Depends(require_write)],
+    openapi_extra={
+        "requestBody": {
+            "required": True,
+            "description": "The TOML text of the profile or channel map.",
+            "content": {"text/plain": {"schema": {"type": "string"}}},
+        }
+    },
+)
 async def save_config(kind: Kind, name: str, request: Request, archive: ArchiveDep) -> dict:
     """Store a profile or map (the TOML text is the request body); it is checked first."""
     if not _NAME.match(name):

@@ -9,6 +9,7 @@ archive. Values and units are those shown on the page (angles in degrees, from
 
 from __future__ import annotations
 
+import math
 from functools import partial
 from typing import Annotated, Any, Literal
 
@@ -141,6 +142,12 @@ def series(
     names = [s.strip() for s in signals.split(",") if s.strip()]
     if not names:
         raise ApiError("Name at least one signal: ?signals=roll,pitch")
+    for label, value in (("t0", t0), ("t1", t1)):
+        if value is not None and not math.isfinite(value):
+            raise ApiError(
+                f"{label} must be a finite time in seconds since the run's first sample, "
+                f"found {value}. Give a number such as {label}=12.5, or leave it out."
+            )
     if not MIN_POINTS <= points <= MAX_POINTS:
         raise ApiError(f"points must be between {MIN_POINTS} and {MAX_POINTS}, found {points}.")
     if t0 is not None and t1 is not None and not t1 > t0:

@@ -49,6 +49,25 @@ INGEST_SHARE = 0.6
 
 _SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._+\- ]{0,200}$")
 
+#: The form as OpenAPI describes it (the body is parsed by hand, so FastAPI cannot infer it).
+UPLOAD_BODY: dict[str, Any] = {
+    "required": True,
+    "content": {
+        "multipart/form-data": {
+            "schema": {
+                "type": "object",
+                "required": [LOG_FIELD],
+                "properties": {
+                    LOG_FIELD: {"type": "array", "items": {"type": "string", "format": "binary"}},
+                    MAP_FIELD: {"type": "string", "format": "binary"},
+                    PROFILE_FIELD: {"type": "string", "format": "binary"},
+                    **{name: {"type": "string"} for name in TEXT_FIELDS},
+                },
+            }
+        }
+    },
+}
+
 
 def check_file_name(raw: str) -> str:
     """Return an uploaded file's name if it is a plain file name, else raise ApiError (400)."""
@@ -232,7 +251,12 @@ def _config(
     )
 
 
-@router.post("/upload", status_code=202, dependencies=[Depends(require_write)])
+@router.post(
+    "/upload",
+    status_code=202,
+    dependencies=[Depends(require_write)],
+    openapi_extra={"requestBody": UPLOAD_BODY},
+)
 async def upload(request: Request, archive: ArchiveDep, jobs: JobsDep) -> dict[str, Any]:
     """Upload a run (multipart form) and start its ingest and analysis as a background job.
 

@@ -150,6 +150,14 @@ def test_no_runs_is_an_error() -> None:
         compare_runs([], [make_run("a")])
 
 
+def test_negative_seed_is_an_error_not_a_crash() -> None:
+    # numpy's SeedSequence takes only non-negative integers; a negative seed must be
+    # refused with our error (found by the API fuzz test), not a bare ValueError.
+    a = make_run("a")
+    with pytest.raises(CompareError, match=r"seed must be a whole number >= 0, found -1\."):
+        compare_runs([a], [a], n_boot=N_BOOT, seed=-1)
+
+
 def test_same_seed_same_result() -> None:
     a, b = make_run("a", seed=1), make_run("b", seed=2)
     one = compare_runs([a], [b], n_boot=N_BOOT, seed=7).to_dict()
