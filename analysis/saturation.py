@@ -37,15 +37,23 @@ METHOD_REQUEST = "request beyond limiter"
 METHOD_AVAILABLE = "at available torque"
 
 
-def torque_available(speed: np.ndarray | float, actuator: Actuator) -> np.ndarray:
+def torque_available(
+    speed: np.ndarray | float,
+    actuator: Actuator,
+    torque: np.ndarray | float | None = None,
+) -> np.ndarray:
     """Torque the drive can give at a joint speed.
 
     Parameters
     ----------
     speed : ndarray or float
-        Joint speed; its sign is ignored. [rad/s]
+        Joint speed. [rad/s]
     actuator : Actuator
         Actuator with ``peak_torque`` [N*m] and optional motor constants.
+    torque : ndarray or float, optional
+        Torque asked of the drive, for its direction only: where it opposes the
+        speed the drive is braking. Without it every sample is taken as motoring.
+        [N*m]
 
     Returns
     -------
@@ -62,15 +70,23 @@ def torque_available(speed: np.ndarray | float, actuator: Actuator) -> np.ndarra
         tau = k_t (V - k_e |w|) / R, capped at the peak torque, floored at 0.
 
     Stall torque (w = 0) is ``k_t V / R``; the no-load speed (tau = 0) is
-    ``V / k_e``. This is the motoring quadrant; when braking the back-EMF
-    helps the drive, so the line is a conservative limit there.
+    ``V / k_e``. That is the motoring quadrant. When braking (torque opposing
+    the speed) a four-quadrant drive applies -V and the back-EMF adds to it:
+    ``I = (V + k_e |w|) / R``, so
+
+        tau_brake = k_t (V + k_e |w|) / R, capped at the peak torque.
     """
-    w = np.abs(np.asarray(speed, dtype=float))
+    w_signed = np.asarray(speed, dtype=float)
+    w = np.abs(w_signed)
     peak = actuator.peak_torque
     m = actuator.motor
     if m is None:
         return np.full(w.shape, peak, dtype=float)
-    tau = m.k_t * (m.bus_voltage - m.k_e * w) / m.resistance  # [1] ch. 3
+    tau = m.k_t * (m.bus_voltage - m.k_e * w) / m.resistance  # [1] ch. 3, motoring
+    if torque is not None:
+        braking = np.asarray(torque, dtype=float) * w_signed < 0
+        tau_brake = m.k_t * (m.bus_voltage + m.k_e * w) / m.resistance  # [1] ch. 3, braking
+        tau = np.where(braking, tau_brake, tau)
     return np.clip(tau, 0.0, peak)
 
 
@@ -172,7 +188,8 @@ def _analyse_actuator(
             f"the torque-speed line. Map the joint velocity to use the motor constants."
         )
     else:
-        available = torque_available(vel if vel is not None else np.zeros(t.size), act)
+        asked = cmd if cmd is not None else req
+        available = torque_available(vel if vel is not None else np.zeros(t.size), act, asked)
     sat, valid, sig, sig_name, method, limit = _saturation_mask(t, act, req, cmd, available, th)
     if method == METHOD_AVAILABLE and cmd is None:
         notes.append(

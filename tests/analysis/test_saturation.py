@@ -61,6 +61,16 @@ def test_stall_torque_and_no_load_speed_of_the_dc_motor_line() -> None:
     assert tau == pytest.approx([12.0, 6.0, 6.0, 0.0, 0.0], abs=1e-12)
 
 
+def test_braking_quadrant_adds_the_back_emf() -> None:
+    act = Actuator("wheel_l", "wheel", "l", peak_torque=100.0, continuous_torque=5.0, motor=MOTOR)
+    w = np.array([24.0, 24.0, -24.0, 60.0])
+    asked = np.array([1.0, -1.0, 1.0, -1.0])  # motoring, braking, braking, braking
+    # DC motor equations (Hughes & Drury, ch. 3), drive applying -V while the back-EMF
+    # k_e w adds: tau = k_t (V + k_e |w|) / R = 0.5 (24 + 0.5 * 24) / 1 = 18 N*m at 24 rad/s,
+    # 0.5 (24 + 30) = 27 N*m at 60 rad/s, beyond the no-load speed of the motoring line.
+    assert torque_available(w, act, asked) == pytest.approx([6.0, 18.0, 18.0, 27.0])
+
+
 def test_torque_speed_line_is_capped_at_the_peak() -> None:
     act = Actuator("wheel_l", "wheel", "l", peak_torque=8.0, continuous_torque=5.0, motor=MOTOR)
     # Line 12 - 0.25 w (Hughes & Drury, ch. 3) meets the 8 N*m cap at w = 16 rad/s.
