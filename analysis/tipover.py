@@ -532,6 +532,15 @@ def _argmin_supported(margin: np.ndarray, y_zmp: np.ndarray) -> int | None:
     return int(np.argmin(np.where(ok, margin, np.inf)))
 
 
-def _side(y_zmp: float) -> str:
-    """Side the ZMP moved toward: the loaded (outer) wheel, toward which the robot would tip."""
+#: A ZMP closer to the centre line than this has no side (0.1 mm; common practice, no source).
+SIDE_DEADBAND_M = 1e-4
+
+
+def _side(y_zmp: float) -> str | None:
+    """Side the ZMP moved toward: the loaded (outer) wheel, toward which the robot would tip.
+
+    None when the ZMP is on the centre line (within :data:`SIDE_DEADBAND_M`).
+    """
+    if not abs(y_zmp) > SIDE_DEADBAND_M:
+        return None
     return "left" if y_zmp > 0 else "right"

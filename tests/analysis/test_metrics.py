@@ -40,6 +40,13 @@ def test_itae_of_exponential_decay() -> None:
     assert itae(t, e) == pytest.approx(E0 * TAU**2, rel=1e-5)
 
 
+def test_itae_counts_time_from_the_first_sample() -> None:
+    t, e = _decay()
+    # ITAE weighs the error by the time since the log started (Dorf & Bishop define it
+    # from the step at t = 0): a log whose clock starts at 5 s must give the same e0 tau^2.
+    assert itae(t + 5.0, e) == pytest.approx(E0 * TAU**2, rel=1e-5)
+
+
 def test_rms_of_a_sine() -> None:
     t = np.linspace(0.0, 10.0, 10_001)  # exactly 10 whole periods of 1 Hz
     # RMS of a sine of amplitude A is A / sqrt(2) (from memory); 1e-6 is trapezoid error.

@@ -102,6 +102,16 @@ def test_rms_of_a_sine_over_whole_periods() -> None:
     assert rms[full] == pytest.approx(np.full(full.sum(), A / np.sqrt(2)), rel=1e-4)
 
 
+def test_rms_of_a_ramp_over_a_full_window() -> None:
+    t = _t(3.0, 1000.0)
+    rms = sliding_rms(t, 2.0 * t, window_s=1.0)
+    k = int(np.searchsorted(t, 1.0))
+    # Analytic: x = a t over (0, W] has mean square a^2 W^2 / 3, so RMS = a W / sqrt(3).
+    # The trapezoid rule is exact for the mean of a linear x but not of x^2: its error on
+    # x^2 is a^2 dt^2 / 6 per unit time, ~ 1e-6 relative here.
+    assert rms[k] == pytest.approx(2.0 * 1.0 / np.sqrt(3.0), rel=1e-5)
+
+
 def test_rms_ignores_data_gaps_and_nan() -> None:
     t = np.concatenate((_t(1.0), 5.0 + _t(1.0)))
     x = np.full(t.size, 2.0)

@@ -385,3 +385,22 @@ def test_detector_skips_without_roll_or_force() -> None:
         _profile({"model": "linear", "offset_m": 0.05, "leg_factor": 1.0}),
     )
     assert no_legs.skipped is not None and cat.LEG_L_LENGTH in no_legs.skipped
+
+
+def test_a_centred_zmp_has_no_side() -> None:
+    n = 400
+    frame = _frame(
+        n,
+        {
+            cat.ACCEL_X: np.zeros(n),
+            cat.ACCEL_Y: np.zeros(n),
+            cat.ACCEL_Z: np.full(n, G),
+            cat.ROLL: np.zeros(n),
+            cat.PITCH: np.zeros(n),
+        },
+    )
+    kpis = detect_tip_margin(frame, _profile()).kpis
+    # Upright at rest: the ZMP is under the CoM on the centre line (margin 1 by the
+    # definition 1 - |y_zmp| / (b/2)), so neither wheel is the loaded one.
+    assert kpis["min_margin"] == pytest.approx(1.0)
+    assert kpis["side_of_min"] is None
