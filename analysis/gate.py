@@ -24,7 +24,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
-from analysis.bootstrap import WORSE
+from analysis.bootstrap import LEVEL, WORSE
 from analysis.compare import Comparison, KpiRow
 from analysis.course_kpis import METRICS
 from analysis.errors import CompareError
@@ -172,7 +172,7 @@ def _fmt(x: float) -> str:
     return "n/a" if not math.isfinite(x) else f"{x:.4g}"
 
 
-def _check_limit(rule: Rule, row: KpiRow, decide_on: str) -> GateCheck:
+def _check_limit(rule: Rule, row: KpiRow, decide_on: str, level_pct: str) -> GateCheck:
     pct = rule.kind.endswith("_pct")
     up = rule.kind.startswith("increase")
     unit = "%" if pct else (f" {row.unit}" if row.unit not in ("-", "") else "")
@@ -193,7 +193,11 @@ def _check_limit(rule: Rule, row: KpiRow, decide_on: str) -> GateCheck:
             f"interval {_fmt(row.low)}..{_fmt(row.high)}); a gate does not pass what it cannot check.",
         )  # fmt: skip
     broken = value > rule.limit
-    what = "change" if decide_on == "estimate" else "lower end of the 95% interval of the change"
+    what = (
+        "change"
+        if decide_on == "estimate"
+        else f"lower end of the {level_pct} interval of the change"
+    )
     msg = (
         f"{rule.key}: {row.label} {direction} from {_fmt(row.a)} to {_fmt(row.b)} "
         f"({what} {_fmt(value)}{unit}; limit {_fmt(rule.limit)}{unit})"
@@ -216,6 +220,7 @@ def check_gate(comparison: Comparison, gate: Gate) -> list[GateCheck]:
         broken (it cannot be checked).
     """
     rows = comparison.kpis
+    level_pct = f"{100 * float(comparison.settings.get('level', LEVEL)):g}%"
     checks: list[GateCheck] = []
     for rule in gate.rules:
         matched = _matching(rows, rule.target)
@@ -241,8 +246,8 @@ def check_gate(comparison: Comparison, gate: Gate) -> list[GateCheck]:
                 checks.append(
                     GateCheck(rule.key, row.key, broken,
                               f"no_worse: {row.label} verdict '{row.verdict}' (B - A "
-                              f"{_fmt(row.diff)}, 95% interval {_fmt(row.low)}..{_fmt(row.high)})")
+                              f"{_fmt(row.diff)}, {level_pct} interval {_fmt(row.low)}..{_fmt(row.high)})")
                 )  # fmt: skip
             else:
-                checks.append(_check_limit(rule, row, gate.decide_on))
+                checks.append(_check_limit(rule, row, gate.decide_on, level_pct))
     return checks

@@ -258,3 +258,11 @@ def test_roll_lag_is_not_reported_when_the_reference_carries_no_timing(run_a) ->
     flat.frame = flat.frame.assign(**{cat.ROLL_REF: noise})
     comp = compare_runs([flat], [flat], n_boot=N_BOOT)
     assert np.isnan(comp.kpi("roll_lag").a)
+
+
+def test_gate_messages_name_the_interval_level_used(run_a) -> None:
+    run_b = make_run("b", seed=1, extra_roll_error=0.004)
+    comp = compare_runs([run_a], [run_b], n_boot=N_BOOT, level=0.9)
+    gate = gate_from_mapping({"no_worse": ["roll_error_rms"]})
+    messages = [c.message for c in check_gate(comp, gate)]
+    assert messages and all("90% interval" in m for m in messages)
