@@ -159,11 +159,17 @@ class Archive:
         """Bring the catalog in line with the run folders (the truth)."""
         folders = self._folder_ids()
         with self._db() as con:
-            rows = {r[0] for r in con.execute("SELECT run_id FROM runs")}
+            flags = {r[0]: bool(r[1]) for r in con.execute("SELECT run_id, analysed FROM runs")}
+        rows = set(flags)
         for gone in rows - folders:
             self._delete_row(gone)
         for run_id in folders - rows:
             self._upsert_row(self.get_meta(run_id))
+        for run_id in folders & rows:
+            # A crash between storing results and updating the row leaves a stale flag.
+            analysed = (self.root / "runs" / run_id / "results" / "summary.json").is_file()
+            if flags[run_id] != analysed:
+                self._upsert_row(self.get_meta(run_id))
 
     def _upsert_row(self, meta: dict[str, Any]) -> None:
         run_id = meta["run_id"]

@@ -325,3 +325,13 @@ def test_failed_catalog_row_at_commit_stores_nothing(tmp_path, monkeypatch):
         _run(tmp_path, archive, "second", n=500)
     monkeypatch.undo()
     assert _snapshot(archive) == before
+
+
+def test_stale_analysed_flag_is_repaired_on_open(tmp_path):
+    archive = Archive(tmp_path / "data")
+    out = _run(tmp_path, archive)
+    archive.write_results(out.run_id, *_results(1))
+    # Killed between storing the results and updating the catalog row:
+    with sqlite3.connect(archive.root / "catalog.sqlite") as con:
+        con.execute("UPDATE runs SET analysed = 0")
+    assert [r["analysed"] for r in Archive(archive.root).list_runs()] == [True]
