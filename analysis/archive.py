@@ -330,7 +330,11 @@ class Archive:
         path = self._run_dir(run_id)
         trash = self.root / "staging" / f"{os.getpid()}-del-{secrets.token_hex(4)}"
         os.rename(path, trash)
-        self._delete_row(run_id)
+        try:
+            self._delete_row(run_id)
+        except BaseException:
+            os.rename(trash, path)  # the run stays whole and listed
+            raise
         delete_fleet_rows(self.root, run_id)
         shutil.rmtree(trash, ignore_errors=True)
 

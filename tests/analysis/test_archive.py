@@ -335,3 +335,19 @@ def test_stale_analysed_flag_is_repaired_on_open(tmp_path):
     with sqlite3.connect(archive.root / "catalog.sqlite") as con:
         con.execute("UPDATE runs SET analysed = 0")
     assert [r["analysed"] for r in Archive(archive.root).list_runs()] == [True]
+
+
+def test_failed_catalog_delete_keeps_the_run_whole(tmp_path, monkeypatch):
+    archive = Archive(tmp_path / "data")
+    out = _run(tmp_path, archive)
+    before = _snapshot(archive)
+
+    def failing(run_id):
+        raise sqlite3.OperationalError("database is locked (simulated)")
+
+    monkeypatch.setattr(archive, "_delete_row", failing)
+    with pytest.raises(sqlite3.OperationalError, match="simulated"):
+        archive.delete_run(out.run_id)
+    monkeypatch.undo()
+    assert _snapshot(archive) == before
+    assert archive.get_meta(out.run_id)["run_id"] == out.run_id
