@@ -31,6 +31,7 @@ import pandas as pd
 
 from analysis import catalogue as cat
 from analysis.align import Alignment, CourseTrace, align_traces, course_trace, forward_speed
+from analysis.archive_courses import course_marks
 from analysis.bootstrap import (
     LEVEL,
     N_BOOT,
@@ -430,8 +431,12 @@ def compare_archived(
     ids_a, ids_b : sequence of str
         Run ids of version A and version B.
     **kwargs
-        Passed to :func:`compare_runs`.
+        Passed to :func:`compare_runs`. Without ``marks_m``, the distance marks
+        stored for the runs' course (``analysis.archive_courses``) are used, if any.
     """
     runs_a = [run_data(archive, i) for i in ids_a]
     runs_b = [run_data(archive, i) for i in ids_b]
+    courses = _course_names([*runs_a, *runs_b])
+    if kwargs.get("marks_m") is None and len(courses) == 1:
+        kwargs["marks_m"] = course_marks(archive.root, courses.pop())
     return compare_runs(runs_a, runs_b, **kwargs), runs_a, runs_b

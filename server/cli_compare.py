@@ -19,6 +19,7 @@ from pathlib import Path
 from typing import Any
 
 from analysis.archive import Archive
+from analysis.archive_courses import course_marks, delete_course_marks, save_course_marks
 from analysis.compare import Comparison, KpiRow, compare_archived
 from analysis.compare_view import overlay
 from analysis.errors import CompareError
@@ -29,7 +30,7 @@ from server.report import build_report
 
 
 def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
-    """Add the ``compare`` command."""
+    """Add the ``compare`` and ``course-marks`` commands."""
     p = sub.add_parser(
         "compare",
         help="compare version A with version B on one course (KPIs, intervals, gate)",
@@ -47,7 +48,10 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p.add_argument(
         "--marks",
         metavar="M1,M2,...",
-        help="segment boundaries in metres along A's course (default: from the curvature)",
+        help=(
+            "segment boundaries in metres along A's course (default: the marks stored for "
+            "the course with `outrigger course-marks`, else from the curvature)"
+        ),
     )
     p.add_argument(
         "--block-m",
@@ -59,6 +63,39 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p.add_argument("--seed", type=int, default=0, help="random seed of the bootstrap (0)")
     add_data_option(p)
     p.set_defaults(func=run_compare)
+
+    m = sub.add_parser(
+        "course-marks",
+        help="store, show or clear the distance marks that split a course into segments",
+        description=(
+            "Distance marks (metres from the course start) stored for a course are used by "
+            "every comparison of runs on it. Without MARKS, show the stored ones."
+        ),
+    )
+    m.add_argument("course", metavar="COURSE", help="course name as given at ingest")
+    m.add_argument("marks", metavar="MARKS", nargs="?", help="comma-separated metres: 12.5,40,75")
+    m.add_argument("--clear", action="store_true", help="forget the course's marks")
+    add_data_option(m)
+    m.set_defaults(func=run_course_marks)
+
+
+def run_course_marks(args: argparse.Namespace) -> int:
+    """Store, show or clear a course's distance marks."""
+    root = Archive(data_dir(args)).root
+    if args.clear:
+        had = delete_course_marks(root, args.course)
+        print(f"{args.course}: marks cleared" if had else f"{args.course}: no marks were stored")
+        return 0
+    if args.marks is not None:
+        path = save_course_marks(root, args.course, _marks(args.marks) or [])
+        print(f"{args.course}: marks stored in {path}")
+        return 0
+    marks = course_marks(root, args.course)
+    if marks is None:
+        print(f"{args.course}: no marks stored; comparisons split it at curvature changes")
+    else:
+        print(f"{args.course}: marks at " + ", ".join(f"{x:g} m" for x in marks))
+    return 0
 
 
 def _ids(text: str, which: str) -> list[str]:

@@ -1,0 +1,76 @@
+"""Distance marks stored per course, so every comparison on it shares its segments.
+
+A test team that knows its course (the gate at 12.5 m, the wet plate at 40 m, ...)
+stores the boundaries once; comparisons of runs on that course then split it at
+those marks instead of at curvature changes. Stored next to the profiles and maps:
+``<archive>/configs/courses/<course>.toml`` with ``marks_m = [...]``.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+import secrets
+import tomllib
+from collections.abc import Sequence
+from pathlib import Path
+
+from analysis.errors import CompareError
+
+COURSE_NAME_RE = re.compile(r"^[A-Za-z0-9_-]{1,80}$")
+
+
+def _path(root: str | os.PathLike[str], course: str) -> Path:
+    if not COURSE_NAME_RE.match(course):
+        raise CompareError(
+            f"Course name {course!r} cannot name a marks file: use letters, digits, '_' and '-' "
+            f"(1-80 characters) in the course name to store marks for it."
+        )
+    return Path(root) / "configs" / "courses" / f"{course}.toml"
+
+
+def check_marks(marks_m: Sequence[float]) -> list[float]:
+    """Check distance marks: finite, >= 0, strictly increasing. [m]"""
+    marks = [float(m) for m in marks_m]
+    if not marks:
+        raise CompareError("Give at least one distance mark in metres, such as 12.5,40,75.")
+    if not all(math.isfinite(m) and m >= 0 for m in marks):
+        raise CompareError(f"Distance marks must be finite metres >= 0, found {marks}.")
+    if any(b <= a for a, b in zip(marks, marks[1:], strict=False)):
+        raise CompareError(f"Distance marks must increase along the course, found {marks}.")
+    return marks
+
+
+def save_course_marks(root: str | os.PathLike[str], course: str, marks_m: Sequence[float]) -> Path:
+    """Store (or replace) the distance marks of a course; return the file's path."""
+    marks = check_marks(marks_m)
+    path = _path(root, course)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.stem}.{secrets.token_hex(3)}.tmp")
+    tmp.write_text(f"# distance marks of course {course} [m]\nmarks_m = {marks}\n", "utf-8")
+    os.replace(tmp, path)
+    return path
+
+
+def course_marks(root: str | os.PathLike[str], course: str | None) -> list[float] | None:
+    """The stored marks of a course, or None when none are stored (or no course)."""
+    if not course or not COURSE_NAME_RE.match(course):
+        return None
+    path = _path(root, course)
+    if not path.is_file():
+        return None
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as exc:
+        raise CompareError(f"{path} is not valid TOML ({exc}); store the marks again.") from exc
+    return check_marks(data.get("marks_m", []))
+
+
+def delete_course_marks(root: str | os.PathLike[str], course: str) -> bool:
+    """Forget a course's marks; True if there were any."""
+    path = _path(root, course)
+    if path.is_file():
+        path.unlink()
+        return True
+    return False
