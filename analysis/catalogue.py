@@ -177,6 +177,7 @@ COM_HEIGHT = "com_height"  # m, L_c: CoM distance from the ground along body z
 ZMP_Y = "zmp_y"  # m, lateral ZMP in the heading frame, left positive
 TIP_MARGIN = "tip_margin"  # -, 1 - |y_zmp| / (b/2)
 STATIC_STABILITY_FACTOR = "static_stability_factor"  # -, b / (2 L_c)
+FORCE_ANGLE = "force_angle"  # rad, force-angle margin (Papadopoulos & Rey 1996)
 ROLL_ERROR = "roll_error"  # rad, roll_ref - roll
 ROLL_ZMP_LEAN = "roll_zmp_lean"  # rad, lean that centres the ZMP, -atan(f_y / f_z)
 
@@ -195,6 +196,7 @@ _DERIVED = [
     Signal(ZMP_Y, "m", "heading frame, left", "Lateral zero-moment point"),
     Signal(TIP_MARGIN, "", "1 centred, 0 inner wheel unloads", "Lateral tip-over margin"),
     Signal(STATIC_STABILITY_FACTOR, "", "b / (2 L_c)", "Static stability factor"),
+    Signal(FORCE_ANGLE, "rad", "0 at tip-over, negative beyond", "Force-angle tip-over margin"),
     Signal(ROLL_ERROR, "rad", "roll_ref - roll", "Roll tracking error"),
     Signal(ROLL_ZMP_LEAN, "rad", "as roll", "Lean that would centre the ZMP"),
 ]

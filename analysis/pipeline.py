@@ -44,7 +44,7 @@ if TYPE_CHECKING:
     from analysis.archive import Archive
 
 #: Bumped whenever a detector's definition changes, so stored results say what made them.
-ANALYSIS_VERSION = f"{__version__}+detectors.1"
+ANALYSIS_VERSION = f"{__version__}+detectors.2"
 
 Detector = Callable[[pd.DataFrame, RobotProfile, Thresholds | None], DetectorResult]
 

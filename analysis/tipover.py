@@ -56,6 +56,7 @@ import pandas as pd
 from analysis import catalogue as cat
 from analysis.catalogue import G0
 from analysis.events import DetectorResult, find_intervals, intervals_to_events
+from analysis.force_angle import force_angle_margin
 from analysis.metrics import FILTER_ORDER, FilterReport, lowpass_zero_phase, time_where
 from analysis.profile import RobotProfile, Thresholds
 
@@ -451,6 +452,7 @@ def detect_tip_margin(
     unsupported = (force.f_z < F_Z_MIN) & np.isfinite(roll) & np.isfinite(L_c)
     margin = np.where(unsupported, 0.0, margin)
     ssf = static_stability_factor(b, L_c)
+    angle = force_angle_margin(L_c, roll, force.f_y, force.f_z, b)
     result.notes = list(force.notes)
     result.series = pd.DataFrame(
         {
@@ -461,6 +463,7 @@ def detect_tip_margin(
             cat.ZMP_Y: y_zmp,
             cat.TIP_MARGIN: margin,
             cat.STATIC_STABILITY_FACTOR: ssf,
+            cat.FORCE_ANGLE: angle,
         }
     )
     unsupported_s, _ = time_where(t, unsupported, np.isfinite(margin))
@@ -518,6 +521,7 @@ def detect_tip_margin(
         "unsupported_s": unsupported_s,
         "event_count": len(events),
         "min_static_stability_factor": float(np.nanmin(ssf)) if np.isfinite(ssf).any() else None,
+        "min_force_angle": float(np.nanmin(angle)) if np.isfinite(angle).any() else None,
         "method": force.method,
         "accel_cutoff_hz": float(th.accel_cutoff),
     }

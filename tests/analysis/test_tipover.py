@@ -404,3 +404,6 @@ def test_a_centred_zmp_has_no_side() -> None:
     # definition 1 - |y_zmp| / (b/2)), so neither wheel is the loaded one.
     assert kpis["min_margin"] == pytest.approx(1.0)
     assert kpis["side_of_min"] is None
+    # Force-angle margin upright at rest: the angle from straight down to a contact b/2
+    # aside and L_c below is atan(b / (2 L_c)) (geometry; Papadopoulos & Rey 1996).
+    assert kpis["min_force_angle"] == pytest.approx(np.arctan(TRACK / (2 * COM_HEIGHT)))
