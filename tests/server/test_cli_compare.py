@@ -13,7 +13,7 @@ import pytest
 from analysis.course_kpis import RunData
 from analysis.errors import RunNotFoundError
 from analysis.events import events_frame
-from server import cli, cli_compare
+from server import cli_compare
 from server.cli import main
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "analysis"))
@@ -23,8 +23,9 @@ from compare_synth import hill_curvature, make_run  # noqa: E402
 class MemoryArchive:
     """The part of the Archive interface the compare command reads, over in-memory runs."""
 
-    def __init__(self, runs: dict[str, RunData]) -> None:
+    def __init__(self, runs: dict[str, RunData], root: Path) -> None:
         self.runs = runs
+        self.root = root  # holds no stored course marks: segments come from the curvature
 
     def _run(self, run_id: str) -> RunData:
         if run_id not in self.runs:
@@ -59,11 +60,9 @@ def runs() -> dict[str, RunData]:
 
 
 @pytest.fixture()
-def archive(runs, monkeypatch) -> MemoryArchive:
-    mem = MemoryArchive(runs)
+def archive(runs, monkeypatch, tmp_path) -> MemoryArchive:
+    mem = MemoryArchive(runs, tmp_path)
     monkeypatch.setattr(cli_compare, "Archive", lambda root: mem)
-    # Only this command group: the others are tested in their own files.
-    monkeypatch.setattr(cli, "COMMAND_MODULES", ("server.cli_compare",))
     return mem
 
 
