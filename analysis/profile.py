@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import tomllib
 from collections.abc import Mapping
-from dataclasses import asdict, dataclass, field, fields, replace
+from dataclasses import asdict, dataclass, field
 from functools import lru_cache
 from pathlib import Path
 from typing import Any
@@ -534,13 +534,3 @@ def load_profile(path: str | Path) -> RobotProfile:
     """
     p = Path(path)
     return profile_from_dict(_read_toml(p, ProfileError, "robot profile"), source=str(p))
-
-
-def with_thresholds(profile: RobotProfile, thresholds: Thresholds) -> RobotProfile:
-    """Return a copy of the profile using other thresholds."""
-    return replace(profile, thresholds=thresholds)
-
-
-def threshold_field_names() -> list[str]:
-    """SI field names of :class:`Thresholds` (for checks and docs)."""
-    return [f.name for f in fields(Thresholds)]
