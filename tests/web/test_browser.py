@@ -2,8 +2,8 @@
 
 Covers only what the browser does (the API has its own tests): the upload form
 and progress, the runs table, every timeline drawn with traces and event
-shapes, an event click zooming every chart, the keys stepping through events,
-and user text shown as text.
+bands (read back from the canvas pixels), an event click zooming every chart,
+drag-to-zoom, the keys, and user text shown as text.
 """
 
 from __future__ import annotations
@@ -20,7 +20,7 @@ pytestmark = pytest.mark.browser
 TIMELINES = ["torque", "wheels", "roll", "tip", "balance"]
 
 # Every chart's x range, as [[t0, t1], ...].
-RANGES_JS = "() => [...document.querySelectorAll('.chart')].map(d => d.layout.xaxis.range)"
+RANGES_JS = "() => [...document.querySelectorAll('.chart')].map(d => d.stripChart.range)"
 
 
 def _upload_through_the_page(page: Any, live: LiveServer, inputs: RunInputs, name: str) -> str:
@@ -60,7 +60,7 @@ def _wait_for_range_around(page: Any, start: float, end: float) -> list[list[flo
         """([s, e]) => {
             const charts = [...document.querySelectorAll('.chart')];
             return charts.length > 0 && charts.every(d => {
-                const r = d.layout.xaxis.range;
+                const r = d.stripChart.range;
                 return r && r[0] <= s && r[1] >= e && (r[1] - r[0]) < 60;
             });
         }""",
@@ -102,21 +102,20 @@ def test_run_page_draws_every_timeline_and_zooms_to_events(
     charts = page.evaluate(
         """() => [...document.querySelectorAll('.chart')].map(d => ({
             id: d.id,
-            traces: d.data.length,
-            points: d.data.reduce((n, t) => n + t.x.length, 0),
-            drawnLines: d.querySelectorAll('.scatterlayer .trace path.js-line').length,
-            eventShapes: (d.layout.shapes || []).filter(s => s.type === 'rect').length,
-            drawnShapes: d.querySelectorAll('.shapelayer path').length,
+            traces: d.stripChart.traces.length,
+            points: d.stripChart.traces.reduce((n, t) => n + t.x.length, 0),
+            bands: d.stripChart.bands.length,
+            drawn: d.stripChart.drawn,
         }))"""
     )
     assert [c["id"] for c in charts] == [f"chart-{p}" for p in TIMELINES]
     with_shapes = 0
     for chart, panel in zip(charts, plan, strict=True):
         assert chart["traces"] > 0 and chart["points"] > 0, chart
-        assert chart["drawnLines"] > 0, chart
+        assert chart["drawn"]["traces"] > 0 and chart["drawn"]["points"] > 0, chart
         if kinds_present & set(panel["event_kinds"]):
-            assert chart["eventShapes"] > 0, chart
-            assert chart["drawnShapes"] >= chart["eventShapes"], chart
+            assert chart["bands"] > 0, chart
+            assert chart["drawn"]["bands"] >= chart["bands"], chart
             with_shapes += 1
     assert with_shapes >= 3, f"demo events cover too few timelines: {sorted(kinds_present)}"
 
@@ -148,24 +147,70 @@ def test_run_page_draws_every_timeline_and_zooms_to_events(
     assert page.page_errors == []
 
 
-def test_zooming_one_chart_moves_all_of_them(page: Any, live: LiveServer, uploaded: str) -> None:
+def test_dragging_across_one_chart_zooms_all_of_them(
+    page: Any, live: LiveServer, uploaded: str
+) -> None:
     _open_run(page, live, uploaded)
-    page.evaluate(
-        "() => Plotly.relayout(document.getElementById('chart-tip'), "
-        "{'xaxis.range[0]': 10, 'xaxis.range[1]': 12})"
+    overlay = page.locator("#chart-tip canvas.strip-overlay")
+    overlay.scroll_into_view_if_needed()
+    box = overlay.bounding_box()
+    assert box is not None
+    geometry = page.evaluate(
+        "() => { const c = document.getElementById('chart-tip').stripChart;"
+        " return {range: c.range, left: c.plotLeft(), right: c.plotRight()}; }"
     )
+    a_px, b_px = geometry["left"] + 100.0, geometry["left"] + 300.0
+    page.mouse.move(box["x"] + a_px, box["y"] + 60)
+    page.mouse.down()
+    page.mouse.move(box["x"] + (a_px + b_px) / 2, box["y"] + 62)
+    page.mouse.move(box["x"] + b_px, box["y"] + 64)
+    page.mouse.up()
+    t0, t1 = geometry["range"]
+    width = geometry["right"] - geometry["left"]
+    # Linear pixel-to-time map of the plot area (the selection's ends, in seconds).
+    want = [t0 + (px - geometry["left"]) / width * (t1 - t0) for px in (a_px, b_px)]
+    page.wait_for_function("() => document.body.dataset.window.split(',')[0] !== '0'")
+    ranges = page.evaluate(RANGES_JS)
+    # one synchronised time axis; tolerance: a sub-pixel offset of the mouse position
+    px_s = (t1 - t0) / width
+    for r in ranges:
+        assert r == pytest.approx(want, abs=1.5 * px_s), (r, want)
+
+
+def test_a_window_that_fits_the_budget_comes_back_at_full_resolution(
+    page: Any, live: LiveServer, uploaded: str
+) -> None:
+    _open_run(page, live, uploaded)
+    page.evaluate("() => document.getElementById('charts').timelines.setRange([10, 12])")
     page.wait_for_function(
         """() => [...document.querySelectorAll('.chart')].every(d => {
-            const r = d.layout.xaxis.range; return Math.abs(r[0] - 10) < 1e-6 && Math.abs(r[1] - 12) < 1e-6;
+            const r = d.stripChart.range; return Math.abs(r[0] - 10) < 1e-6 && Math.abs(r[1] - 12) < 1e-6;
         })"""
     )
     # A 2 s window of the 200 Hz demo state log fits the budget: full resolution comes back.
     page.wait_for_function("() => document.body.dataset.window.startsWith('9.')")
     points = page.evaluate(
-        "() => document.getElementById('chart-roll').data[0].x.filter(t => t >= 10 && t <= 12).length"
+        "() => document.getElementById('chart-roll').stripChart.traces[0].x"
+        ".filter(t => t >= 10 && t <= 12).length"
     )
     # 200 Hz over 2 s, both ends inclusive: 401 samples (demo state rate; common practice).
     assert points == 401
+
+
+def test_keys_and_double_click_move_the_window(page: Any, live: LiveServer, uploaded: str) -> None:
+    _open_run(page, live, uploaded)
+    full = page.evaluate("() => document.getElementById('charts').timelines.fullRange")
+    page.evaluate("() => document.getElementById('charts').timelines.setRange([20, 24])")
+    page.locator("body").press("-")  # twice as wide, same centre
+    assert page.evaluate(RANGES_JS)[0] == pytest.approx([18, 26])
+    page.locator("body").press("ArrowRight")  # a quarter of the window later
+    assert page.evaluate(RANGES_JS)[0] == pytest.approx([20, 28])
+    page.keyboard.type("+")  # typed: in press(), "+" joins keys of a combination
+    assert page.evaluate(RANGES_JS)[0] == pytest.approx([22, 26])
+    page.locator("#chart-balance canvas.strip-overlay").dblclick()
+    ranges = page.evaluate(RANGES_JS)
+    assert all(r == pytest.approx(full) for r in ranges), (ranges, full)
+    assert page.page_errors == []
 
 
 def test_user_text_is_shown_as_text(page: Any, live: LiveServer, uploaded: str) -> None:

@@ -158,6 +158,15 @@ document.addEventListener("keydown", (ev) => {
   } else if (ev.key === "0" && timelines) {
     timelines.setRange(null);
     ev.preventDefault();
+  } else if ((ev.key === "+" || ev.key === "=") && timelines) {
+    timelines.zoomBy(0.5);
+    ev.preventDefault();
+  } else if (ev.key === "-" && timelines) {
+    timelines.zoomBy(2);
+    ev.preventDefault();
+  } else if ((ev.key === "ArrowLeft" || ev.key === "ArrowRight") && timelines) {
+    timelines.panBy(ev.key === "ArrowLeft" ? -0.25 : 0.25);
+    ev.preventDefault();
   }
 });
 
