@@ -44,8 +44,10 @@ from analysis.archive_files import (
     write_json,
 )
 from analysis.archive_fleet import delete_fleet_rows
+from analysis.archive_overview import overview_fingerprint, place_overview, write_overview
 from analysis.channel_map import parse_channel_map
 from analysis.errors import ArchiveError, ChannelMapError, ProfileError, RunNotFoundError
+from analysis.overview import RunOverview
 from analysis.profile import (
     RobotProfile,
     profile_from_dict,
@@ -443,9 +445,19 @@ class Archive:
     # --- results ----------------------------------------------------------------------
 
     def write_results(
-        self, run_id: str, events: pd.DataFrame, series: pd.DataFrame, summary: dict[str, Any]
+        self,
+        run_id: str,
+        events: pd.DataFrame,
+        series: pd.DataFrame,
+        summary: dict[str, Any],
+        overview: RunOverview | None = None,
     ) -> None:
-        """Store analysis results, replacing the previous ones atomically."""
+        """Store analysis results, replacing the previous ones atomically.
+
+        ``overview`` (the whole-run chart overview built from the run's frame and
+        these ``series``) replaces the stored one right after the results; when
+        left out, the stored one turns stale and is rebuilt on first use.
+        """
         run_dir = self._run_dir(run_id)
         staging = self.new_staging()
         try:
@@ -454,6 +466,9 @@ class Archive:
             write_frame(events, new / "events.parquet")
             write_frame(series, new / "series.parquet")
             write_json(new / "summary.json", summary)
+            if overview is not None:
+                stamp = overview_fingerprint(self, run_id, series_path=new / "series.parquet")
+                write_overview(self, run_id, overview, stamp, folder=staging)
             old = self.root / "staging" / f"{os.getpid()}-old-{secrets.token_hex(4)}"
             current = run_dir / "results"
             if current.exists():
@@ -465,6 +480,8 @@ class Archive:
                     os.rename(old, current)
                 raise
             shutil.rmtree(old, ignore_errors=True)
+            if overview is not None:
+                place_overview(staging, run_dir)
         finally:
             shutil.rmtree(staging, ignore_errors=True)
         self._upsert_row(self.get_meta(run_id))

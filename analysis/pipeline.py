@@ -24,6 +24,7 @@ from analysis.archive_fleet import write_fleet_rows
 from analysis.balance import detect_balance
 from analysis.events import DetectorResult, Event, events_frame
 from analysis.limits import headline_kpis
+from analysis.overview import build_overview
 from analysis.profile import RobotProfile, Thresholds
 from analysis.roll import detect_roll_tracking
 from analysis.saturation import detect_saturation
@@ -222,7 +223,8 @@ def analyse_run(
     frame = archive.load_frame(run_id)
     result = analyse_frame(frame, profile, thresholds, progress)
     events = events_frame(result.events)
-    archive.write_results(run_id, events, result.series, result.summary(run_id))
+    overview = build_overview(frame, result.series)  # the Run page's first draw
+    archive.write_results(run_id, events, result.series, result.summary(run_id), overview)
     write_fleet_rows(archive.root, run_id, archive.get_meta(run_id), events, result.kpis)
     return result
 
