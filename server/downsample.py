@@ -29,7 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 from tsdownsample import MinMaxLTTBDownsampler
 
-from analysis.events import GAP_FACTOR
+from analysis.overview import nan_run_breaks, time_gaps
 
 #: Smallest point budget the API accepts (LTTB needs first, last and one bucket).
 MIN_POINTS = 10
@@ -102,15 +102,11 @@ def time_base(t: np.ndarray) -> TimeBase:
     -------
     TimeBase
         A step is a gap when longer than ``GAP_FACTOR`` times the median step
-        (common practice, no source; the same rule as ``analysis.events``).
+        (common practice, no source; the same rule as ``analysis.events``,
+        applied by :func:`analysis.overview.time_gaps`).
     """
-    if t.size < 3:
-        return TimeBase(np.empty(0, dtype=np.int64), float("nan"))
-    dt = np.diff(t)
-    median = float(np.median(dt))
-    if not np.isfinite(median) or median <= 0:
-        return TimeBase(np.empty(0, dtype=np.int64), median)
-    return TimeBase(np.flatnonzero(dt > GAP_FACTOR * median), median)
+    gaps, median = time_gaps(t)
+    return TimeBase(gaps, median)
 
 
 def select_indices(t: np.ndarray, y: np.ndarray, n_out: int) -> np.ndarray:
@@ -146,21 +142,6 @@ def select_indices(t: np.ndarray, y: np.ndarray, n_out: int) -> np.ndarray:
     return picked[~nan[picked]]
 
 
-def _nan_run_breaks(t: np.ndarray, nan: np.ndarray, median_dt: float) -> np.ndarray:
-    """Times at which to break the line inside interior NaN runs that span a data gap."""
-    edges = np.diff(nan.astype(np.int8))
-    starts = np.flatnonzero(edges == 1) + 1  # first NaN of a run
-    ends = np.flatnonzero(edges == -1) + 1  # first valid sample after a run
-    if nan[0]:
-        ends = ends[1:]  # a leading run connects nothing
-    starts = starts[: ends.size]  # a trailing run connects nothing
-    if not starts.size or not np.isfinite(median_dt):
-        return np.empty(0)
-    before, after = t[starts - 1], t[ends]
-    long = (after - before) > GAP_FACTOR * median_dt
-    return 0.5 * (before[long] + after[long])
-
-
 def reduce_series(
     t: np.ndarray, y: np.ndarray, n_out: int, base: TimeBase | None = None
 ) -> Reduced:
@@ -192,7 +173,7 @@ def reduce_series(
     n_valid = y.size - int(np.count_nonzero(nan))
     breaks = 0.5 * (t[base.gaps] + t[base.gaps + 1])
     if n_valid < y.size:
-        breaks = np.concatenate([breaks, _nan_run_breaks(t, nan, base.median_dt)])
+        breaks = np.concatenate([breaks, nan_run_breaks(t, nan, base.median_dt)])
     t_out = t[keep]
     y_out = y[keep]
     if breaks.size:
@@ -201,6 +182,35 @@ def reduce_series(
         order = np.argsort(t_out, kind="stable")
         t_out, y_out = t_out[order], y_out[order]
     return Reduced(t=t_out, y=y_out, n_samples=n_valid, downsampled=n_valid > n_out)
+
+
+def reduce_overview(t: np.ndarray, y: np.ndarray, samples: int, n_out: int) -> Reduced:
+    """Downsample one signal of a stored whole-run overview to a point budget.
+
+    Parameters
+    ----------
+    t : ndarray
+        Times of the overview's points, increasing. [s]
+    y : ndarray
+        Their values; NaN marks a break point (a data gap), kept as is. [any]
+    samples : int
+        Valid samples of the whole run the overview stands for. [-]
+    n_out : int
+        Point budget. [-]
+
+    Returns
+    -------
+    Reduced
+        MinMaxLTTB [1] over the overview's valid points (all of them when they
+        fit the budget) and every break point, in time order. ``n_samples`` and
+        ``downsampled`` refer to the whole run, as for :func:`reduce_series`.
+    """
+    nan = np.isnan(y)
+    valid = np.flatnonzero(~nan)
+    keep = valid[select_indices(t[valid], y[valid], n_out)]
+    if valid.size < y.size:
+        keep = np.union1d(keep, np.flatnonzero(nan))
+    return Reduced(t=t[keep], y=y[keep], n_samples=int(samples), downsampled=samples > n_out)
 
 
 def json_values(values: np.ndarray, digits: int = 6) -> list[float | None]:

@@ -1,9 +1,13 @@
 """Chart data: the timeline plan of a run and its series over a window, downsampled.
 
-Series are served from :class:`server.run_cache.RunCache` (the run's chart
-columns as arrays, so a zoom slices instead of reading Parquet); a run too large
-for the cache, or a server started without one, reads the window from the
-archive. Values and units are those shown on the page (angles in degrees, from
+The whole run (no ``t0``, no ``t1``: the page's first draw) is reduced from the
+run's stored chart overview (:mod:`analysis.overview`: each of 4096 time
+buckets keeps its min and max sample, gaps kept as breaks), so it is as fast
+with the server's cache cold as warm; the cache then loads the run's columns in
+the background for the zooms. Windows are served from
+:class:`server.run_cache.RunCache` (the run's chart columns as arrays, so a zoom
+slices instead of reading Parquet); a run too large for the cache, or a server
+started without one, reads the window from the archive. Values and units are those shown on the page (angles in degrees, from
 ``analysis.display``) unless ``units=si`` asks for the stored SI values.
 """
 
@@ -20,15 +24,19 @@ from fastapi.responses import JSONResponse
 from analysis import catalogue as cat
 from analysis.archive import Archive
 from analysis.display import to_display
+from analysis.overview import OVERVIEW_BUCKETS, RunOverview
 from analysis.pipeline import load_analysis
 from server.charts import chart_plan, unit_of
 from server.deps import ApiError, get_archive, get_run_cache
 from server.downsample import (
     MAX_POINTS,
     MIN_POINTS,
+    MINMAX_RATIO,
+    Reduced,
     TimeBase,
     json_times,
     json_values,
+    reduce_overview,
     reduce_series,
     time_base,
 )
@@ -41,6 +49,10 @@ CacheDep = Annotated[RunCache, Depends(get_run_cache)]
 
 #: Point budget per signal when the request names none.
 DEFAULT_POINTS = 2000
+#: Largest whole-run budget served from the stored overview: up to it the overview
+#: holds at least as many points (two per bucket) as MinMaxLTTB's own min/max
+#: preselection of the raw samples would (``MINMAX_RATIO`` per output point).
+OVERVIEW_MAX_POINTS = 2 * OVERVIEW_BUCKETS // MINMAX_RATIO
 #: Unit systems of the series endpoint.
 Units = Literal["display", "si"]
 UNITS_DISPLAY: Units = "display"
@@ -119,6 +131,36 @@ def _bounds(t: np.ndarray, t0: float | None, t1: float | None) -> tuple[float, f
     return lo, hi
 
 
+def _signal_json(reduced: Reduced, name: str, units: str) -> dict[str, Any]:
+    si_unit = unit_of(name)
+    if units == UNITS_SI:
+        shown, unit = reduced.y, si_unit
+    else:
+        shown, unit = to_display(reduced.y, si_unit)
+    return {
+        "t": json_times(reduced.t),
+        "y": json_values(shown),
+        "unit": unit,
+        "samples": reduced.n_samples,
+        "downsampled": reduced.downsampled,
+    }
+
+
+def _from_overview(
+    stored: RunOverview, names: list[str], points: int, units: str
+) -> tuple[dict[str, Any], tuple[float, float] | None, dict[str, list[str]]]:
+    """The whole-run series of ``names`` held by the overview, their bounds and sources."""
+    out: dict[str, Any] = {}
+    by_source: dict[str, list[str]] = {}
+    for name in names:
+        sig = stored.signals[name]
+        by_source.setdefault(sig.source, []).append(name)
+        out[name] = _signal_json(reduce_overview(sig.t, sig.y, sig.samples, points), name, units)
+    # As for a read: the bounds of the frame when a frame column is asked, else the series'.
+    first = FRAME if FRAME in by_source else DERIVED
+    return out, stored.spans.get(first), by_source
+
+
 @router.get("/{run_id}/series")
 def series(
     run_id: str,
@@ -138,6 +180,9 @@ def series(
     Each signal is reduced to ``points`` with MinMaxLTTB (spikes survive); a window
     holding fewer samples than the budget comes back at full resolution. Data gaps
     are null values, so charts break the line there. Each signal gives its ``unit``.
+    The whole run (no ``t0``/``t1``, ``points`` up to 2048) is reduced from the run's
+    stored overview (each of 4096 time buckets keeps its min and max sample), so
+    every extreme of the run is there.
     """
     names = [s.strip() for s in signals.split(",") if s.strip()]
     if not names:
@@ -152,6 +197,43 @@ def series(
         raise ApiError(f"points must be between {MIN_POINTS} and {MAX_POINTS}, found {points}.")
     if t0 is not None and t1 is not None and not t1 > t0:
         raise ApiError(f"The window end t1 must be after its start t0, found t0={t0}, t1={t1}.")
+    out: dict[str, Any] = {}
+    bounds: tuple[float, float] | None = None
+    if t0 is None and t1 is None and points <= OVERVIEW_MAX_POINTS:
+        stored = cache.stored_overview(archive, run_id)
+        held = [n for n in dict.fromkeys(names) if n in stored.signals]
+        out, bounds, by_source = _from_overview(stored, held, points, units)
+        cache.warm_later(archive, run_id, by_source)  # for the first zoom
+    rest = [n for n in names if n not in out]
+    if rest:
+        read_bounds = _add_read(archive, cache, run_id, rest, t0, t1, points, units, out)
+        bounds = bounds or read_bounds
+    lo, hi = bounds if bounds is not None else _bounds(np.empty(0), t0, t1)
+    body = {
+        "run_id": run_id,
+        "t0": lo,
+        "t1": hi,
+        "points": points,
+        "units": units,
+        "signals": {n: out[n] for n in names if n in out},
+    }
+    # Built here rather than by FastAPI's generic encoder, which walks every number.
+    return JSONResponse(body)
+
+
+def _add_read(
+    archive: Archive,
+    cache: RunCache,
+    run_id: str,
+    names: list[str],
+    t0: float | None,
+    t1: float | None,
+    points: int,
+    units: str,
+    out: dict[str, Any],
+) -> tuple[float, float] | None:
+    """Series of ``names`` over a window read from the cache or the archive, into ``out``;
+    return the window's bounds."""
     use_cache = cache.usable(archive, run_id)
     if use_cache:
         raw, derived = cache.signal_names(archive, run_id)
@@ -168,7 +250,6 @@ def series(
         del want[DERIVED]
     elif not want[FRAME]:
         del want[FRAME]
-    out: dict[str, Any] = {}
     bounds: tuple[float, float] | None = None
     for source, wanted in want.items():
         if use_cache:
@@ -186,26 +267,5 @@ def series(
                 )
             else:
                 reduced = reduce_series(t, y, points, base)
-            si_unit = unit_of(name)
-            if units == UNITS_SI:
-                shown, unit = reduced.y, si_unit
-            else:
-                shown, unit = to_display(reduced.y, si_unit)
-            out[name] = {
-                "t": json_times(reduced.t),
-                "y": json_values(shown),
-                "unit": unit,
-                "samples": reduced.n_samples,
-                "downsampled": reduced.downsampled,
-            }
-    lo, hi = bounds if bounds is not None else _bounds(np.empty(0), t0, t1)
-    body = {
-        "run_id": run_id,
-        "t0": lo,
-        "t1": hi,
-        "points": points,
-        "units": units,
-        "signals": {n: out[n] for n in names if n in out},
-    }
-    # Built here rather than by FastAPI's generic encoder, which walks every number.
-    return JSONResponse(body)
+            out[name] = _signal_json(reduced, name, units)
+    return bounds

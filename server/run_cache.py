@@ -18,10 +18,17 @@ disk, so a re-analysis by any process (the page, the command line) is seen at
 the next request. The routes that write (re-analyse, edit, delete, upload) also
 drop the run's entry at once with :meth:`RunCache.invalidate`; a load that was
 in flight at that moment is not stored.
+
+The whole run's first draw comes from the run's stored chart overview
+(:mod:`analysis.archive_overview`), kept here once read, so it is fast whether
+the columns are cached or not. After such a draw :meth:`RunCache.warm_later`
+loads the columns in a background thread (one per run at a time; a failure is
+logged, never raised) so that the first zoom finds them.
 """
 
 from __future__ import annotations
 
+import logging
 import os
 import threading
 from collections import OrderedDict
@@ -33,10 +40,16 @@ import numpy as np
 
 from analysis import catalogue as cat
 from analysis.archive import Archive
+from analysis.archive_overview import ensure_overview, overview_fingerprint
+from analysis.overview import DERIVED, FRAME, RunOverview
 from server.downsample import Reduced, TimeBase, time_base
 
-#: Sources of chart columns: the run's frame and the derived series of its analysis.
-FRAME, DERIVED = "frame", "derived"
+__all__ = ["DERIVED", "FRAME", "Columns", "RunCache", "fingerprint"]
+
+log = logging.getLogger("outrigger.server")
+
+#: Locks that make concurrent first requests of one run build its overview once. [-]
+BUILD_LOCKS = 16
 #: Runs kept at most.
 MAX_RUNS = 4
 #: Whole-run reductions kept per run (one per signal and point budget).
@@ -99,12 +112,14 @@ class _Entry:
     names: tuple[list[str], list[str]] | None = None
     sources: dict[str, Columns] = field(default_factory=dict)
     overviews: dict[tuple[str, str, int], Reduced] = field(default_factory=dict)
+    stored: RunOverview | None = None
     load_lock: threading.Lock = field(default_factory=threading.Lock)
 
     @property
     def nbytes(self) -> int:
         views = sum(int(r.t.nbytes + r.y.nbytes) for r in self.overviews.values())
-        return sum(c.nbytes for c in self.sources.values()) + views
+        stored = self.stored.nbytes if self.stored is not None else 0
+        return sum(c.nbytes for c in self.sources.values()) + views + stored
 
 
 def _as_float(values: object) -> np.ndarray:
@@ -133,8 +148,12 @@ class RunCache:
         self._entries: OrderedDict[str, _Entry] = OrderedDict()
         self._generations: dict[str, int] = {}
         self._oversized: dict[str, Fingerprint] = {}
+        self._build_locks = [threading.Lock() for _ in range(BUILD_LOCKS)]
+        self._warming: dict[str, threading.Thread] = {}
         self.hits = 0
         self.loads = 0
+        #: Overviews read from their file or built (not served from memory). [-]
+        self.overview_reads = 0
 
     # --- bookkeeping ------------------------------------------------------------
 
@@ -214,7 +233,11 @@ class RunCache:
 
     def signal_names(self, archive: Archive, run_id: str) -> tuple[list[str], list[str]]:
         """Names of the run's frame columns and of its derived series (without ``t``)."""
-        entry = self._entry(archive, run_id)
+        return self._names_of(self._entry(archive, run_id), archive, run_id)
+
+    def _names_of(
+        self, entry: _Entry, archive: Archive, run_id: str
+    ) -> tuple[list[str], list[str]]:
         if entry.names is not None:
             return entry.names
         raw = [c for c in archive.columns(run_id) if c != cat.T]
@@ -234,7 +257,11 @@ class RunCache:
         Names the source does not hold are left out. What is missing is read from
         the archive once; other runs are served meanwhile.
         """
-        entry = self._entry(archive, run_id)
+        return self._columns_of(self._entry(archive, run_id), archive, run_id, source, names)
+
+    def _columns_of(
+        self, entry: _Entry, archive: Archive, run_id: str, source: str, names: list[str]
+    ) -> Columns:
         with entry.load_lock:  # one load per run at a time; other runs go on
             with self._lock:
                 have = entry.sources.get(source)
@@ -281,6 +308,101 @@ class RunCache:
                 entry.overviews[key] = reduced
                 self._fit(run_id)
         return reduced
+
+    def stored_overview(self, archive: Archive, run_id: str) -> RunOverview:
+        """The run's whole-run chart overview: from memory, its file, or built now.
+
+        Checked against the run's files at every call (:func:`overview_fingerprint`),
+        so a re-analysis by any process is seen. Concurrent first requests of a
+        run read or build it once.
+        """
+        now = overview_fingerprint(archive, run_id)
+        entry = self._entry(archive, run_id) if self.max_bytes > 0 else None
+
+        def held() -> RunOverview | None:
+            if entry is None:
+                return None
+            with self._lock:
+                have = entry.stored
+            return have if have is not None and have.fingerprint == now else None
+
+        found = held()
+        if found is not None:
+            self.hits += 1
+            return found
+        with self._build_locks[hash(run_id) % BUILD_LOCKS]:
+            found = held()
+            if found is not None:
+                self.hits += 1
+                return found
+            self.overview_reads += 1
+            overview = ensure_overview(archive, run_id)
+            if entry is not None:
+                with self._lock:
+                    if self._current(run_id, entry):
+                        entry.stored = overview
+                        self._fit(run_id)
+        return overview
+
+    def has_columns(self, run_id: str, source: str, names: list[str]) -> bool:
+        """True when the columns ``names`` of the run are held (no read needed)."""
+        with self._lock:
+            entry = self._entries.get(run_id)
+            have = entry.sources.get(source) if entry is not None else None
+            return have is not None and all(n in have.values for n in names)
+
+    def warm_later(self, archive: Archive, run_id: str, want: dict[str, list[str]]) -> bool:
+        """Load the run's columns ``want`` (source -> names) in a background thread.
+
+        Does nothing (returns False) when the cache is off, the run does not fit
+        it, the columns are held, a warm-up of the run is running, or the run has
+        no entry. A warm-up never outlives a change of the run: it loads into the
+        entry it started from and stores nothing once that entry is dropped.
+        """
+        if self.max_bytes <= 0 or not self.usable(archive, run_id):
+            return False
+        if all(self.has_columns(run_id, s, n) for s, n in want.items()):
+            return False
+        with self._lock:
+            entry = self._entries.get(run_id)
+            running = self._warming.get(run_id)
+            if entry is None or (running is not None and running.is_alive()):
+                return False
+            thread = threading.Thread(
+                target=self._warm,
+                args=(entry, archive, run_id, {s: list(n) for s, n in want.items()}),
+                name=f"warm-{run_id}",
+                daemon=True,
+            )
+            self._warming[run_id] = thread
+        thread.start()
+        return True
+
+    def _warm(
+        self, entry: _Entry, archive: Archive, run_id: str, want: dict[str, list[str]]
+    ) -> None:
+        try:
+            for source, names in want.items():
+                with self._lock:
+                    if not self._current(run_id, entry):
+                        return
+                if entry.fingerprint != fingerprint(archive, run_id):
+                    return
+                self._names_of(entry, archive, run_id)  # a zoom checks the names first
+                self._columns_of(entry, archive, run_id, source, names)
+        except Exception:  # a warm-up is an optimisation: log, never raise
+            log.warning("Loading the chart columns of run %s failed.", run_id, exc_info=True)
+        finally:
+            with self._lock:
+                if self._warming.get(run_id) is threading.current_thread():
+                    del self._warming[run_id]
+
+    def wait_warm(self, timeout: float | None = None) -> None:
+        """Wait for the running warm-ups to end (tests and benchmarks). [s]"""
+        with self._lock:
+            threads = list(self._warming.values())
+        for thread in threads:
+            thread.join(timeout)
 
     def _read(
         self, archive: Archive, run_id: str, source: str, names: list[str], have: Columns | None
