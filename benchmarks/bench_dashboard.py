@@ -8,13 +8,13 @@ serves the real app with uvicorn on 127.0.0.1 and measures:
 * the series request of the Run page at the page's point budget (every signal
   it draws), with the server's chart cache cold and warm; a zoom request (10 s);
 * in headless Chromium (Debian's ``/usr/bin/chromium``) with a browser profile on
-  disk: navigation to all charts drawn on a first visit (empty profile: the
-  browser has not yet compiled plotly.js) and on returning visits (server cache
-  cold and warm), the bytes of JSON the page loaded, and zoom round trips
-  (request + redraw, and from the zoom gesture including the pause);
+  disk: navigation to all charts drawn on a first visit (empty profile: nothing
+  cached by the browser) and on returning visits (server cache cold and warm),
+  the bytes of JSON the page loaded, and zoom round trips (request + redraw, and
+  from the zoom gesture including the pause);
 * beside them, the same figures for a figure that plots every sample of the
   roll and tip-over timelines: JSON bytes, server time, and the time Chromium
-  takes to draw it.
+  takes to fetch it and draw it with the page's own strip chart.
 
 Targets (dashboard issue): first full draw under 2 s, a zoom round trip under
 200 ms, the page's data under 2 MB however long the run.
@@ -148,7 +148,7 @@ def _page_load(context: Any, base: str, run_id: str) -> tuple[Any, float, float]
 
 
 def _zooms(page: Any, starts: tuple[float, ...]) -> tuple[list[float], list[float], list[float]]:
-    """Zoom the tip-over chart to 10 s windows.
+    """Zoom every chart to 10 s windows (what a drag across a chart or an event click does).
 
     Returns (request + redraw [ms], zoom to redrawn [ms], the request alone [ms]).
     """
@@ -156,8 +156,7 @@ def _zooms(page: Any, starts: tuple[float, ...]) -> tuple[list[float], list[floa
     for t0 in starts:
         page.evaluate("() => { delete document.body.dataset.refreshMs; }")
         page.evaluate(
-            "([a, b]) => Plotly.relayout(document.getElementById('chart-tip'), "
-            "{'xaxis.range[0]': a, 'xaxis.range[1]': b})",
+            "([a, b]) => document.getElementById('charts').timelines.setRange([a, b])",
             [t0, t0 + 10],
         )
         page.wait_for_function("() => document.body.dataset.refreshMs !== undefined")
@@ -170,7 +169,7 @@ def _zooms(page: Any, starts: tuple[float, ...]) -> tuple[list[float], list[floa
 def browser_figures(base: str, run_id: str, cache: Any) -> dict[str, float]:
     """The Run page in headless Chromium with a browser profile on disk, as a user has.
 
-    * first visit: empty profile (plotly.js not yet compiled by the browser), server
+    * first visit: empty profile (nothing compiled or cached by the browser), server
       cache cold;
     * returning visit, server cache cold (the run not opened since the server started);
     * returning visit, server cache warm;
@@ -208,7 +207,7 @@ def browser_figures(base: str, run_id: str, cache: Any) -> dict[str, float]:
                 args=CHROMIUM_ARGS,
                 viewport={"width": 1440, "height": 1000},
             )
-            for _ in range(2):  # the browser compiles and keeps plotly.js's code
+            for _ in range(2):  # the browser caches and compiles the page's scripts
                 _page_load(context, base, run_id)[0].close()
             cold, warm, refresh, whole, fetch = [], [], [], [], []
             for i in range(3):
@@ -232,22 +231,23 @@ def browser_figures(base: str, run_id: str, cache: Any) -> dict[str, float]:
 
         browser = p.chromium.launch(executable_path=CHROMIUM, headless=True, args=CHROMIUM_ARGS)
         page = browser.new_page(viewport={"width": 1440, "height": 1000})
-        parse = []
-        for _ in range(3):
-            page.goto(f"{base}/bench/every-sample.html")
-            parse.append(float(page.evaluate("window.plotlyMs")))
-        out["plotly_ms"] = statistics.median(parse)
-        page.wait_for_function("() => window.Plotly !== undefined")
+        page.goto(f"{base}/api.html")
         try:
+            # The same canvas strip chart the Run page uses, given every sample.
             ms = page.evaluate(
                 """async (url) => {
+                    const sc = await import('/js/stripchart.js');
                     const start = performance.now();
                     const body = await (await fetch(url)).json();
-                    const traces = Object.entries(body.signals).map(([name, s], i) => ({
-                        type: 'scatter', mode: 'lines', x: s.t, y: s.y, name,
-                        yaxis: i === 0 ? 'y' : 'y' + (i + 1)}));
-                    const layout = {height: 900, grid: {rows: traces.length, columns: 1}};
-                    await Plotly.newPlot('f', traces, layout);
+                    const names = Object.keys(body.signals);
+                    const host = document.createElement('div');
+                    document.body.prepend(host);
+                    const chart = new sc.StripChart(host, names.map((n) => ({label: n, unit: ''})));
+                    const traces = names.map((n, i) => ({row: i, x: body.signals[n].t,
+                        y: body.signals[n].y, color: '#1F2A30', width: 1, dash: 'solid', name: n}));
+                    const t = traces[0].x;
+                    chart.setData({traces, bands: [], lines: [], range: [t[0], t[t.length - 1]]});
+                    chart.resize();
                     return performance.now() - start;
                 }""",
                 f"{base}/bench/every-sample",
@@ -279,18 +279,8 @@ def main() -> None:
     def every_sample() -> Response:  # bench-only route, never part of the product
         return Response(full, media_type="application/json")
 
-    @app.get("/bench/every-sample.html", include_in_schema=False)
-    def every_sample_page() -> Response:
-        html = (
-            '<!doctype html><div id="f"></div><script>window.t0 = performance.now()</script>'
-            '<script src="/vendor/plotly.min.js"></script>'
-            "<script>window.plotlyMs = performance.now() - window.t0</script>"
-        )
-        return Response(html, media_type="text/html")
-
-    # The static mount answers "/" last; move the two bench routes in front of it.
-    for _ in range(2):
-        app.router.routes.insert(0, app.router.routes.pop())
+    # The static mount answers "/" last; move the bench route in front of it.
+    app.router.routes.insert(0, app.router.routes.pop())
     port = _free_port()
     server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning"))
     thread = threading.Thread(target=server.run, daemon=True)
@@ -345,7 +335,6 @@ def main() -> None:
         print(
             f"  zoom gesture to all charts redrawn (with the pause) {figures['zoom_whole_ms']:6.0f} ms"
         )
-        print(f"  plotly.js load + parse, repeated in one tab {figures['plotly_ms']:6.0f} ms")
     print(
         f"Roll and tip-over timelines ({len(FULL_SIGNALS)} signals), downsampled vs every sample:"
     )
