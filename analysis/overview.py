@@ -30,6 +30,7 @@ import numpy as np
 import pandas as pd
 
 from analysis import catalogue as cat
+from analysis.errors import OutriggerError
 from analysis.events import GAP_FACTOR
 
 #: Sources of chart signals: the run's frame and the derived series of its analysis.
@@ -290,7 +291,7 @@ def _as_float(column: pd.Series) -> np.ndarray | None:
 def build_overview(
     frame: pd.DataFrame,
     series: pd.DataFrame | None = None,
-    buckets: int = OVERVIEW_BUCKETS,
+    buckets: int | None = None,
 ) -> RunOverview:
     """The whole-run overview of a run's frame and derived series.
 
@@ -302,8 +303,8 @@ def build_overview(
         Derived series of the last analysis (column ``t`` first); None when the
         run was never analysed. Columns also in ``frame`` are left out, as the
         chart endpoint serves those from the frame. [SI]
-    buckets : int
-        Time buckets. [-]
+    buckets : int, optional
+        Time buckets; :data:`OVERVIEW_BUCKETS` (read at call time) when None. [-]
 
     Returns
     -------
@@ -311,7 +312,10 @@ def build_overview(
         Every column that converts to float (numbers, bool as 0/1); text columns
         are left out (charts draw none).
     """
-    out = RunOverview(buckets=int(buckets), spans={})
+    buckets = int(OVERVIEW_BUCKETS if buckets is None else buckets)
+    if buckets < 1:
+        raise OutriggerError(f"An overview needs at least one time bucket, found {buckets}.")
+    out = RunOverview(buckets=buckets, spans={})
     sources: Mapping[str, pd.DataFrame | None] = {FRAME: frame, DERIVED: series}
     for source, table in sources.items():
         if table is None or cat.T not in table:

@@ -49,10 +49,18 @@ CacheDep = Annotated[RunCache, Depends(get_run_cache)]
 
 #: Point budget per signal when the request names none.
 DEFAULT_POINTS = 2000
-#: Largest whole-run budget served from the stored overview: up to it the overview
-#: holds at least as many points (two per bucket) as MinMaxLTTB's own min/max
-#: preselection of the raw samples would (``MINMAX_RATIO`` per output point).
-OVERVIEW_MAX_POINTS = 2 * OVERVIEW_BUCKETS // MINMAX_RATIO
+
+
+def overview_max_points(buckets: int) -> int:
+    """Largest whole-run budget served from an overview of ``buckets`` time buckets.
+
+    Up to it the overview holds at least as many points (two per bucket) as
+    MinMaxLTTB's own min/max preselection of the raw samples would
+    (``MINMAX_RATIO`` per output point); larger budgets read the raw samples.
+    """
+    return 2 * buckets // MINMAX_RATIO
+
+
 #: Unit systems of the series endpoint.
 Units = Literal["display", "si"]
 UNITS_DISPLAY: Units = "display"
@@ -199,8 +207,10 @@ def series(
         raise ApiError(f"The window end t1 must be after its start t0, found t0={t0}, t1={t1}.")
     out: dict[str, Any] = {}
     bounds: tuple[float, float] | None = None
-    if t0 is None and t1 is None and points <= OVERVIEW_MAX_POINTS:
+    stored = None
+    if t0 is None and t1 is None and points <= overview_max_points(OVERVIEW_BUCKETS):
         stored = cache.stored_overview(archive, run_id)
+    if stored is not None and points <= overview_max_points(stored.buckets):
         held = [n for n in dict.fromkeys(names) if n in stored.signals]
         out, bounds, by_source = _from_overview(stored, held, points, units)
         cache.warm_later(archive, run_id, by_source)  # for the first zoom
