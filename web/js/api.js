@@ -42,7 +42,12 @@ async function errorFrom(response) {
 }
 
 export async function getJSON(url, options = {}) {
-  const response = await fetch(url, options);
+  return readJSON(fetch(url, options));
+}
+
+// The JSON body of a response (or of a request already on its way), or the server's error.
+export async function readJSON(responsePromise) {
+  const response = await responsePromise;
   if (!response.ok) throw await errorFrom(response);
   return response.json();
 }

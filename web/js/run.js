@@ -1,6 +1,6 @@
 // Run page: facts, KPIs, stacked timelines, event list with keyboard stepping,
 // ingest report, skipped detectors, thresholds and re-analysis, edit and delete.
-import { el, fmt, fmtDuration, getJSON, sendJSON, serverInfo, showError, waitForJob } from "./api.js";
+import { el, fmt, fmtDuration, getJSON, readJSON, sendJSON, serverInfo, showError, waitForJob } from "./api.js";
 import { badges } from "./kpis.js";
 import { initLayout } from "./layout.js";
 import { eventColour, eventLegend, kindLabel } from "./palette.js";
@@ -256,10 +256,13 @@ function setupEdit() {
 
 // ----- load --------------------------------------------------------------------------
 async function load() {
-  // Every request at once; the charts' series go out as soon as the plan is in.
+  // Every request at once; the charts' series go out as soon as the plan is in. On the
+  // first load the page's inline script has asked for the run and the plan already.
   const id = encodeURIComponent(runId);
-  const runRequest = getJSON(`/api/runs/${id}`);
-  const planRequest = getJSON(`/api/runs/${id}/charts`);
+  const early = window.outriggerEarly && window.outriggerEarly.id === runId ? window.outriggerEarly : null;
+  window.outriggerEarly = null; // a reload after re-analysis asks again
+  const runRequest = early ? readJSON(early.run) : getJSON(`/api/runs/${id}`);
+  const planRequest = early ? readJSON(early.plan) : getJSON(`/api/runs/${id}/charts`);
   const infoRequest = serverInfo();
   const data = await runRequest;
   run = data.run;
@@ -270,9 +273,12 @@ async function load() {
   const drawn = timelines.draw();
   showHead(run);
   showKpis(data.headline, data.headline_shown, analysis);
+  // The event list (hundreds of rows on a long run) and the rest of the page are built
+  // once the charts are drawn: building and laying them out first held the charts back.
+  await drawn.catch(() => {});
+  showEvents();
   showDetectors(analysis);
   showIngest(run);
-  showEvents();
   const info = await infoRequest;
   const legend = document.getElementById("legend");
   legend.replaceChildren(

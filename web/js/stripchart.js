@@ -104,6 +104,7 @@ export class StripChart {
     this.drawn = { traces: 0, points: 0, bands: 0, lines: 0 };
     this.drag = null;
     this.crosshair = null;
+    this.hasData = false;
 
     host.classList.add("strip-chart");
     host.stripChart = this;
@@ -157,8 +158,8 @@ export class StripChart {
     return a + ((px - this.plotLeft()) / (this.plotRight() - this.plotLeft())) * (b - a);
   }
 
-  resize() {
-    this.cssWidth = this.box.clientWidth || 600;
+  // Match the canvases' pixels to their CSS size (once per size change).
+  fitCanvas() {
     const dpr = window.devicePixelRatio || 1;
     const w = Math.max(1, Math.round(this.width * dpr));
     const h = Math.max(1, Math.round(this.height * dpr));
@@ -168,7 +169,12 @@ export class StripChart {
         c.height = h;
       }
     }
-    this.draw();
+  }
+
+  resize() {
+    this.cssWidth = this.box.clientWidth || 600;
+    this.fitCanvas();
+    if (this.hasData) this.draw(); // nothing to draw before the first data
   }
 
   // ----- data ------------------------------------------------------------------------
@@ -176,6 +182,7 @@ export class StripChart {
   // gap; mirror: a negative copy left out of the hover box);
   // bands: [{row|null, x0, x1, color, kind}]; lines: [{row, y, label}]; range: [t0, t1].
   setData({ traces, bands, lines, range }) {
+    this.hasData = true;
     this.traces = traces;
     this.bands = bands;
     this.lines = lines;
@@ -221,6 +228,7 @@ export class StripChart {
 
   // ----- drawing -----------------------------------------------------------------------
   draw() {
+    this.fitCanvas();
     const ctx = this.canvas.getContext("2d");
     const dpr = this.canvas.width / this.width;
     ctx.setTransform(dpr, 0, 0, dpr, 0, 0);
