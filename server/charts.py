@@ -1,7 +1,7 @@
 """What the Run page draws: the stacked timelines, built from catalogue names.
 
 The page never spells a signal name. It asks ``GET /api/runs/{id}/charts`` for
-this plan: panels (one plotly figure each, all on one time axis), rows inside a
+this plan: panels (one strip chart each, all on one time axis), rows inside a
 panel (one y axis each), the traces of a row with the catalogue name of the
 signal, its unit and a line style, horizontal limit lines with values taken from
 the thresholds of the run's last analysis (converted to SI by
