@@ -249,7 +249,10 @@ def test_plotly_is_served_from_the_python_package(client: TestClient) -> None:
     response = client.get(app_module.PLOTLY_URL)
     assert response.status_code == 200
     assert response.content == app_module.plotly_js_path().read_bytes()
-    assert app_module.PLOTLY_URL in client.get("/run.html").text
+    # The Compare page draws with it; the Run page draws with its own canvas charts.
+    assert app_module.PLOTLY_URL in client.get("/compare.html").text
+    run_page = client.get("/run.html").text
+    assert app_module.PLOTLY_URL not in run_page and "/js/stripchart.js" in run_page
 
 
 def test_openapi_documents_the_api(client: TestClient) -> None:
