@@ -225,17 +225,24 @@ class Archive:
         digest = str(meta["source_hash"])
         for length in (6, 10, 16, 64):
             run_id = f"{stamp:%Y%m%d-%H%M}-{digest[:length]}"
-            if not (self.root / "runs" / run_id).exists():
-                break
+            target = self.root / "runs" / run_id
+            if target.exists():
+                continue
+            meta["run_id"] = run_id
+            write_json(staging / "meta.json", meta)
+            try:
+                # Atomic, and never onto a run folder that exists (it is never empty).
+                os.rename(staging, target)
+            except OSError as exc:
+                if target.exists():
+                    continue  # another ingest took this id meanwhile: try a longer one
+                raise ArchiveError(f"Cannot move the staged run into {target}: {exc}") from exc
+            break
         else:
-            raise ArchiveError(f"Run {run_id} already exists in {self.root}.")
-        meta["run_id"] = run_id
-        write_json(staging / "meta.json", meta)
-        target = self.root / "runs" / run_id
-        try:
-            os.rename(staging, target)
-        except OSError as exc:
-            raise ArchiveError(f"Cannot move the staged run into {target}: {exc}") from exc
+            raise ArchiveError(
+                f"Run {run_id} already exists in {self.root}; nothing was changed. "
+                "Ingest the files again to retry."
+            )
         try:
             self._upsert_row(meta)
         except BaseException:

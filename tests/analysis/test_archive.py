@@ -327,6 +327,33 @@ def test_failed_catalog_row_at_commit_stores_nothing(tmp_path, monkeypatch):
     assert _snapshot(archive) == before
 
 
+def test_an_id_taken_meanwhile_by_another_ingest_gives_a_longer_id(tmp_path, monkeypatch):
+    import analysis.archive as archive_mod
+
+    archive = Archive(tmp_path / "data")
+    first = _run(tmp_path, archive, "first")
+    taken: list[Path] = []
+    real_write_json = archive_mod.write_json
+
+    def racing(path, data):
+        # Another process commits a run under the same id between the check and the rename.
+        if data.get("run_id") and not taken:
+            other = archive.root / "runs" / data["run_id"]
+            other.mkdir()
+            (other / "meta.json").write_text("{}")
+            taken.append(other)
+        return real_write_json(path, data)
+
+    monkeypatch.setattr(archive_mod, "write_json", racing)
+    second = _run(tmp_path, archive, "second", n=500)
+    monkeypatch.undo()
+    assert taken and second.run_id != taken[0].name
+    assert second.run_id.startswith(taken[0].name)  # same stamp, longer digest
+    assert (taken[0] / "meta.json").read_text() == "{}"  # the other run is untouched
+    assert archive.get_meta(second.run_id)["run_id"] == second.run_id
+    assert first.run_id in {r["run_id"] for r in archive.list_runs()}
+
+
 def test_stale_analysed_flag_is_repaired_on_open(tmp_path):
     archive = Archive(tmp_path / "data")
     out = _run(tmp_path, archive)
