@@ -86,8 +86,8 @@ function dashOf(dash, width) {
 }
 
 export class StripChart {
-  // rows: [{label, unit}]; options: {margin, rowHeight, rowGap, xSuffix,
-  // onZoom(range|null), onHover(t|null)}
+  // rows: [{label, unit}]; options: {label (for screen readers), margin, rowHeight,
+  // rowGap, xSuffix, onZoom(range|null), onHover(t|null)}
   constructor(host, rows, options = {}) {
     this.host = host;
     this.rows = rows;
@@ -110,8 +110,11 @@ export class StripChart {
     host.stripChart = this;
     this.canvas = document.createElement("canvas");
     this.canvas.className = "strip-main";
+    this.canvas.setAttribute("role", "img");
+    this.canvas.setAttribute("aria-label", options.label || rows.map((r) => r.label).join(", "));
     this.overlay = document.createElement("canvas");
     this.overlay.className = "strip-overlay";
+    this.overlay.setAttribute("aria-hidden", "true");
     this.tip = document.createElement("div");
     this.tip.className = "strip-tip";
     this.tip.hidden = true;

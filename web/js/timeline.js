@@ -180,6 +180,7 @@ export class Timelines {
       const { box, chart } = this.panelBox(panel);
       this.container.append(box);
       const strip = new StripChart(chart, panel.rows.map((r) => ({ label: r.label, unit: r.unit })), {
+        label: `${panel.title}: timeline chart; the event list beside it names every shaded interval`,
         margin: MARGIN,
         rowHeight: ROW_HEIGHT,
         rowGap: ROW_GAP,
