@@ -45,14 +45,32 @@ export function looseLabels(min, max, count) {
   return { step, lo: Math.floor(min / step) * step, hi: Math.ceil(max / step) * step };
 }
 
-// Ticks inside [min, max] (a tight axis: the axis ends where the data ends, so the
-// span is not rounded up first as in loose labelling), at multiples of a nice step.
-export function ticksWithin(min, max, count) {
-  if (!(max > min)) return { step: 1, values: [min] };
-  const step = niceNumber((max - min) / Math.max(count - 1, 1), true);
+// The next smaller nice step: 5 -> 2 -> 1 -> 0.5 (times the same power of ten).
+function smallerNice(step) {
+  const exponent = Math.floor(Math.log10(step) + 1e-9);
+  const mantissa = Math.round(step / 10 ** exponent);
+  return (mantissa === 5 ? 2 : mantissa === 2 ? 1 : 0.5) * 10 ** exponent;
+}
+
+function multiplesWithin(min, max, step) {
   const values = [];
   const first = Math.ceil(min / step - 1e-9);
   for (let k = first; k * step <= max + step * 1e-9; k++) values.push(k * step);
+  return values;
+}
+
+// Ticks inside [min, max] (a tight axis: the axis ends where the data ends, so the
+// span is not rounded up first as in loose labelling), at multiples of a nice step;
+// at least min(3, count) of them, taking the next smaller nice step when rounding
+// the ideal step up left fewer.
+export function ticksWithin(min, max, count) {
+  if (!(max > min)) return { step: 1, values: [min] };
+  let step = niceNumber((max - min) / Math.max(count - 1, 1), true);
+  let values = multiplesWithin(min, max, step);
+  for (let tries = 0; values.length < Math.min(3, count) && tries < 4; tries++) {
+    step = smallerNice(step);
+    values = multiplesWithin(min, max, step);
+  }
   return { step, values };
 }
 

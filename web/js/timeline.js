@@ -9,7 +9,7 @@
 // for every panel. The point budget per trace follows the plotted width: about one
 // point per pixel column, with MinMaxLTTB on the server keeping each bucket's
 // extremes.
-import { getJSON } from "./api.js";
+import { el, getJSON } from "./api.js";
 import { eventColour, kindLabel, TRACE_STYLES } from "./palette.js";
 import { StripChart } from "./stripchart.js";
 
@@ -111,64 +111,32 @@ export class Timelines {
 
   // ----- drawing ---------------------------------------------------------------
   panelBox(panel) {
-    const box = document.createElement("div");
-    box.className = "panel";
-    const head = document.createElement("div");
-    head.className = "panel-head";
-    const title = document.createElement("h3");
-    title.textContent = panel.title;
-    const kinds = document.createElement("div");
-    kinds.className = "panel-kinds";
-    for (const kind of panel.event_kinds) {
-      const chip = document.createElement("span");
-      chip.className = "kind-chip";
-      const sw = document.createElement("span");
-      sw.className = "swatch";
-      sw.style.background = eventColour(kind);
-      chip.append(sw, document.createTextNode(kindLabel(kind)));
-      kinds.append(chip);
-    }
-    const keys = document.createElement("div");
-    keys.className = "trace-keys";
-    const seen = new Set();
-    for (const row of panel.rows) {
-      for (const tr of row.traces) {
-        if (seen.has(tr.label)) continue;
-        seen.add(tr.label);
+    const kinds = el(
+      "div",
+      { className: "panel-kinds" },
+      ...panel.event_kinds.map((kind) => el("span", { className: "kind-chip" }, el("span", { className: "swatch", style: { background: eventColour(kind) } }), kindLabel(kind))),
+    );
+    const labels = [...new Map(panel.rows.flatMap((r) => r.traces).map((tr) => [tr.label, tr])).values()];
+    const keys = el(
+      "div",
+      { className: "trace-keys" },
+      ...labels.map((tr) => {
         const style = TRACE_STYLES[tr.style] || TRACE_STYLES.main;
-        const key = document.createElement("span");
-        key.className = "trace-key";
-        const line = document.createElement("span");
-        line.className = `line-swatch ${style.dash}`;
-        line.style.borderTopColor = style.color;
-        key.append(line, document.createTextNode(tr.label));
-        keys.append(key);
-      }
-    }
-    const tools = document.createElement("div");
-    tools.className = "panel-tools";
-    const whole = document.createElement("button");
-    whole.type = "button";
-    whole.className = "button quiet small";
-    whole.textContent = "Whole run";
-    whole.addEventListener("click", () => this.setRange(null));
-    const png = document.createElement("button");
-    png.type = "button";
-    png.className = "button quiet small";
-    png.textContent = "PNG";
-    png.title = "Save this chart as an image";
-    png.addEventListener("click", () => {
-      const a = document.createElement("a");
-      a.href = this.charts.get(panel.id).toPNG();
-      a.download = `${this.runId}-${panel.id}.png`;
+        return el("span", { className: "trace-key" }, el("span", { className: `line-swatch ${style.dash}`, style: { borderTopColor: style.color } }), tr.label);
+      }),
+    );
+    const png = () => {
+      const a = el("a", { href: this.charts.get(panel.id).toPNG(), download: `${this.runId}-${panel.id}.png` });
       a.click();
-    });
-    tools.append(whole, png);
-    head.append(title, kinds, keys, tools);
-    const chart = document.createElement("div");
-    chart.className = "chart";
-    chart.id = `chart-${panel.id}`;
-    box.append(head, chart);
+    };
+    const tools = el(
+      "div",
+      { className: "panel-tools" },
+      el("button", { type: "button", className: "button quiet small", onclick: () => this.setRange(null) }, "Whole run"),
+      el("button", { type: "button", className: "button quiet small", title: "Save this chart as an image", onclick: png }, "PNG"),
+    );
+    const chart = el("div", { className: "chart", id: `chart-${panel.id}` });
+    const box = el("div", { className: "panel" }, el("div", { className: "panel-head" }, el("h3", {}, panel.title), kinds, keys, tools), chart);
     return { box, chart };
   }
 
@@ -190,15 +158,9 @@ export class Timelines {
       this.charts.set(panel.id, strip);
     }
     for (const panel of this.emptyPanels) {
-      const box = document.createElement("div");
-      box.className = "panel empty-panel";
-      const title = document.createElement("h3");
-      title.textContent = panel.title;
-      const why = document.createElement("p");
-      why.className = "empty";
-      why.textContent = panel.empty_reason || "Nothing to draw.";
-      box.append(title, why);
-      this.container.append(box);
+      this.container.append(
+        el("div", { className: "panel empty-panel" }, el("h3", {}, panel.title), el("p", { className: "empty" }, panel.empty_reason || "Nothing to draw.")),
+      );
     }
     const series = await request;
     performance.mark("outrigger:series-in");
