@@ -15,8 +15,10 @@ held no comment, blank or malformed line, so row ``i`` is line ``first + i``.
 Otherwise the block takes the slow path: the lines are classified with numpy
 (comment, blank, wrong number of fields), the good lines are parsed as text and
 every column is validated and converted on its own, so each bad value can be
-traced to its line. Fields must not contain quoted delimiters or line breaks
-(numeric logs do not); such a file is reported as having malformed lines.
+traced to its line. Fields may be quoted as RFC 4180 says (a delimiter or a
+doubled quote mark inside quotes is part of the field); a line break inside a
+quoted field is not supported (one record per line), and its lines are reported
+as malformed.
 """
 
 from __future__ import annotations
@@ -45,6 +47,14 @@ PARQUET_BATCH_ROWS = 1 << 18
 PEEK_BYTES = 1 << 20
 #: Most skipped lines kept in the report (all are counted).
 MAX_LISTED_LINES = 100
+
+#: The CSV quote mark (RFC 4180).
+QUOTE = b'"'
+#: Why a line with an odd number of quote marks is skipped.
+UNPAIRED_QUOTE = (
+    "unpaired quote mark (truncated line, or a line break inside a quoted field, which "
+    "is not supported: keep each record on one line)"
+)
 
 _FLOAT_RE = r"(?i)^[-+]?((\d+(\.\d*)?|\.\d+)(e[-+]?\d+)?|inf|infinity|nan)$"
 _INT_RE = r"^[-+]?\d+$"
@@ -334,11 +344,25 @@ def _line_table(block: bytes, delimiter: str, ncols: int, first: int) -> tuple[n
     has = seg_len > 0
     cr[has] = buf[ends[has] - 1] == 13
     text_len = seg_len - cr
-    cum = np.concatenate(([0], np.cumsum(buf == ord(delimiter))))
+    delim = buf == ord(delimiter)
+    unbalanced = np.zeros(len(starts), bool)
+    if QUOTE in block:
+        # RFC 4180 quoting: a delimiter between a pair of quote marks belongs to the field
+        # (a doubled quote inside a quoted field is a pair too). Parity of the quote marks
+        # since the line's start, per byte; a line with an odd count is malformed.
+        quote = buf == QUOTE[0]
+        cq = np.concatenate(([0], np.cumsum(quote, dtype=np.int32)))
+        line_of = np.concatenate(([0], np.cumsum(buf == 10, dtype=np.int32)[:-1]))
+        line_of = np.minimum(line_of, max(len(starts) - 1, 0))
+        inside = (cq[:-1] - cq[starts][line_of]) % 2 == 1
+        delim &= ~inside
+        unbalanced = (cq[ends] - cq[starts]) % 2 == 1
+    cum = np.concatenate(([0], np.cumsum(delim, dtype=np.int32)))
     fields = cum[ends] - cum[starts] + 1
     first_char = np.where(text_len > 0, buf[np.minimum(starts, max(len(buf) - 1, 0))], 0)
     blank = text_len == 0
     comment = first_char == ord("#")
+    fields = np.where(unbalanced, -1, fields)  # -1: an unpaired quote mark (see iter_csv)
     valid = ~blank & ~comment & (fields == ncols)
     numbers = first + np.arange(len(starts))
     return buf, starts, ends, valid, blank | comment, fields, numbers
@@ -400,7 +424,9 @@ def iter_csv(
             bad.add(
                 numbers[idx],
                 [
-                    f"expected {ncols} fields, found {f} (truncated or malformed line)"
+                    UNPAIRED_QUOTE
+                    if f < 0
+                    else f"expected {ncols} fields, found {f} (truncated or malformed line)"
                     for f in fields[idx]
                 ],
             )

@@ -200,6 +200,43 @@ def test_garbage_and_truncated_lines_skipped_with_line_numbers(tmp_path, monkeyp
     assert out.report["state"]["rows"] == 599
 
 
+@pytest.mark.parametrize("garbage", [False, True], ids=["fast-path", "slow-path"])
+def test_quoted_fields_with_delimiters_and_quotes(tmp_path, monkeypatch, garbage):
+    monkeypatch.setattr(ingest_read, "BLOCK_BYTES", 4096)
+    lines = state_lines(300)
+    # RFC 4180, section 2: a field in double quotes may hold the delimiter, and a double
+    # quote inside it is written twice.
+    lines[10] = lines[10].replace(",stand,", ',"stand, tethered",')
+    lines[11] = lines[11].replace(",drive,", ',"drive ""slow""",')
+    lines[12] = lines[12].replace(",stand,", ',"stand",')
+    if garbage:  # a bad value in the same block sends it through the line-by-line path
+        lines[20] = lines[20].replace(lines[20].split(",")[2], "??", 1)
+    archive, out = _ingest(tmp_path, lines)
+    st = _stream(archive, out.run_id)
+    modes = st["extra.mode"].tolist()
+    # lines[k] is file line k + 1 and row k - 2 (a comment line and the header come first)
+    assert modes[8:11] == ["stand, tethered", 'drive "slow"', "stand"]
+    assert st["leg_l.length"].iloc[8] == pytest.approx(0.250 + (8 % 7) / 1000)
+    skipped = out.report["state"]["skipped_lines"]
+    assert [s["line"] for s in skipped["lines"]] == ([21] if garbage else [])
+    assert out.report["state"]["rows"] == 300 - garbage
+
+
+def test_a_line_break_inside_quotes_is_reported_not_misread(tmp_path, monkeypatch):
+    monkeypatch.setattr(ingest_read, "BLOCK_BYTES", 4096)
+    lines = state_lines(300)
+    head, tail = lines[50].split(",stand,")
+    lines[50] = f'{head},"stand'
+    lines.insert(51, f'by",{tail}')  # one record over file lines 51 and 52
+    archive, out = _ingest(tmp_path, lines)
+    skipped = out.report["state"]["skipped_lines"]
+    assert {s["line"] for s in skipped["lines"]} == {51, 52}
+    assert all("quote" in s["reason"] for s in skipped["lines"])
+    assert out.report["state"]["rows"] == 299
+    st = _stream(archive, out.run_id)
+    assert not st["extra.mode"].str.contains("by").any()
+
+
 @pytest.mark.parametrize(
     ("sep", "newline", "suffix"),
     [(";", "\n", ".csv"), ("\t", "\n", ".csv"), (",", "\r\n", ".csv"), (",", "\n", ".csv.gz")],
