@@ -6,11 +6,17 @@ engine that reads Parquet datasets (DuckDB locally, for instance
 ``SELECT * FROM read_parquet('outrigger-data/fleet/events/*/*.parquet',
 hive_partitioning = true)``) or ``pyarrow.dataset`` can query across all runs
 without opening each run folder. The run folders stay the truth: these tables
-are rewritten whenever a run is analysed and removed with the run.
+are rewritten whenever a run is analysed and removed with the run. Each
+partition carries a stamp of the results it was written from (a hash of the
+run's analysis summary, in the Parquet file's key-value metadata), so that
+rows left stale by an analysis that stopped between storing its results and
+writing its fleet rows are found and rewritten (``analysis.pipeline.sync_fleet``).
 """
 
 from __future__ import annotations
 
+import hashlib
+import json
 import os
 import secrets
 import shutil
@@ -28,6 +34,14 @@ TABLES = ("events", "kpis")
 
 #: Run metadata copied into every fleet row, so fleet queries can filter on it.
 RUN_COLUMNS = ("course", "controller", "date")
+#: Key of the results stamp in each partition file's metadata.
+STAMP_KEY = b"outrigger.results"
+
+
+def results_stamp(summary: Mapping[str, Any]) -> str:
+    """Stamp of one analysis's results: a hash of its summary (KPIs, thresholds, time...)."""
+    text = json.dumps(summary, sort_keys=True, separators=(",", ":"), default=str)
+    return hashlib.sha256(text.encode()).hexdigest()[:24]
 
 
 def flatten_kpis(kpis: Mapping[str, Any]) -> list[dict[str, Any]]:
@@ -60,12 +74,40 @@ def _partition(root: Path, table: str, run_id: str) -> Path:
     return root / FLEET_DIR / table / f"run_id={run_id}"
 
 
-def _write_atomic(frame: pd.DataFrame, folder: Path) -> None:
+def _write_atomic(frame: pd.DataFrame, folder: Path, stamp: str | None) -> None:
     """Replace ``folder/part-0.parquet`` by a new file, via a temporary name."""
     folder.mkdir(parents=True, exist_ok=True)
     tmp = folder / f".part-0.{secrets.token_hex(4)}.tmp"
-    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), tmp, compression="zstd")
+    table = pa.Table.from_pandas(frame, preserve_index=False)
+    if stamp is not None:
+        table = table.replace_schema_metadata(
+            {**(table.schema.metadata or {}), STAMP_KEY: stamp.encode()}
+        )
+    pq.write_table(table, tmp, compression="zstd")
     os.replace(tmp, folder / "part-0.parquet")
+
+
+def fleet_stamp(root: str | os.PathLike[str], run_id: str) -> str | None:
+    """The results stamp both of a run's partitions carry; None if missing or unequal."""
+    stamps = set()
+    for table in TABLES:
+        try:
+            meta = pq.read_schema(_partition(Path(root), table, run_id) / "part-0.parquet").metadata
+        except (OSError, pa.ArrowInvalid):
+            return None
+        stamps.add((meta or {}).get(STAMP_KEY))
+    found = stamps.pop() if len(stamps) == 1 else None
+    return found.decode() if found else None
+
+
+def fleet_run_ids(root: str | os.PathLike[str]) -> set[str]:
+    """Runs that have rows in any fleet table."""
+    ids = set()
+    for table in TABLES:
+        folder = Path(root) / FLEET_DIR / table
+        if folder.is_dir():
+            ids |= {p.name.split("=", 1)[1] for p in folder.glob("run_id=*") if p.is_dir()}
+    return ids
 
 
 def write_fleet_rows(
@@ -74,6 +116,7 @@ def write_fleet_rows(
     meta: Mapping[str, Any],
     events: pd.DataFrame,
     kpis: Mapping[str, Any],
+    stamp: str | None = None,
 ) -> None:
     """Write (or replace) one run's rows of the fleet tables.
 
@@ -89,6 +132,8 @@ def write_fleet_rows(
         The run's events table as stored in its results.
     kpis : mapping
         KPIs by detector, as in the analysis summary.
+    stamp : str, optional
+        :func:`results_stamp` of the summary these rows come from.
     """
     base = Path(root)
     run_cols = {c: meta.get(c) for c in RUN_COLUMNS}
@@ -99,8 +144,8 @@ def write_fleet_rows(
     kp["value"] = kp["value"].astype(float)
     for c, v in run_cols.items():
         kp[c] = pd.Series([v] * len(kp), dtype="string")
-    _write_atomic(ev, _partition(base, "events", run_id))
-    _write_atomic(kp, _partition(base, "kpis", run_id))
+    _write_atomic(ev, _partition(base, "events", run_id), stamp)
+    _write_atomic(kp, _partition(base, "kpis", run_id), stamp)
 
 
 def delete_fleet_rows(root: str | os.PathLike[str], run_id: str) -> None:

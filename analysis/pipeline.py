@@ -20,7 +20,13 @@ import numpy as np
 import pandas as pd
 
 from analysis import __version__, catalogue
-from analysis.archive_fleet import write_fleet_rows
+from analysis.archive_fleet import (
+    delete_fleet_rows,
+    fleet_run_ids,
+    fleet_stamp,
+    results_stamp,
+    write_fleet_rows,
+)
 from analysis.balance import detect_balance
 from analysis.events import DetectorResult, Event, events_frame
 from analysis.limits import headline_kpis
@@ -224,9 +230,40 @@ def analyse_run(
     result = analyse_frame(frame, profile, thresholds, progress)
     events = events_frame(result.events)
     overview = build_overview(frame, result.series)  # the Run page's first draw
-    archive.write_results(run_id, events, result.series, result.summary(run_id), overview)
-    write_fleet_rows(archive.root, run_id, archive.get_meta(run_id), events, result.kpis)
+    summary = result.summary(run_id)
+    archive.write_results(run_id, events, result.series, summary, overview)
+    write_fleet_rows(
+        archive.root, run_id, archive.get_meta(run_id), events, result.kpis, results_stamp(summary)
+    )
     return result
+
+
+def sync_fleet(archive: Archive) -> list[str]:
+    """Bring the fleet tables in line with the stored results (the truth).
+
+    Rows of a run whose stamp differs from its results (an analysis stopped
+    between storing its results and writing its fleet rows, or rows written by an
+    older version) are rewritten from the stored events and KPIs; rows of runs
+    that are gone or not analysed are removed. Returns the runs whose rows changed.
+    """
+    changed = []
+    analysed = set()
+    for run in archive.list_runs():
+        stored = archive.read_results(run["run_id"]) if run["analysed"] else None
+        if stored is None:
+            continue
+        run_id = run["run_id"]
+        analysed.add(run_id)
+        events, summary = stored
+        stamp = results_stamp(summary)
+        if fleet_stamp(archive.root, run_id) != stamp:
+            meta = archive.get_meta(run_id)
+            write_fleet_rows(archive.root, run_id, meta, events, summary.get("kpis", {}), stamp)
+            changed.append(run_id)
+    for run_id in sorted(fleet_run_ids(archive.root) - analysed):
+        delete_fleet_rows(archive.root, run_id)
+        changed.append(run_id)
+    return changed
 
 
 def load_analysis(archive: Archive, run_id: str) -> dict[str, Any] | None:

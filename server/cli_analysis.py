@@ -13,7 +13,7 @@ from analysis.batch import BatchOutcome, reanalyse
 from analysis.catalogue import EVENT_KINDS
 from analysis.errors import ThresholdsError
 from analysis.limits import check_limits, load_limits
-from analysis.pipeline import analyse_run, load_analysis
+from analysis.pipeline import analyse_run, load_analysis, sync_fleet
 from analysis.profile import load_thresholds
 from server.cli import add_data_option, data_dir
 
@@ -141,6 +141,9 @@ def _analyse_all(args: argparse.Namespace) -> int:
 
 def _fleet(args: argparse.Namespace) -> int:
     archive = Archive(data_dir(args))
+    repaired = sync_fleet(archive)  # rows an interrupted analysis left stale
+    if repaired:
+        print(f"fleet rows brought up to date for {len(repaired)} run(s)", file=sys.stderr)
     table = read_fleet(archive.root, args.table)
     if table.empty:
         print("no analysed run in this archive yet (run `outrigger analyse RUN`)")
