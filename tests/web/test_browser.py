@@ -258,3 +258,43 @@ def test_upload_error_is_shown_in_plain_words(
     assert "ChannelMapError" in text
     assert "when" in text
     assert "Traceback" not in text
+
+
+def test_the_address_keeps_the_window_and_opens_it_again(
+    page: Any, live: LiveServer, uploaded: str
+) -> None:
+    page.goto(f"{live.url}/run.html?id={uploaded}&t0=10&t1=12")
+    page.wait_for_selector("body[data-charts-ready='1']", timeout=60_000)
+    page.wait_for_function("() => document.body.dataset.window.startsWith('9.')")
+    assert all(r == pytest.approx([10, 12]) for r in page.evaluate(RANGES_JS))
+    page.evaluate("() => document.getElementById('charts').timelines.setRange([20.5, 31.25])")
+    assert "t0=20.500&t1=31.250" in page.url
+    page.locator("#chart-tip canvas.strip-overlay").dblclick()
+    assert "t0=" not in page.url and f"id={uploaded}" in page.url
+    assert page.page_errors == []
+
+
+def test_a_late_answer_for_an_older_window_does_not_move_the_charts_back(
+    page: Any, live: LiveServer, uploaded: str
+) -> None:
+    _open_run(page, live, uploaded)
+    held: list[Any] = []
+    page.route("**/series?*t0=*", lambda route: held.append(route))
+    page.evaluate("() => document.getElementById('charts').timelines.setRange([20, 24])")
+    for _ in range(100):  # until the first window's request is out (and held)
+        if held:
+            break
+        page.wait_for_timeout(20)
+    assert len(held) == 1
+    older = page.request.get(held[0].request.url).body()
+    page.evaluate("() => document.getElementById('charts').timelines.setRange([40, 44])")
+    # The older window's answer arrives right after the newer zoom, within its pause.
+    held[0].fulfill(status=200, body=older, content_type="application/json")
+    page.wait_for_timeout(300)
+    assert len(held) == 2  # the newer window's request is out, still held
+    assert all(r == pytest.approx([40, 44]) for r in page.evaluate(RANGES_JS))
+    for route in held[1:]:
+        route.continue_()
+    page.wait_for_function("() => document.body.dataset.window.startsWith('39.')")
+    assert all(r == pytest.approx([40, 44]) for r in page.evaluate(RANGES_JS))
+    assert page.page_errors == []

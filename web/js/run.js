@@ -254,6 +254,26 @@ function setupEdit() {
   });
 }
 
+// ----- the shown window in the address (a link opens the run at the same moment) -------------
+function windowFromUrl() {
+  const params = new URLSearchParams(location.search);
+  const t0 = Number(params.get("t0"));
+  const t1 = Number(params.get("t1"));
+  return params.has("t0") && params.has("t1") && Number.isFinite(t0) && Number.isFinite(t1) && t1 > t0 ? [t0, t1] : null;
+}
+
+function rememberWindow(range) {
+  const params = new URLSearchParams(location.search);
+  if (range) {
+    params.set("t0", range[0].toFixed(3));
+    params.set("t1", range[1].toFixed(3));
+  } else {
+    params.delete("t0");
+    params.delete("t1");
+  }
+  history.replaceState(null, "", `${location.pathname}?${params}`);
+}
+
 // ----- load --------------------------------------------------------------------------
 async function load() {
   // Every request at once; the charts' series go out as soon as the plan is in. On the
@@ -269,8 +289,11 @@ async function load() {
   const analysis = data.analysis;
   events = analysis ? analysis.events : [];
   const { panels } = await planRequest;
-  timelines = new Timelines(document.getElementById("charts"), runId, panels, events);
-  const drawn = timelines.draw();
+  timelines = new Timelines(document.getElementById("charts"), runId, panels, events, { onRange: rememberWindow });
+  const opening = windowFromUrl();
+  const drawn = timelines.draw().then(() => {
+    if (opening) timelines.setRange(timelines.clamp(opening));
+  });
   showHead(run);
   showKpis(data.headline, data.headline_shown, analysis);
   // The event list (hundreds of rows on a long run) and the rest of the page are built

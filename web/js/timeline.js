@@ -26,7 +26,8 @@ const MAX_POINTS = 2000;
 const MIN_SPAN_S = 0.05; // narrowest window a zoom may ask for [s]
 
 export class Timelines {
-  constructor(container, runId, plan, events, { points = null, onWindow = null } = {}) {
+  // onWindow(series): after each fetch; onRange(range|null): when the shown window changes.
+  constructor(container, runId, plan, events, { points = null, onWindow = null, onRange = null } = {}) {
     this.container = container;
     this.runId = runId;
     this.panels = plan.filter((p) => p.rows.length);
@@ -35,6 +36,7 @@ export class Timelines {
     this.hiddenKinds = new Set();
     this.points = points;
     this.onWindow = onWindow;
+    this.onRange = onRange;
     this.charts = new Map(); // panel id -> StripChart
     this.series = null; // the last series answer (every panel's signals)
     this.timer = null;
@@ -209,6 +211,8 @@ export class Timelines {
       range = [a, b];
     }
     this.range = range;
+    this.request += 1; // a window still on its way is for an older range: drop it
+    if (this.onRange) this.onRange(range);
     if (!this.zoomStarted) this.zoomStarted = performance.now();
     if (this.series) {
       const target = range || this.fullRange;
