@@ -284,6 +284,9 @@ async function load() {
   const runRequest = early ? readJSON(early.run) : getJSON(`/api/runs/${id}`);
   const planRequest = early ? readJSON(early.plan) : getJSON(`/api/runs/${id}/charts`);
   const infoRequest = serverInfo();
+  // Marked as handled: when the run's own request fails, that is the error shown.
+  planRequest.catch(() => {});
+  infoRequest.catch(() => {});
   const data = await runRequest;
   run = data.run;
   const analysis = data.analysis;
