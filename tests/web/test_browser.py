@@ -298,3 +298,11 @@ def test_a_late_answer_for_an_older_window_does_not_move_the_charts_back(
     page.wait_for_function("() => document.body.dataset.window.startsWith('39.')")
     assert all(r == pytest.approx([40, 44]) for r in page.evaluate(RANGES_JS))
     assert page.page_errors == []
+
+
+def test_an_unknown_run_is_said_in_plain_words(page: Any, live: LiveServer) -> None:
+    page.goto(f"{live.url}/run.html?id=20990101-0000-abcdef")
+    page.wait_for_selector("#error:not([hidden])", timeout=30_000)
+    text = page.locator("#error").inner_text()
+    assert "RunNotFoundError" in text and "20990101-0000-abcdef" in text
+    assert page.page_errors == []  # said once, on the page; no unhandled rejection
