@@ -190,7 +190,8 @@ def series(
     are null values, so charts break the line there. Each signal gives its ``unit``.
     The whole run (no ``t0``/``t1``, ``points`` up to 2048) is reduced from the run's
     stored overview (each of 4096 time buckets keeps its min and max sample), so
-    every extreme of the run is there.
+    every extreme of the run is there; a run without a current overview is reduced
+    from its samples while the overview is built in the background.
     """
     names = [s.strip() for s in signals.split(",") if s.strip()]
     if not names:
@@ -208,7 +209,10 @@ def series(
     out: dict[str, Any] = {}
     bounds: tuple[float, float] | None = None
     stored = None
-    if t0 is None and t1 is None and points <= overview_max_points(OVERVIEW_BUCKETS):
+    whole = t0 is None and t1 is None and points <= overview_max_points(OVERVIEW_BUCKETS)
+    if whole:
+        # A run stored before overviews existed is read as before this once, and its
+        # overview is built in the background (building it here took seconds).
         stored = cache.stored_overview(archive, run_id)
     if stored is not None and points <= overview_max_points(stored.buckets):
         held = [n for n in dict.fromkeys(names) if n in stored.signals]
@@ -218,6 +222,9 @@ def series(
     if rest:
         read_bounds = _add_read(archive, cache, run_id, rest, t0, t1, points, units, out)
         bounds = bounds or read_bounds
+    if whole and stored is None:
+        # After this request's own read: the two would share the cores.
+        cache.build_overview_later(archive, run_id)
     lo, hi = bounds if bounds is not None else _bounds(np.empty(0), t0, t1)
     body = {
         "run_id": run_id,

@@ -40,7 +40,7 @@ import numpy as np
 
 from analysis import catalogue as cat
 from analysis.archive import Archive
-from analysis.archive_overview import ensure_overview, overview_fingerprint
+from analysis.archive_overview import ensure_overview, overview_fingerprint, read_overview
 from analysis.overview import DERIVED, FRAME, RunOverview
 from server.downsample import Reduced, TimeBase, time_base
 
@@ -309,13 +309,63 @@ class RunCache:
                 self._fit(run_id)
         return reduced
 
-    def stored_overview(self, archive: Archive, run_id: str) -> RunOverview:
-        """The run's whole-run chart overview: from memory, its file, or built now.
+    def stored_overview(self, archive: Archive, run_id: str) -> RunOverview | None:
+        """The run's whole-run chart overview, from memory or its file; None when missing.
 
         Checked against the run's files at every call (:func:`overview_fingerprint`),
-        so a re-analysis by any process is seen. Concurrent first requests of a
-        run read or build it once.
+        so a re-analysis by any process is seen. A missing, stale or unreadable
+        overview (a run stored before overviews existed) is not built here: None is
+        returned, and the caller has it built in the background
+        (:meth:`build_overview_later`) once its own read is done.
         """
+        found = self._held_overview(archive, run_id)
+        if found is None:
+            found = read_overview(archive, run_id)
+            if found is None:
+                return None
+        return self._keep_overview(archive, run_id, found)
+
+    def _held_overview(self, archive: Archive, run_id: str) -> RunOverview | None:
+        with self._lock:
+            entry = self._entries.get(run_id)
+            have = entry.stored if entry is not None else None
+        if have is not None and have.fingerprint == overview_fingerprint(archive, run_id):
+            self.hits += 1
+            return have
+        return None
+
+    def _keep_overview(self, archive: Archive, run_id: str, overview: RunOverview) -> RunOverview:
+        if self.max_bytes > 0:
+            entry = self._entry(archive, run_id)
+            with self._lock:
+                if self._current(run_id, entry):
+                    entry.stored = overview
+                    self._fit(run_id)
+        return overview
+
+    def build_overview_later(self, archive: Archive, run_id: str) -> None:
+        """Build and store the run's overview in a background thread (one per run)."""
+
+        def build() -> None:
+            try:
+                self._stored_overview(archive, run_id)
+            except Exception:  # an optimisation: log, never raise
+                log.warning("Building the chart overview of run %s failed.", run_id, exc_info=True)
+            finally:
+                with self._lock:
+                    if self._warming.get(f"overview:{run_id}") is threading.current_thread():
+                        del self._warming[f"overview:{run_id}"]
+
+        with self._lock:
+            running = self._warming.get(f"overview:{run_id}")
+            if running is not None and running.is_alive():
+                return
+            thread = threading.Thread(target=build, name=f"overview-{run_id}", daemon=True)
+            self._warming[f"overview:{run_id}"] = thread
+        thread.start()
+
+    def _stored_overview(self, archive: Archive, run_id: str) -> RunOverview:
+        """The run's overview: from memory, its file, or built now (once per run)."""
         now = overview_fingerprint(archive, run_id)
         entry = self._entry(archive, run_id) if self.max_bytes > 0 else None
 
