@@ -1,4 +1,4 @@
-"""The canvas strip chart of the Run page (web/js/stripchart.js), in headless Chromium.
+"""The canvas strip chart of the Run page (web/js/stripchart.js, ticks.js), in headless Chromium.
 
 Tick steps against Heckbert's nice-number rule, and what the canvas really
 painted: event bands blended over the plot background as the compositing rule
@@ -26,12 +26,15 @@ def _rgb(hex_colour: str) -> tuple[int, int, int]:
 
 def _module(page: Any, live: LiveServer) -> None:
     page.goto(f"{live.url}/api.html")
-    page.evaluate("async () => { window.sc = await import('/js/stripchart.js'); }")
+    page.evaluate(
+        "async () => { window.sc = await import('/js/stripchart.js');"
+        " window.ticks = await import('/js/ticks.js'); }"
+    )
 
 
 def test_loose_labels_match_heckberts_worked_example(page: Any, live: LiveServer) -> None:
     _module(page, live)
-    got = page.evaluate("() => sc.looseLabels(105, 543, 5)")
+    got = page.evaluate("() => ticks.looseLabels(105, 543, 5)")
     # Heckbert (1990), "Nice numbers for graph labels", Graphics Gems: data 105..543 with
     # 5 ticks is labelled 100..600 by 100 (from memory of the paper's example).
     assert got == {"step": 100, "lo": 100, "hi": 600}
@@ -52,7 +55,7 @@ def test_ticks_are_nice_steps_inside_the_axis(
     page: Any, live: LiveServer, lo: float, hi: float, count: int
 ) -> None:
     _module(page, live)
-    got = page.evaluate("([a, b, n]) => sc.ticksWithin(a, b, n)", [lo, hi, count])
+    got = page.evaluate("([a, b, n]) => ticks.ticksWithin(a, b, n)", [lo, hi, count])
     step, values = got["step"], got["values"]
     mantissa = step / 10 ** math.floor(math.log10(step) + 1e-12)
     # Heckbert (1990): steps are 1, 2 or 5 times a power of ten.
@@ -67,8 +70,8 @@ def test_ticks_are_nice_steps_inside_the_axis(
 def test_tick_labels_show_the_steps_decimals(page: Any, live: LiveServer) -> None:
     _module(page, live)
     got = page.evaluate(
-        "() => [sc.tickLabel(0.1 + 0.2, 0.1), sc.tickLabel(-1e-17, 0.5), sc.tickLabel(1800, 200, ' s'),"
-        " sc.tickLabel(0.15, 0.05)]"
+        "() => [ticks.tickLabel(0.1 + 0.2, 0.1), ticks.tickLabel(-1e-17, 0.5), ticks.tickLabel(1800, 200, ' s'),"
+        " ticks.tickLabel(0.15, 0.05)]"
     )
     assert got == ["0.3", "0.0", "1800 s", "0.15"]
 
