@@ -306,3 +306,40 @@ def test_an_unknown_run_is_said_in_plain_words(page: Any, live: LiveServer) -> N
     text = page.locator("#error").inner_text()
     assert "RunNotFoundError" in text and "20990101-0000-abcdef" in text
     assert page.page_errors == []  # said once, on the page; no unhandled rejection
+
+
+def test_shift_drag_pans_and_png_saves_the_chart(
+    page: Any, live: LiveServer, uploaded: str
+) -> None:
+    _open_run(page, live, uploaded)
+    page.evaluate("() => document.getElementById('charts').timelines.setRange([30, 40])")
+    overlay = page.locator("#chart-roll canvas.strip-overlay")
+    overlay.scroll_into_view_if_needed()
+    box = overlay.bounding_box()
+    assert box is not None
+    geometry = page.evaluate(
+        "() => { const c = document.getElementById('chart-roll').stripChart;"
+        " return {left: c.plotLeft(), right: c.plotRight()}; }"
+    )
+    width = geometry["right"] - geometry["left"]
+    x0 = box["x"] + geometry["left"] + 0.6 * width
+    page.keyboard.down("Shift")
+    page.mouse.move(x0, box["y"] + 60)
+    page.mouse.down()
+    page.mouse.move(x0 - 0.1 * width, box["y"] + 60)
+    page.mouse.move(x0 - 0.2 * width, box["y"] + 60)
+    page.mouse.up()
+    page.keyboard.up("Shift")
+    # Dragging left by a fifth of the plot moves the 10 s window 2 s later, every chart alike.
+    ranges = page.evaluate(RANGES_JS)
+    for r in ranges:
+        assert r == pytest.approx([32, 42], abs=0.05), ranges  # tolerance: sub-pixel mouse
+    with page.expect_download() as download:
+        page.locator(".panel", has=page.locator("#chart-roll")).get_by_role(
+            "button", name="PNG"
+        ).click()
+    path = download.value.path()
+    assert download.value.suggested_filename == f"{uploaded}-roll.png"
+    # PNG signature (ISO/IEC 15948, section 5.2): the first eight bytes of every PNG file.
+    assert path is not None and path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert page.page_errors == []
