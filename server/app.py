@@ -31,6 +31,7 @@ from analysis.archive import Archive
 from analysis.errors import ArchiveError, OutriggerError
 from server import (
     routes_configs,
+    routes_export,
     routes_jobs,
     routes_meta,
     routes_runs,
@@ -46,6 +47,7 @@ log = logging.getLogger("outrigger.server")
 ROUTERS: tuple[ModuleType, ...] = (
     routes_meta,
     routes_runs,
+    routes_export,
     routes_series,
     routes_upload,
     routes_jobs,

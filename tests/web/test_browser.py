@@ -343,3 +343,32 @@ def test_shift_drag_pans_and_png_saves_the_chart(
     # PNG signature (ISO/IEC 15948, section 5.2): the first eight bytes of every PNG file.
     assert path is not None and path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert page.page_errors == []
+
+
+def test_window_csv_saves_the_samples_the_charts_show(
+    page: Any, live: LiveServer, uploaded: str
+) -> None:
+    _open_run(page, live, uploaded)
+    page.evaluate("() => document.getElementById('charts').timelines.setRange([10, 12])")
+    with page.expect_download() as download:
+        page.click("#dl-window")
+    path = download.value.path()
+    assert path is not None
+    lines = path.read_text().splitlines()
+    assert lines[0].startswith("t [s],")
+    # 200 Hz demo state log over 2 s, both ends inclusive (demo state rate; common practice).
+    assert len(lines) - 1 == 401
+    assert page.locator("#error").is_hidden()
+    # The whole of a long run is refused by the server; the page says so in words.
+    page.route(
+        "**/window.csv?*",
+        lambda route: route.fulfill(
+            status=400,
+            content_type="application/json",
+            body='{"error": {"type": "RequestError", "message": "Choose a shorter window."}}',
+        ),
+    )
+    page.click("#dl-window")
+    page.wait_for_selector("#error:not([hidden])")
+    assert "Choose a shorter window" in page.locator("#error").inner_text()
+    assert page.page_errors == []

@@ -274,6 +274,23 @@ function rememberWindow(range) {
   history.replaceState(null, "", `${location.pathname}?${params}`);
 }
 
+// Every sample of the shown window as CSV; the server says when a window is too large.
+async function downloadWindow() {
+  if (!timelines || !timelines.shown()) return;
+  const [t0, t1] = timelines.shown();
+  const params = new URLSearchParams({ t0: t0.toFixed(3), t1: t1.toFixed(3) });
+  errorBox.hidden = true;
+  try {
+    const response = await fetch(`/api/runs/${encodeURIComponent(runId)}/window.csv?${params}`);
+    if (!response.ok) await readJSON(Promise.resolve(response)); // throws the server's error
+    const link = el("a", { href: URL.createObjectURL(await response.blob()), download: `${runId}-${params.get("t0")}-${params.get("t1")}s.csv` });
+    link.click();
+    setTimeout(() => URL.revokeObjectURL(link.href), 10_000);
+  } catch (err) {
+    fail(err);
+  }
+}
+
 // ----- load --------------------------------------------------------------------------
 async function load() {
   // Every request at once; the charts' series go out as soon as the plan is in. On the
@@ -325,6 +342,7 @@ async function main() {
   }
   setupEdit();
   document.getElementById("reanalyse").addEventListener("click", reanalyse);
+  document.getElementById("dl-window").addEventListener("click", downloadWindow);
   try {
     await load();
   } catch (err) {
