@@ -74,14 +74,15 @@ def window_csv(
                 f"Run {run_id} has no signal {', '.join(unknown) or '(none named)'}. "
                 f"Signals: {', '.join(raw)}. Derived series: {', '.join(derived) or 'none'}."
             )
-    frame = archive.load_frame(run_id, columns=[n for n in names if n in raw], t0=t0, t1=t1)
-    rows = len(frame)
+    # The size from the time column alone, before any value column is read.
+    rows = len(archive.load_frame(run_id, columns=[], t0=t0, t1=t1))
     if rows * max(len(names), 1) > MAX_CELLS:
         raise ApiError(
             f"The window {t0:g} .. {t1:g} s holds {rows:,} samples of {len(names)} signals, "
             f"more than the {MAX_CELLS:,} values one export holds. Choose a shorter window "
             "or fewer signals; the whole run is in files.zip (Parquet)."
         )
+    frame = archive.load_frame(run_id, columns=[n for n in names if n in raw], t0=t0, t1=t1)
     out = frame[[cat.T, *[n for n in names if n in frame]]]
     wanted_series = [n for n in names if n in derived]
     if wanted_series:
