@@ -48,6 +48,8 @@ References
 
 from __future__ import annotations
 
+import threading
+import weakref
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -282,7 +284,32 @@ def _col(frame: pd.DataFrame, name: str) -> np.ndarray | None:
     return values if np.isfinite(values).any() else None
 
 
+#: The last frame's specific force: the tip and roll detectors both need it, and one
+#: analysis runs them on the same frame (a weak reference: the frame is never kept).
+_last_force: tuple[weakref.ref[pd.DataFrame], float, SpecificForce | str] | None = None
+_last_force_lock = threading.Lock()
+
+
 def com_specific_force(frame: pd.DataFrame, thresholds: Thresholds) -> SpecificForce | str:
+    """:func:`compute_com_specific_force`, computed once per frame and cutoff.
+
+    The detectors never change the frame they are given, so the same frame
+    object with the same ``accel_cutoff`` has the same specific force. The
+    result's arrays are shared: callers must not change them in place.
+    """
+    global _last_force
+    cutoff = float(thresholds.accel_cutoff)
+    with _last_force_lock:
+        last = _last_force
+    if last is not None and last[0]() is frame and last[1] == cutoff:
+        return last[2]
+    force = compute_com_specific_force(frame, thresholds)
+    with _last_force_lock:
+        _last_force = (weakref.ref(frame), cutoff, force)
+    return force
+
+
+def compute_com_specific_force(frame: pd.DataFrame, thresholds: Thresholds) -> SpecificForce | str:
     """Heading-frame specific force of the CoM from the log, or why it cannot be had.
 
     Parameters

@@ -407,3 +407,31 @@ def test_a_centred_zmp_has_no_side() -> None:
     # Force-angle margin upright at rest: the angle from straight down to a contact b/2
     # aside and L_c below is atan(b / (2 L_c)) (geometry; Papadopoulos & Rey 1996).
     assert kpis["min_force_angle"] == pytest.approx(np.arctan(TRACK / (2 * COM_HEIGHT)))
+
+
+def test_specific_force_is_computed_once_per_frame_and_cutoff():
+    import dataclasses
+
+    from analysis.tipover import com_specific_force, compute_com_specific_force
+
+    n = 400
+    t = np.arange(n) * 0.01
+    frame = _frame(
+        n,
+        {
+            cat.ACCEL_Y: 0.5 * np.sin(t),
+            cat.ACCEL_Z: np.full(n, G),
+            cat.ROLL: np.zeros(n),
+            cat.PITCH: np.zeros(n),
+        },
+    )
+    th = _profile().thresholds
+    first = com_specific_force(frame, th)
+    assert com_specific_force(frame, th) is first  # the tip and roll detectors share it
+    fresh = compute_com_specific_force(frame, th)
+    assert not isinstance(first, str) and not isinstance(fresh, str)
+    np.testing.assert_array_equal(first.f_y, fresh.f_y)
+    # Another frame (even equal) or another cutoff is computed anew.
+    assert com_specific_force(frame.copy(), th) is not first
+    other = dataclasses.replace(th, accel_cutoff=th.accel_cutoff / 2)
+    assert com_specific_force(frame, other) is not first
