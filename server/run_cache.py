@@ -48,8 +48,6 @@ __all__ = ["DERIVED", "FRAME", "Columns", "RunCache", "fingerprint"]
 
 log = logging.getLogger("outrigger.server")
 
-#: Locks that make concurrent first requests of one run build its overview once. [-]
-BUILD_LOCKS = 16
 #: Runs kept at most.
 MAX_RUNS = 4
 #: Whole-run reductions kept per run (one per signal and point budget).
@@ -148,12 +146,9 @@ class RunCache:
         self._entries: OrderedDict[str, _Entry] = OrderedDict()
         self._generations: dict[str, int] = {}
         self._oversized: dict[str, Fingerprint] = {}
-        self._build_locks = [threading.Lock() for _ in range(BUILD_LOCKS)]
         self._warming: dict[str, threading.Thread] = {}
         self.hits = 0
         self.loads = 0
-        #: Overviews read from their file or built (not served from memory). [-]
-        self.overview_reads = 0
 
     # --- bookkeeping ------------------------------------------------------------
 
@@ -344,55 +339,27 @@ class RunCache:
         return overview
 
     def build_overview_later(self, archive: Archive, run_id: str) -> None:
-        """Build and store the run's overview in a background thread (one per run)."""
+        """Build, store and keep the run's overview in a background thread (one per run)."""
+        key = f"overview:{run_id}"
 
         def build() -> None:
             try:
-                self._stored_overview(archive, run_id)
+                if self._held_overview(archive, run_id) is None:
+                    self._keep_overview(archive, run_id, ensure_overview(archive, run_id))
             except Exception:  # an optimisation: log, never raise
                 log.warning("Building the chart overview of run %s failed.", run_id, exc_info=True)
             finally:
                 with self._lock:
-                    if self._warming.get(f"overview:{run_id}") is threading.current_thread():
-                        del self._warming[f"overview:{run_id}"]
+                    if self._warming.get(key) is threading.current_thread():
+                        del self._warming[key]
 
         with self._lock:
-            running = self._warming.get(f"overview:{run_id}")
+            running = self._warming.get(key)
             if running is not None and running.is_alive():
                 return
             thread = threading.Thread(target=build, name=f"overview-{run_id}", daemon=True)
-            self._warming[f"overview:{run_id}"] = thread
+            self._warming[key] = thread
         thread.start()
-
-    def _stored_overview(self, archive: Archive, run_id: str) -> RunOverview:
-        """The run's overview: from memory, its file, or built now (once per run)."""
-        now = overview_fingerprint(archive, run_id)
-        entry = self._entry(archive, run_id) if self.max_bytes > 0 else None
-
-        def held() -> RunOverview | None:
-            if entry is None:
-                return None
-            with self._lock:
-                have = entry.stored
-            return have if have is not None and have.fingerprint == now else None
-
-        found = held()
-        if found is not None:
-            self.hits += 1
-            return found
-        with self._build_locks[hash(run_id) % BUILD_LOCKS]:
-            found = held()
-            if found is not None:
-                self.hits += 1
-                return found
-            self.overview_reads += 1
-            overview = ensure_overview(archive, run_id)
-            if entry is not None:
-                with self._lock:
-                    if self._current(run_id, entry):
-                        entry.stored = overview
-                        self._fit(run_id)
-        return overview
 
     def has_columns(self, run_id: str, source: str, names: list[str]) -> bool:
         """True when the columns ``names`` of the run are held (no read needed)."""
