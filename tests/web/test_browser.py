@@ -147,18 +147,25 @@ def test_run_page_draws_every_timeline_and_zooms_to_events(
     assert page.page_errors == []
 
 
-def test_dragging_across_one_chart_zooms_all_of_them(
-    page: Any, live: LiveServer, uploaded: str
-) -> None:
-    _open_run(page, live, uploaded)
-    overlay = page.locator("#chart-tip canvas.strip-overlay")
+def _plot_area(page: Any, chart: str) -> tuple[dict[str, float], dict[str, Any]]:
+    """The chart's overlay box on screen, and its plot area (left, right [px]) and range."""
+    overlay = page.locator(f"#chart-{chart} canvas.strip-overlay")
     overlay.scroll_into_view_if_needed()
     box = overlay.bounding_box()
     assert box is not None
     geometry = page.evaluate(
-        "() => { const c = document.getElementById('chart-tip').stripChart;"
-        " return {range: c.range, left: c.plotLeft(), right: c.plotRight()}; }"
+        "(id) => { const c = document.getElementById(id).stripChart;"
+        " return {range: c.range, left: c.plotLeft(), right: c.plotRight()}; }",
+        f"chart-{chart}",
     )
+    return box, geometry
+
+
+def test_dragging_across_one_chart_zooms_all_of_them(
+    page: Any, live: LiveServer, uploaded: str
+) -> None:
+    _open_run(page, live, uploaded)
+    box, geometry = _plot_area(page, "tip")
     a_px, b_px = geometry["left"] + 100.0, geometry["left"] + 300.0
     page.mouse.move(box["x"] + a_px, box["y"] + 60)
     page.mouse.down()
@@ -313,14 +320,7 @@ def test_shift_drag_pans_and_png_saves_the_chart(
 ) -> None:
     _open_run(page, live, uploaded)
     page.evaluate("() => document.getElementById('charts').timelines.setRange([30, 40])")
-    overlay = page.locator("#chart-roll canvas.strip-overlay")
-    overlay.scroll_into_view_if_needed()
-    box = overlay.bounding_box()
-    assert box is not None
-    geometry = page.evaluate(
-        "() => { const c = document.getElementById('chart-roll').stripChart;"
-        " return {left: c.plotLeft(), right: c.plotRight()}; }"
-    )
+    box, geometry = _plot_area(page, "roll")
     width = geometry["right"] - geometry["left"]
     x0 = box["x"] + geometry["left"] + 0.6 * width
     page.keyboard.down("Shift")
