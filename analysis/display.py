@@ -24,7 +24,7 @@ DISPLAY_UNITS: dict[str, str] = {
     "rad/s": "deg/s",
 }
 
-#: SI unit of each headline KPI (``analysis.limits.headline_kpis``), from the catalogue
+#: SI unit of each headline KPI (``analysis.detect.limits.headline_kpis``), from the catalogue
 #: signal it summarises; '' for ratios and counts.
 HEADLINE_SI_UNITS: dict[str, str] = {
     "worst_saturation_share": "",

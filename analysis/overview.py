@@ -13,10 +13,10 @@ downsampling applies to raw samples. A signal with at most ``2 * buckets``
 valid samples is kept whole, so short runs draw exactly as from raw samples.
 
 Why this module: the overview is built where analysis results are committed
-(:func:`analysis.pipeline.analyse_run`) and, for runs stored before it existed,
+(:func:`analysis.detect.pipeline.analyse_run`) and, for runs stored before it existed,
 on first use by the server; ``analysis/`` never imports ``server/``, so the
 reduction and the gap rule live here (numpy only, no files). The archive
-module :mod:`analysis.archive_overview` stores and reads it, and
+module :mod:`analysis.archive.overview_store` stores and reads it, and
 ``server.downsample`` uses the same gap rule for raw windows. This is plumbing
 for charts, not physics: it keeps samples as they are and computes nothing new.
 """

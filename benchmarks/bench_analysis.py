@@ -1,7 +1,7 @@
 """Benchmark: every detector on a one-hour, 400 Hz run against reading its Parquet.
 
 Builds a one-hour run by repeating a simulated demo lap of the invented robot
-(``analysis.demo``) at 400 Hz, ingests it into a scratch archive under
+(``analysis.demo.logs``) at 400 Hz, ingests it into a scratch archive under
 ``bench-output/`` (git-ignored), then, in this one process:
 
 * times ``Archive.load_frame`` (reading the run's Parquet into the analysis frame),
@@ -27,10 +27,10 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from analysis import catalogue as cat
-from analysis.archive import Archive
-from analysis.demo import demo_profile, profile_toml, simulate_run
-from analysis.ingest import ingest_files
-from analysis.pipeline import DETECTORS, analyse_frame
+from analysis.archive.store import Archive
+from analysis.demo.logs import demo_profile, profile_toml, simulate_run
+from analysis.detect.pipeline import DETECTORS, analyse_frame
+from analysis.ingest.stream import ingest_files
 
 ROOT = Path(__file__).resolve().parent.parent
 OUT = ROOT / "bench-output" / "analysis"

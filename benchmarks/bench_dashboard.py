@@ -46,11 +46,11 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from bench_analysis import RATE_HZ, build_frame, identity_map  # noqa: E402
 
 from analysis import catalogue as cat  # noqa: E402
-from analysis.archive import Archive  # noqa: E402
-from analysis.archive_overview import OVERVIEW_FILE  # noqa: E402
-from analysis.demo import profile_toml  # noqa: E402
-from analysis.ingest import ingest_files  # noqa: E402
-from analysis.pipeline import analyse_run  # noqa: E402
+from analysis.archive.overview_store import OVERVIEW_FILE  # noqa: E402
+from analysis.archive.store import Archive  # noqa: E402
+from analysis.demo.logs import profile_toml  # noqa: E402
+from analysis.detect.pipeline import analyse_run  # noqa: E402
+from analysis.ingest.stream import ingest_files  # noqa: E402
 from server.app import create_app  # noqa: E402
 
 ROOT = Path(__file__).resolve().parent.parent

@@ -6,7 +6,7 @@ child process so that each peak RSS is its own:
 
 * ``baseline``: pyarrow's streaming CSV reader into a zstd Parquet file with
   ~1M-row row groups, no unit conversion or checks;
-* ``ingest``: :func:`analysis.ingest.ingest_files` into a fresh archive.
+* ``ingest``: :func:`analysis.ingest.stream.ingest_files` into a fresh archive.
 
 Prints rows/s, MB/s, peak RSS and the ratio ingest time / baseline time.
 Targets: ratio <= 1.5 and peak RSS <= 1 GiB.
@@ -167,8 +167,8 @@ def child_baseline(csv: Path, out: Path, float_dictionary: bool = True) -> None:
 
 def child_ingest(csv: Path, out: Path) -> None:
     """Outrigger's ingest of the same file into a fresh archive."""
-    from analysis.archive import Archive  # imported before the clock starts (see main)
-    from analysis.ingest import ingest_files
+    from analysis.archive.store import Archive  # imported before the clock starts (see main)
+    from analysis.ingest.stream import ingest_files
 
     (out.parent / "bench_map.toml").write_text(_channel_map())
     (out.parent / "bench_profile.toml").write_text(PROFILE)
@@ -200,8 +200,8 @@ def main() -> None:
         kind, csv, out = args.child
         if kind == "ingest":  # module imports are not part of the measured conversion
             sys.path.insert(0, str(ROOT))
-            import analysis.archive  # noqa: F401
-            import analysis.ingest  # noqa: F401
+            import analysis.archive.store  # noqa: F401
+            import analysis.ingest.stream  # noqa: F401
         t = time.perf_counter()
         run = {
             "baseline": child_baseline,

@@ -27,17 +27,15 @@ from fastapi.staticfiles import StaticFiles
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from analysis import __version__
-from analysis.archive import Archive
+from analysis.archive.store import Archive
 from analysis.errors import ArchiveError, OutriggerError
-from server import (
-    routes_configs,
-    routes_export,
-    routes_jobs,
-    routes_meta,
-    routes_runs,
-    routes_series,
-    routes_upload,
-)
+from server.api import configs as routes_configs
+from server.api import export as routes_export
+from server.api import jobs as routes_jobs
+from server.api import meta as routes_meta
+from server.api import runs as routes_runs
+from server.api import series as routes_series
+from server.api import upload as routes_upload
 from server.jobs import JobManager
 from server.run_cache import DEFAULT_CACHE_MB, RunCache
 
@@ -55,7 +53,7 @@ ROUTERS: tuple[ModuleType, ...] = (
 )
 
 #: Route modules included when they import (each exposes ``router``); added by later features.
-OPTIONAL_ROUTERS: tuple[str, ...] = ("server.routes_compare",)
+OPTIONAL_ROUTERS: tuple[str, ...] = ("server.api.compare",)
 
 #: The static front end shipped with the package.
 WEB_DIR = Path(__file__).resolve().parent.parent / "web"
@@ -162,7 +160,7 @@ def create_app(
     app.state.features = {
         "token_required": bool(token),
         "max_upload_mb": int(max_upload_mb),
-        "pages": [m.__name__.rsplit("_", 1)[-1] for m in optional],
+        "pages": [m.__name__.rsplit(".", 1)[-1] for m in optional],
     }
 
     @app.exception_handler(OutriggerError)

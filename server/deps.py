@@ -16,7 +16,7 @@ from fastapi import Request
 from analysis.errors import OutriggerError
 
 if TYPE_CHECKING:
-    from analysis.archive import Archive
+    from analysis.archive.store import Archive
     from server.jobs import JobManager
     from server.run_cache import RunCache
 

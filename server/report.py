@@ -17,7 +17,7 @@ import plotly.graph_objects as go
 import plotly.io as pio
 from plotly.offline import get_plotlyjs
 
-from analysis.compare import Comparison, KpiRow
+from analysis.compare.compare import Comparison, KpiRow
 
 #: Run colours, the same as the compare page (web/js/palette.js RUN_COLOURS):
 #: black and neutral grey, which no event kind uses.
@@ -145,7 +145,7 @@ def build_report(comparison: Comparison, view: dict[str, Any], title: str | None
     ----------
     comparison : Comparison
     view : dict
-        From :func:`analysis.compare_view.overlay` on the same runs.
+        From :func:`analysis.compare.view.overlay` on the same runs.
     title : str, optional
         Page title (escaped).
 

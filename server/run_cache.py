@@ -20,7 +20,7 @@ drop the run's entry at once with :meth:`RunCache.invalidate`; a load that was
 in flight at that moment is not stored.
 
 The whole run's first draw comes from the run's stored chart overview
-(:mod:`analysis.archive_overview`), kept here once read, so it is fast whether
+(:mod:`analysis.archive.overview_store`), kept here once read, so it is fast whether
 the columns are cached or not. After such a draw :meth:`RunCache.warm_later`
 loads the columns in a background thread (one per run at a time; a failure is
 logged, never raised) so that the first zoom finds them.
@@ -39,8 +39,8 @@ from pathlib import Path
 import numpy as np
 
 from analysis import catalogue as cat
-from analysis.archive import Archive
-from analysis.archive_overview import ensure_overview, overview_fingerprint, read_overview
+from analysis.archive.overview_store import ensure_overview, overview_fingerprint, read_overview
+from analysis.archive.store import Archive
 from analysis.overview import DERIVED, FRAME, RunOverview
 from server.downsample import Reduced, TimeBase, time_base
 

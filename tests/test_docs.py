@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from analysis.limits import LIMIT_SPECS
+from analysis.detect.limits import LIMIT_SPECS
 from analysis.profile import THRESHOLD_SPECS
 
 README = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")

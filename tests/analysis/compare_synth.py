@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 
 from analysis import catalogue as cat
-from analysis.compare import RunData
+from analysis.compare.compare import RunData
 from analysis.profile import RobotProfile, profile_from_dict
 
 DT = 0.02  # s, 50 Hz keeps the runs small

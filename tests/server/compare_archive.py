@@ -1,6 +1,6 @@
 """A small archive for the compare tests: demo runs of two controllers on one course, one elsewhere.
 
-Runs are simulated by ``analysis.demo``, written as the demo's foreign log files,
+Runs are simulated by ``analysis.demo.logs``, written as the demo's foreign log files,
 ingested and analysed the way an upload is, so the compare routes and page read
 real stored runs.
 """
@@ -10,10 +10,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
-from analysis import demo
-from analysis.archive import Archive
-from analysis.ingest import ingest_files
-from analysis.pipeline import analyse_run
+from analysis.archive.store import Archive
+from analysis.demo import logs as demo
+from analysis.detect.pipeline import analyse_run
+from analysis.ingest.stream import ingest_files
 
 #: Seconds of each demo run: enough for several curves, small enough to be fast.
 SECONDS = 40.0

@@ -5,7 +5,7 @@ helpers too.
 
 Session-scoped so the suite ingests and analyses each run once:
 
-- a demo run of Marram-2 on the gullhaven-loop, made by ``analysis.demo`` and
+- a demo run of Marram-2 on the gullhaven-loop, made by ``analysis.demo.logs`` and
   written to files in the foreign log format the demo channel map reads;
 - a "planted" run: 30 s at 100 Hz of smooth signals with one single-sample
   torque spike and a 1 s hole in the time stamps, so the tests know exactly
@@ -28,9 +28,9 @@ import pandas as pd
 import pytest
 from fastapi.testclient import TestClient
 
-from analysis.archive import Archive
-from analysis.ingest import ingest_files
-from analysis.pipeline import analyse_run
+from analysis.archive.store import Archive
+from analysis.detect.pipeline import analyse_run
+from analysis.ingest.stream import ingest_files
 from server.app import create_app
 
 #: Planted run: sample rate [Hz], length [s], spike sample and value, hole in the stamps.
@@ -70,7 +70,7 @@ class RunInputs:
 
 def write_demo_inputs(folder: Path, duration_s: float | None = DEMO_SECONDS) -> RunInputs:
     """Simulate a short demo run and write it as the demo's foreign log files."""
-    from analysis import demo
+    from analysis.demo import logs as demo
 
     folder.mkdir(parents=True, exist_ok=True)
     run = demo.simulate_run(duration_s=duration_s)
@@ -88,7 +88,7 @@ def write_demo_inputs(folder: Path, duration_s: float | None = DEMO_SECONDS) -> 
 
 def write_planted_inputs(folder: Path) -> RunInputs:
     """A small run whose exact samples the tests know (spike, hole); demo robot profile."""
-    from analysis import demo_course
+    from analysis.demo import course as demo_course
 
     folder.mkdir(parents=True, exist_ok=True)
     n = int(PLANT_SECONDS * PLANT_RATE_HZ)

@@ -31,14 +31,14 @@ from typing import Any
 import pytest
 import requests
 import schemathesis
-from dashboard_fixtures import ingest_and_analyse, wait_job, write_demo_inputs
 from fastapi.testclient import TestClient
 from hypothesis import HealthCheck, Phase, given, settings
 from schemathesis import GenerationMode
 
 from analysis import catalogue as cat
-from analysis.archive import Archive
+from analysis.archive.store import Archive
 from server.app import create_app
+from tests.server.dashboard_fixtures import ingest_and_analyse, wait_job, write_demo_inputs
 
 #: Demo run length: short, the properties are about requests, not about the physics. [s]
 FUZZ_RUN_S = 15.0

@@ -10,7 +10,12 @@ import zipfile
 
 import numpy as np
 import pytest
-from dashboard_fixtures import (
+from fastapi import APIRouter
+from fastapi.testclient import TestClient
+
+from analysis import catalogue as cat
+from server import app as app_module
+from tests.server.dashboard_fixtures import (
     HOLE,
     PLANT_RATE_HZ,
     SPIKE_INDEX,
@@ -18,11 +23,6 @@ from dashboard_fixtures import (
     Stocked,
     fresh_app,
 )
-from fastapi import APIRouter
-from fastapi.testclient import TestClient
-
-from analysis import catalogue as cat
-from server import app as app_module
 
 CAUTION = "Outrigger reads logs after the fact; it is not a safety system."
 HEADLINE_KEYS = {"worst_saturation_share", "slip_events", "min_tip_margin", "roll_error_rms"}
@@ -273,16 +273,16 @@ def test_openapi_documents_the_api(client: TestClient) -> None:
 def test_optional_router_is_included_when_it_imports(
     stocked: Stocked, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    fake = types.ModuleType("server.routes_fakepage")
+    fake = types.ModuleType("server.api.fakepage")
     fake.router = APIRouter()  # type: ignore[attr-defined]
 
     @fake.router.get("/api/fakepage")  # type: ignore[attr-defined]
     def _hello() -> dict:
         return {"hello": "fake"}
 
-    monkeypatch.setitem(sys.modules, "server.routes_fakepage", fake)
+    monkeypatch.setitem(sys.modules, "server.api.fakepage", fake)
     monkeypatch.setattr(
-        app_module, "OPTIONAL_ROUTERS", ("server.routes_fakepage", "server.routes_absent")
+        app_module, "OPTIONAL_ROUTERS", ("server.api.fakepage", "server.api.absent")
     )
     with fresh_app(stocked.root) as c:
         assert c.get("/api/fakepage").json() == {"hello": "fake"}
@@ -301,7 +301,7 @@ def test_unusable_archive_folder_is_refused_at_startup(tmp_path) -> None:
 def test_internal_error_is_a_generic_500_and_the_server_goes_on(
     stocked: Stocked, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    from analysis.archive import Archive
+    from analysis.archive.store import Archive
 
     def broken(self, **kwargs):
         raise RuntimeError("secret internal detail")

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import pint
 import pytest
-from dashboard_fixtures import Stocked
 from fastapi.testclient import TestClient
 
 from analysis import catalogue as cat
+from tests.server.dashboard_fixtures import Stocked
 
 #: An independent pint registry: expected values never come from the code under test.
 UREG = pint.UnitRegistry()

@@ -6,8 +6,9 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
-from dashboard_fixtures import RunInputs, fresh_app, upload_form, wait_job
 from fastapi.testclient import TestClient
+
+from tests.server.dashboard_fixtures import RunInputs, fresh_app, upload_form, wait_job
 
 
 @pytest.fixture()

@@ -7,11 +7,17 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
-from dashboard_fixtures import RunInputs, fresh_app, ingest_and_analyse, upload_form, wait_job
 from fastapi.testclient import TestClient
 
 from analysis import catalogue as cat
-from analysis.archive import Archive
+from analysis.archive.store import Archive
+from tests.server.dashboard_fixtures import (
+    RunInputs,
+    fresh_app,
+    ingest_and_analyse,
+    upload_form,
+    wait_job,
+)
 
 TOKEN = "s3cret-test-token"
 
@@ -184,7 +190,7 @@ def test_token_protects_writes_and_leaves_reads_open(
     ],
 )
 def test_serve_cautions_when_the_host_is_not_loopback(host: str, loopback: bool) -> None:
-    from server.cli_serve import is_loopback, open_host_caution
+    from server.cli.serve import is_loopback, open_host_caution
 
     assert is_loopback(host) is loopback
     assert "add --token" in open_host_caution(host, None)

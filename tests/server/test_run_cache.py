@@ -9,7 +9,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from dashboard_fixtures import (
+from fastapi.testclient import TestClient
+
+from analysis import catalogue as cat
+from analysis.archive.store import Archive
+from server.run_cache import DERIVED, FRAME, RunCache
+from tests.server.dashboard_fixtures import (
     HOLE,
     PLANT_RATE_HZ,
     RunInputs,
@@ -18,11 +23,6 @@ from dashboard_fixtures import (
     ingest_and_analyse,
     wait_job,
 )
-from fastapi.testclient import TestClient
-
-from analysis import catalogue as cat
-from analysis.archive import Archive
-from server.run_cache import DERIVED, FRAME, RunCache
 
 SIGNALS = ",".join(
     [cat.ROLL, cat.PITCH, cat.actuator_signal("wheel_l", cat.TORQUE_CMD), cat.TIP_MARGIN]

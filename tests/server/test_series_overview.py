@@ -14,7 +14,16 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from dashboard_fixtures import (
+from fastapi.testclient import TestClient
+
+from analysis import catalogue as cat
+from analysis import overview as overview_module
+from analysis.archive.overview_store import OVERVIEW_FILE, read_overview
+from analysis.archive.store import Archive
+from analysis.overview import build_overview
+from server.app import create_app
+from server.run_cache import RunCache
+from tests.server.dashboard_fixtures import (
     PLANT_RATE_HZ,
     SPIKE_INDEX,
     SPIKE_NM,
@@ -22,15 +31,6 @@ from dashboard_fixtures import (
     wait_job,
     write_planted_inputs,
 )
-from fastapi.testclient import TestClient
-
-from analysis import catalogue as cat
-from analysis import overview as overview_module
-from analysis.archive import Archive
-from analysis.archive_overview import OVERVIEW_FILE, read_overview
-from analysis.overview import build_overview
-from server.app import create_app
-from server.run_cache import RunCache
 
 BUCKETS = 32
 #: The largest whole-run budget an overview of BUCKETS serves (2 points per bucket,

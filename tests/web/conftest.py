@@ -6,18 +6,15 @@ when it is absent (CI installs it with `make chromium`).
 
 from __future__ import annotations
 
-import sys
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
 import pytest
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "server"))
-
-from dashboard_fixtures import RunInputs, write_demo_inputs  # noqa: E402
-from live_server import CHROMIUM as CHROMIUM_PATH  # noqa: E402
-from live_server import CHROMIUM_ARGS, LiveServer  # noqa: E402
+from tests.server.dashboard_fixtures import RunInputs, write_demo_inputs
+from tests.web.live_server import CHROMIUM as CHROMIUM_PATH
+from tests.web.live_server import CHROMIUM_ARGS, LiveServer
 
 CHROMIUM = Path(CHROMIUM_PATH)
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"

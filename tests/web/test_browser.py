@@ -12,8 +12,9 @@ import json
 from typing import Any
 
 import pytest
-from dashboard_fixtures import RunInputs
-from live_server import LiveServer
+
+from tests.server.dashboard_fixtures import RunInputs
+from tests.web.live_server import LiveServer
 
 pytestmark = pytest.mark.browser
 

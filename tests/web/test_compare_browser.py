@@ -13,13 +13,13 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from compare_archive import CompareArchive, stock
-from live_server import LiveServer
 
-from analysis.archive import Archive
-from analysis.compare import compare_archived
-from analysis.compare_view import overlay
+from analysis.archive.store import Archive
+from analysis.compare.compare import compare_archived
+from analysis.compare.view import overlay
 from server.report import build_report
+from tests.server.compare_archive import CompareArchive, stock
+from tests.web.live_server import LiveServer
 
 pytestmark = pytest.mark.browser
 

@@ -12,7 +12,8 @@ import math
 from typing import Any
 
 import pytest
-from live_server import LiveServer
+
+from tests.web.live_server import LiveServer
 
 pytestmark = pytest.mark.browser
 

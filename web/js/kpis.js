@@ -1,5 +1,5 @@
 // Headline KPI badges shared by the Runs and Run pages. Values come from the server
-// (analysis.pipeline.headline_kpis), in the units the page shows (angles in degrees,
+// (analysis.detect.pipeline.headline_kpis), in the units the page shows (angles in degrees,
 // converted by analysis.display on the server); the page only formats them.
 import { el, fmt } from "./api.js";
 import { eventColour } from "./palette.js";

@@ -1,0 +1,253 @@
+"""Release gate: rules that version B may not break, checked on a comparison.
+
+A gate is a small table of our own keys (read from TOML by the command line):
+
+- ``<kpi>_increase_max`` / ``<kpi>_drop_max``: largest allowed rise / fall of
+  the KPI from A to B, in the KPI's unit (``roll_error_rms_increase_max = 0.002``
+  in rad, ``min_tip_margin_drop_max = 0.05``).
+- ``<kpi>_increase_max_pct`` / ``<kpi>_drop_max_pct``: the same in percent of A.
+- ``new_falls_allowed = false``: B may not fall more often per run than A.
+- ``no_worse = ["roll_error_rms", ...]``: these KPIs may not get the verdict "worse".
+- ``decide_on = "estimate"`` (default: the difference itself is held against the
+  limit) or ``"interval"`` (a limit is broken only when the whole 95% interval
+  lies beyond it, i.e. the excess is clear of run-to-run noise).
+
+``<kpi>`` is a KPI key such as ``roll_error_rms`` or ``wheel_l.energy`` (in
+TOML a dotted key, or a ``[wheel_l]`` table), or a per-channel metric name such
+as ``saturation_share`` that then applies to every channel.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+from analysis.compare.bootstrap import LEVEL, WORSE
+from analysis.compare.compare import Comparison, KpiRow
+from analysis.compare.course_kpis import METRICS
+from analysis.errors import CompareError
+
+LIMIT_SUFFIXES = ("_increase_max_pct", "_drop_max_pct", "_increase_max", "_drop_max")
+DECIDE_ON = ("estimate", "interval")
+
+
+@dataclass(frozen=True)
+class Rule:
+    """One gate rule.
+
+    Attributes
+    ----------
+    key : str
+        The key as written in the gate file.
+    target : str
+        KPI key or metric name it applies to ("falls" for new_falls_allowed).
+    kind : str
+        ``increase_max``, ``drop_max``, ``increase_max_pct``, ``drop_max_pct``,
+        ``no_new_falls`` or ``no_worse``.
+    limit : float
+        Limit in the KPI unit, or percent of A. [KPI unit or %]
+    """
+
+    key: str
+    target: str
+    kind: str
+    limit: float
+
+
+@dataclass(frozen=True)
+class GateCheck:
+    """Outcome of one rule on one KPI."""
+
+    rule: str
+    kpi: str
+    broken: bool
+    message: str
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON shape."""
+        return {"rule": self.rule, "kpi": self.kpi, "broken": self.broken, "message": self.message}
+
+
+@dataclass(frozen=True)
+class Gate:
+    """A parsed gate: its rules and how limits are decided."""
+
+    rules: tuple[Rule, ...]
+    decide_on: str = "estimate"
+
+
+def _flatten(table: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    for k, v in table.items():
+        key = f"{prefix}{k}"
+        if isinstance(v, Mapping):
+            out.update(_flatten(v, key + "."))
+        else:
+            out[key] = v
+    return out
+
+
+def _metric_of(target: str) -> str:
+    return target.rpartition(".")[2]
+
+
+def gate_from_mapping(data: Mapping[str, Any], where: str = "gate file") -> Gate:
+    """Build and check a gate from parsed TOML (top level or a ``[gate]`` table).
+
+    Parameters
+    ----------
+    data : mapping
+        Parsed gate file.
+    where : str
+        Name of the source, for messages.
+
+    Returns
+    -------
+    Gate
+    """
+    table = data.get("gate", data)
+    if not isinstance(table, Mapping):
+        raise CompareError(f"{where}: [gate] must be a table of rules.")
+    flat = _flatten(table)
+    decide_on = flat.pop("decide_on", "estimate")
+    if decide_on not in DECIDE_ON:
+        raise CompareError(
+            f"{where}: decide_on must be one of {', '.join(DECIDE_ON)}, found {decide_on!r}."
+        )
+    rules: list[Rule] = []
+    valid = (
+        f"<kpi>{'|'.join(LIMIT_SUFFIXES)} with <kpi> one of {', '.join(METRICS)} "
+        f"(optionally '<channel>.'), new_falls_allowed, no_worse, decide_on"
+    )
+    for key, value in flat.items():
+        if key == "new_falls_allowed":
+            if not isinstance(value, bool):
+                raise CompareError(
+                    f"{where}: new_falls_allowed must be true or false, found {value!r}."
+                )
+            if not value:
+                rules.append(Rule(key, "falls", "no_new_falls", 0.0))
+            continue
+        if key == "no_worse":
+            if not isinstance(value, list) or not all(isinstance(x, str) for x in value):
+                raise CompareError(
+                    f"{where}: no_worse must be a list of KPI names, found {value!r}."
+                )
+            for name in value:
+                if _metric_of(name) not in METRICS:
+                    raise CompareError(
+                        f"{where}: no_worse names unknown KPI {name!r}; KPIs: {', '.join(METRICS)}."
+                    )
+                rules.append(Rule(key, name, "no_worse", 0.0))
+            continue
+        suffix = next((s for s in LIMIT_SUFFIXES if key.endswith(s)), None)
+        target = key[: -len(suffix)] if suffix else ""
+        if suffix is None or _metric_of(target) not in METRICS:
+            raise CompareError(f"{where}: unknown gate key {key!r}. Valid keys: {valid}.")
+        if (
+            isinstance(value, bool)
+            or not isinstance(value, int | float)
+            or not math.isfinite(value)
+        ):
+            raise CompareError(f"{where}: {key} must be a finite number, found {value!r}.")
+        if value < 0:
+            raise CompareError(
+                f"{where}: {key} must be >= 0 (it is the largest change allowed), found {value!r}."
+            )
+        rules.append(Rule(key, target, suffix.lstrip("_"), float(value)))
+    if not rules:
+        raise CompareError(
+            f"{where} has no rules; an empty gate would pass anything. Keys: {valid}."
+        )
+    return Gate(tuple(rules), decide_on)
+
+
+def _matching(rows: list[KpiRow], target: str) -> list[KpiRow]:
+    return [r for r in rows if r.key == target or (r.channel and r.metric == target)]
+
+
+def _fmt(x: float) -> str:
+    return "n/a" if not math.isfinite(x) else f"{x:.4g}"
+
+
+def _check_limit(rule: Rule, row: KpiRow, decide_on: str, level_pct: str) -> GateCheck:
+    pct = rule.kind.endswith("_pct")
+    up = rule.kind.startswith("increase")
+    unit = "%" if pct else (f" {row.unit}" if row.unit not in ("-", "") else "")
+    if pct:
+        scale = 100.0 / abs(row.a) if math.isfinite(row.a) and row.a != 0 else math.nan
+    else:
+        scale = 1.0
+    est, low, high = row.diff * scale, row.low * scale, row.high * scale
+    if not up:
+        est, low, high = -est, -high, -low
+    # The change in the rule's direction: estimate, or the interval's nearer end.
+    value = est if decide_on == "estimate" else low
+    direction = "rose" if up else "fell"
+    if not math.isfinite(value):
+        return GateCheck(
+            rule.key, row.key, True,
+            f"{rule.key}: cannot check {row.key} (A = {_fmt(row.a)}, B = {_fmt(row.b)}, "
+            f"interval {_fmt(row.low)}..{_fmt(row.high)}); a gate does not pass what it cannot check.",
+        )  # fmt: skip
+    broken = value > rule.limit
+    what = (
+        "change"
+        if decide_on == "estimate"
+        else f"lower end of the {level_pct} interval of the change"
+    )
+    msg = (
+        f"{rule.key}: {row.label} {direction} from {_fmt(row.a)} to {_fmt(row.b)} "
+        f"({what} {_fmt(value)}{unit}; limit {_fmt(rule.limit)}{unit})"
+    )
+    return GateCheck(rule.key, row.key, broken, msg)
+
+
+def check_gate(comparison: Comparison, gate: Gate) -> list[GateCheck]:
+    """Check every rule of a gate on the overall KPIs of a comparison.
+
+    Parameters
+    ----------
+    comparison : Comparison
+    gate : Gate
+
+    Returns
+    -------
+    list of GateCheck
+        One per rule and matching KPI; a rule whose KPI the comparison lacks is
+        broken (it cannot be checked).
+    """
+    rows = comparison.kpis
+    level_pct = f"{100 * float(comparison.settings.get('level', LEVEL)):g}%"
+    checks: list[GateCheck] = []
+    for rule in gate.rules:
+        matched = _matching(rows, rule.target)
+        if not matched:
+            checks.append(
+                GateCheck(
+                    rule.key, rule.target, True,
+                    f"{rule.key}: this comparison has no KPI {rule.target!r} (its signal is "
+                    f"missing from a run); KPIs: {', '.join(r.key for r in rows)}.",
+                )
+            )  # fmt: skip
+            continue
+        for row in matched:
+            if rule.kind == "no_new_falls":
+                broken = row.b > row.a
+                checks.append(
+                    GateCheck(rule.key, row.key, broken,
+                              f"new_falls_allowed = false: falls per run A {_fmt(row.a)}, "
+                              f"B {_fmt(row.b)}" + (" — B falls more often" if broken else ""))
+                )  # fmt: skip
+            elif rule.kind == "no_worse":
+                broken = row.verdict == WORSE
+                checks.append(
+                    GateCheck(rule.key, row.key, broken,
+                              f"no_worse: {row.label} verdict '{row.verdict}' (B - A "
+                              f"{_fmt(row.diff)}, {level_pct} interval {_fmt(row.low)}..{_fmt(row.high)})")
+                )  # fmt: skip
+            else:
+                checks.append(_check_limit(rule, row, gate.decide_on, level_pct))
+    return checks

@@ -1,0 +1,9 @@
+"""Detect: the detectors, one module each, and the pipeline that runs them.
+
+``saturation``, ``slip``, ``tipover`` (with ``force_angle``), ``roll`` and
+``balance`` each take a run's frame, the robot profile and thresholds and return a
+``DetectorResult`` (events, KPIs, derived series). ``pipeline`` runs them all and
+stores the results; ``limits`` checks KPIs against release limits (``outrigger
+check``); ``batch`` re-analyses many runs. Entry points: ``pipeline.analyse_run``,
+``pipeline.DETECTORS``, ``limits.check_limits``, ``batch.reanalyse``.
+"""

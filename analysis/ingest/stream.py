@@ -1,0 +1,482 @@
+"""Ingest raw log files of one run into the archive, streaming.
+
+:func:`ingest_files` checks the robot profile, the whole channel map and every
+file's header before any row is read; then it streams each file block by block
+(:mod:`analysis.ingest.read`), converts units with pint factors, names signals
+canonically, puts time in seconds since the run's first sample, and writes one
+Parquet file (zstd, ~1M-row row groups) per source into a staging folder of the
+archive. The archive renames the folder into place only when everything
+succeeded, so a failed or killed ingest leaves nothing behind.
+
+Notes
+-----
+Time origin. All files of a run share one origin: the earliest timestamp of any
+file. It is found before the streaming pass from the first rows of each file
+(Parquet: the whole time column, which is cheap). Should a later row be earlier
+still, every stream is shifted in the second pass (:mod:`analysis.ingest.order`)
+so that ``t`` starts at 0.
+
+Order and duplicates. The streaming pass drops rows whose timestamp equals the
+previous row's (exact duplicates and conflicting values are counted apart) and
+notices whether time ever runs backwards. Only then is the stream sorted in a
+second, column-by-column pass over its Parquet file, which bounds memory by a
+few columns rather than the whole table. Nothing is interpolated; gaps longer
+than 5 median periods are counted and listed.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any, Protocol
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+
+from analysis import __version__, catalogue
+from analysis.errors import ChannelMapError, IngestError
+from analysis.ingest.channel_map import (
+    ChannelMap,
+    SourceSpec,
+    channel_map_from_dict,
+    check_headers,
+    load_channel_map,
+)
+from analysis.ingest.formats import iter_file
+from analysis.ingest.order import (
+    ROW_GROUP_ROWS,
+    distance,
+    duplicate_masks,
+    late_rows,
+    open_writer,
+    rewrite_stream,
+    time_stats,
+)
+from analysis.ingest.read import BadLines, FileInfo, inspect_file
+from analysis.ingest.timebase import (
+    Clock,
+    extra_type,
+    first_time_ns,
+    raw_time,
+    time_type,
+)
+from analysis.profile import RobotProfile, load_profile
+
+
+class RunWriter(Protocol):
+    """What ingest needs of the archive it writes into, passed in by the caller.
+
+    :class:`analysis.archive.store.Archive` is one. Ingest comes before the archive
+    in the pipeline and never imports it (the layout test checks).
+    """
+
+    def find_by_hash(self, source_hash: str) -> str | None: ...
+
+    def get_meta(self, run_id: str) -> dict[str, Any]: ...
+
+    def new_staging(self) -> Path: ...
+
+    def commit_run(self, staging: Path, meta: dict[str, Any]) -> str: ...
+
+    def discard_staging(self, path: Path) -> None: ...
+
+
+#: Largest share of bad lines a file may have before the ingest is refused. [-]
+MAX_BAD_SHARE = 0.01
+#: Bad lines named in the refusal message.
+MAX_NAMED_LINES = 10
+
+Progress = Callable[[float, str], None]
+
+
+@dataclass
+class IngestOutcome:
+    """Result of :func:`ingest_files`.
+
+    ``run_id`` of the stored (or already stored) run, the ingest ``report``
+    (per stream), and ``duplicate_of``: the id of an existing run with the same
+    source files, in which case nothing new was stored.
+    """
+
+    run_id: str
+    report: dict[str, Any]
+    duplicate_of: str | None = None
+
+
+def sha256_file(path: Path) -> str:
+    """SHA-256 of a file's bytes, hex."""
+    h = hashlib.sha256()
+    with path.open("rb") as fh:
+        while chunk := fh.read(8 << 20):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def combined_hash(hashes: Iterable[str]) -> str:
+    """One hash for a set of source files (order-free): SHA-256 of the sorted hashes."""
+    return hashlib.sha256("\n".join(sorted(hashes)).encode()).hexdigest()
+
+
+# --- streaming writer ------------------------------------------------------------------
+
+
+class _StreamWriter:
+    """Convert tables of one source and write them to Parquet in ~1M-row row groups."""
+
+    def __init__(
+        self, path: Path, source: SourceSpec, clock: Clock, extras: dict[str, pa.DataType]
+    ):
+        self.path = path
+        self.source = source
+        self.clock = clock
+        self.extras = extras
+        fields = [pa.field(catalogue.T, pa.float64())]
+        fields += [pa.field(c.signal, pa.float64()) for c in source.columns]
+        fields += [pa.field(catalogue.extra(c), t) for c, t in extras.items()]
+        self.schema = pa.schema(fields)
+        self.writer: pq.ParquetWriter | None = None
+        self.pending: list[pa.Table] = []
+        self.pending_rows = 0
+        self.t_parts: list[np.ndarray] = []
+        self.last: pa.Table | None = None  # last kept row, for duplicates across blocks
+        self.prev_max = -np.inf
+        self.sorted = True
+        self.exact = 0
+        self.conflicting = 0
+        self.reordered = 0
+        self.t_min = np.inf
+
+    def add(self, raw: pa.Table) -> None:
+        t = self.clock.seconds(raw_time(raw.column(self.source.time_column)))
+        arrays: list[pa.Array | pa.ChunkedArray] = [pa.array(t)]
+        for c in self.source.columns:
+            col = raw.column(c.raw)
+            arrays.append(col if c.multiplier == 1.0 else pc.multiply(col, c.multiplier))
+        arrays += [raw.column(c) for c in self.extras]
+        table = pa.Table.from_arrays(arrays, schema=self.schema)
+        if len(t) == 0:
+            return
+        self.reordered += late_rows(t, self.prev_max)
+        if self.reordered:
+            self.sorted = False
+        self.prev_max = max(self.prev_max, float(t.max()))
+        self.t_min = min(self.t_min, float(t.min()))
+        if self.last is not None:
+            table = pa.concat_tables([self.last, table])
+            t = np.concatenate((self.last.column(0).to_numpy(), t))
+        exact, conflicting = duplicate_masks(t, table)
+        self.exact += int(exact.sum())
+        self.conflicting += int(conflicting.sum())
+        keep = ~(exact | conflicting)
+        if self.last is not None:
+            keep[0] = False
+        if not keep.all():
+            table = table.filter(pa.array(keep))
+            t = t[keep]
+        if table.num_rows == 0:
+            return
+        self.last = table.slice(table.num_rows - 1)
+        self.t_parts.append(t)
+        self.pending.append(table)
+        self.pending_rows += table.num_rows
+        if self.pending_rows >= ROW_GROUP_ROWS:
+            self._flush()
+
+    def _flush(self) -> None:
+        if not self.pending:
+            return
+        if self.writer is None:
+            self.writer = open_writer(self.path, self.schema)
+        self.writer.write_table(pa.concat_tables(self.pending), row_group_size=ROW_GROUP_ROWS)
+        self.pending, self.pending_rows = [], 0
+
+    def close(self) -> np.ndarray:
+        self._flush()
+        if self.writer is None:
+            self.writer = open_writer(self.path, self.schema)
+        self.writer.close()
+        return np.concatenate(self.t_parts) if self.t_parts else np.zeros(0)
+
+
+# --- the ingest ------------------------------------------------------------------------
+
+
+def _resolve(
+    channel_map: ChannelMap | str | os.PathLike[str], profile: RobotProfile | str | os.PathLike[str]
+) -> tuple[ChannelMap, RobotProfile, str | None]:
+    profile_text = None
+    if not isinstance(profile, RobotProfile):
+        path = Path(profile)
+        prof = load_profile(path)
+        profile_text = path.read_text(encoding="utf-8")
+    else:
+        prof = profile
+    if isinstance(channel_map, ChannelMap):
+        cmap = channel_map_from_dict(
+            channel_map.raw, prof, text=channel_map.text, origin=channel_map.origin
+        )
+    else:
+        cmap = load_channel_map(channel_map, prof)
+    return cmap, prof, profile_text
+
+
+def _refuse_bad(info: FileInfo, bad: BadLines) -> None:
+    if bad.count <= MAX_BAD_SHARE * max(bad.total, 1):
+        return
+    named = "; ".join(
+        f"{bad.unit} {b[bad.unit]}: {b['reason']}" for b in bad.listed[:MAX_NAMED_LINES]
+    )
+    more = f" (and {bad.count - MAX_NAMED_LINES} more)" if bad.count > MAX_NAMED_LINES else ""
+    raise IngestError(
+        f"{info.path.name}: {bad.count} of {bad.total} {bad.unit}s do not parse "
+        f"({100 * bad.count / max(bad.total, 1):.1f}%, more than the "
+        f"{100 * MAX_BAD_SHARE:g}% allowed): {named}{more}. Repair or cut those {bad.unit}s, "
+        f"or check the delimiter and the channel map's column names."
+    )
+
+
+def _iso_utc(ns: int) -> str:
+    stamp = datetime.fromtimestamp(ns // 10**9, UTC).replace(microsecond=(ns % 10**9) // 1000)
+    return stamp.isoformat().replace("+00:00", "Z")
+
+
+def _parse_date(date: str | None) -> str | None:
+    if not date:
+        return None
+    try:
+        stamp = datetime.fromisoformat(date)
+    except ValueError as exc:
+        raise IngestError(
+            f"Date {date!r} is not ISO 8601; give e.g. 2026-11-28 or 2026-11-28T09:31:00Z."
+        ) from exc
+    if stamp.tzinfo is None:
+        stamp = stamp.replace(tzinfo=UTC)
+    return stamp.astimezone(UTC).isoformat().replace("+00:00", "Z")
+
+
+def ingest_files(
+    archive: RunWriter,
+    files: Sequence[str | os.PathLike[str]],
+    channel_map: ChannelMap | str | os.PathLike[str],
+    profile: RobotProfile | str | os.PathLike[str],
+    *,
+    name: str | None = None,
+    course: str | None = None,
+    controller: str | None = None,
+    tags: Sequence[str] = (),
+    notes: str = "",
+    date: str | None = None,
+    progress: Progress | None = None,
+) -> IngestOutcome:
+    """Ingest the log files of one run into ``archive``.
+
+    Parameters
+    ----------
+    archive : RunWriter
+        Target archive.
+    files : sequence of path
+        Log files of the run (CSV, CSV.gz, Parquet, JSON Lines), one clock.
+    channel_map, profile : object or path
+        Channel map and robot profile, as checked objects or TOML file paths.
+    name, course, controller, tags, notes : optional
+        Run metadata for the catalog.
+    date : str, optional
+        ISO 8601 start date for logs timed from boot (ignored when the log
+        carries absolute time).
+    progress : callable, optional
+        Called as ``progress(fraction, message)``, fraction in [0, 1]. [-]
+
+    Returns
+    -------
+    IngestOutcome
+
+    Raises
+    ------
+    ChannelMapError, ProfileError, IngestError
+        Before anything is stored.
+    """
+    say = progress or (lambda fraction, message: None)
+    _parse_date(date)  # a bad --date is refused before any work
+    cmap, prof, profile_text = _resolve(channel_map, profile)
+    paths = [Path(f) for f in files]
+    if not paths:
+        raise IngestError("No log files given. Name the state (and torque) logs of one run.")
+    names = [p.name for p in paths]
+    twice = sorted({n for n in names if names.count(n) > 1})
+    if twice:
+        raise IngestError(f"File name(s) {', '.join(twice)} given twice; give each file once.")
+    infos = {p: inspect_file(p, cmap.source_for(p.name).delimiter) for p in paths}
+    check_headers(cmap, {str(p): i.columns for p, i in infos.items()})
+    groups: dict[str, list[Path]] = {}
+    for p in paths:
+        groups.setdefault(cmap.source_for(p.name).name, []).append(p)
+    for files_of in groups.values():
+        first = infos[files_of[0]].columns
+        for other in files_of[1:]:
+            if infos[other].columns != first:
+                raise ChannelMapError(
+                    f"{other.name} and {files_of[0].name} match the same source but have "
+                    f"different columns; files of one source must share their header."
+                )
+    say(0.0, "hashing source files")
+    hashes = {p.name: sha256_file(p) for p in paths}
+    run_hash = combined_hash(hashes.values())
+    existing = archive.find_by_hash(run_hash)
+    if existing is not None:
+        meta = archive.get_meta(existing)
+        return IngestOutcome(existing, meta.get("ingest_report", {}), duplicate_of=existing)
+
+    sources = {s.name: s for s in cmap.sources}
+    types: dict[str, dict[str, pa.DataType]] = {}
+    extras: dict[str, dict[str, pa.DataType]] = {}
+    firsts: list[int] = []
+    for sname, files_of in groups.items():
+        src, info = sources[sname], infos[files_of[0]]
+        ttype = time_type(info, src)
+        mapped = {c.raw for c in src.columns}
+        extras[sname] = {
+            c: extra_type(info, c) for c in info.columns if c != src.time_column and c not in mapped
+        }
+        types[sname] = {src.time_column: ttype, **{c.raw: pa.float64() for c in src.columns}}
+        types[sname].update(extras[sname])
+        for p in files_of:
+            f = first_time_ns(infos[p], src, ttype)
+            if f is not None:
+                firsts.append(f)
+    origin_ns = min(firsts) if firsts else 0
+    epoch = cmap.sources[0].time_origin == "epoch"
+
+    total_bytes = sum(i.size for i in infos.values()) or 1
+    done_bytes = 0
+    staging = archive.new_staging()
+    try:
+        (staging / "streams").mkdir()
+        writers: dict[str, _StreamWriter] = {}
+        bad_of: dict[str, list[tuple[str, BadLines]]] = {}
+        t_of: dict[str, np.ndarray] = {}
+        for sname, files_of in groups.items():
+            src = sources[sname]
+            w = _StreamWriter(
+                staging / "streams" / f"{sname}.parquet", src, Clock(src, origin_ns), extras[sname]
+            )
+            writers[sname] = w
+            for p in files_of:
+                info, bad = infos[p], BadLines()
+
+                def tick(pos: int, base: int = done_bytes, fname: str = p.name) -> None:
+                    say(0.9 * (base + pos) / total_bytes, f"reading {fname}")
+
+                for table in iter_file(info, types[sname], src.time_column, bad, tick):
+                    w.add(table)
+                _refuse_bad(info, bad)
+                bad_of.setdefault(sname, []).append((p.name, bad))
+                done_bytes += info.size
+            t_of[sname] = w.close()
+        say(0.9, "checking time order")
+        t_min = min((w.t_min for w in writers.values()), default=0.0)
+        # t must start at 0: the origin from the first rows can miss an earlier late row,
+        # or be a row later skipped as bad; then every stream is shifted (rare).
+        shift = -t_min if np.isfinite(t_min) and t_min != 0.0 else 0.0
+        report: dict[str, Any] = {}
+        for sname, w in writers.items():
+            exact, conflicting = w.exact, w.conflicting
+            if shift or not w.sorted:
+                t_of[sname], e2, c2 = rewrite_stream(w.path, shift, not w.sorted)
+                exact, conflicting = exact + e2, conflicting + c2
+            stats = time_stats(t_of[sname])
+            if stats["rows"] == 0:
+                raise IngestError(
+                    f"No valid rows in {', '.join(n for n, _ in bad_of[sname])} "
+                    f"(source {sname!r}); every line was skipped."
+                )
+            bads = bad_of[sname]
+            report[sname] = {
+                "file": ", ".join(n for n, _ in bads),
+                "kind": w.source.kind,
+                **stats,
+                "duplicates_dropped": exact,
+                "conflicting_timestamps_dropped": conflicting,
+                "reordered_rows": w.reordered,
+                "skipped_lines": {
+                    "count": sum(b.count for _, b in bads),
+                    "lines": [dict(x, file=n) for n, b in bads for x in b.listed][:100],
+                },
+                "signals": [c.signal for c in w.source.columns],
+                "extra_columns": [catalogue.extra(c) for c in w.extras],
+            }
+        origin_ns += int(round(-shift * 1e9)) if shift else 0
+        meta = _build_meta(
+            staging, cmap, prof, profile_text, report, hashes, run_hash, origin_ns, epoch,
+            name=name, course=course, controller=controller, tags=list(tags), notes=notes, date=date,
+            duration_s=max(float(t[-1]) for t in t_of.values()),
+        )  # fmt: skip
+        say(0.97, "storing run")
+        run_id = archive.commit_run(staging, meta)
+    except BaseException:
+        archive.discard_staging(staging)
+        raise
+    say(1.0, f"stored run {run_id}")
+    return IngestOutcome(run_id, report)
+
+
+def _build_meta(
+    staging: Path,
+    cmap: ChannelMap,
+    prof: RobotProfile,
+    profile_text: str | None,
+    report: dict[str, Any],
+    hashes: dict[str, str],
+    run_hash: str,
+    origin_ns: int,
+    epoch: bool,
+    **info: Any,
+) -> dict[str, Any]:
+    date = info.pop("date")
+    start = _iso_utc(origin_ns) if epoch else _parse_date(date)
+    distance_m = None
+    for sname, r in report.items():
+        if catalogue.VEL_X in r["signals"]:
+            tab = pq.read_table(
+                staging / "streams" / f"{sname}.parquet", columns=[catalogue.T, catalogue.VEL_X]
+            )
+            distance_m = distance(
+                tab.column(0).to_numpy(), tab.column(1).to_numpy(zero_copy_only=False)
+            )
+    streams = [
+        {
+            "name": s,
+            "kind": r["kind"],
+            "path": f"streams/{s}.parquet",
+            "rate_hz": r["rate_hz"],
+            "rows": r["rows"],
+            "columns": [catalogue.T, *r["signals"], *r["extra_columns"]],
+        }
+        for s, r in report.items()
+    ]
+    return {
+        "run_id": None,  # set by the archive
+        "name": info["name"],
+        "course": info["course"],
+        "controller": info["controller"],
+        "date": start,
+        "tags": info["tags"],
+        "notes": info["notes"],
+        "profile": prof.to_dict(),
+        "profile_toml": profile_text,
+        "channel_map": cmap.to_dict(),
+        "channel_map_toml": cmap.text,
+        "source_files": hashes,
+        "source_hash": run_hash,
+        "streams": streams,
+        "ingest_report": report,
+        "duration_s": info.pop("duration_s"),
+        "distance_m": distance_m,
+        "ingested_at": datetime.now(UTC).isoformat(timespec="seconds").replace("+00:00", "Z"),
+        "outrigger_version": __version__,
+    }

@@ -1,0 +1,1 @@
+"""The ``outrigger`` command line: ``main`` plus one module per command group."""
