@@ -302,7 +302,15 @@ def detect_slip(
                     f"No {name}: its lever-arm term was left out of the contact speeds; "
                     f"map {name} to apply it."
                 )
-    v_mid = contact_midpoint_speed(t, vel_x, yaw_rate, profile.wheel_radius, L, pitch, roll)
+    gyro_pitch_rate = column(frame, cat.PITCH_RATE)
+    if L is not None and pitch is not None and gyro_pitch_rate is None:
+        result.notes.append(
+            f"No {cat.PITCH_RATE}: the lever-arm term d/dt(L sin(pitch)) was taken from the "
+            f"low-passed pitch estimate, which is noisier; map the gyro's pitch rate to use it."
+        )
+    v_mid = contact_midpoint_speed(
+        t, vel_x, yaw_rate, profile.wheel_radius, L, pitch, roll, gyro_pitch_rate
+    )
     v_contact = dict(
         zip(("l", "r"), contact_speeds(v_mid, yaw_rate, profile.track_width), strict=True)
     )
