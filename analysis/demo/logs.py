@@ -298,6 +298,7 @@ def _true_series(st: dict[str, np.ndarray], true: dict[str, np.ndarray]) -> pd.D
         "distance": st["s"],
         "segment": st["segment"].astype(int),
         "curvature": st["kappa"],
+        cat.VEL_X_REF: st["vref"],
         cat.ROLL: st["phi"],
         cat.ROLL_REF: st["phi_ref"],
         cat.PITCH: st["theta"],
