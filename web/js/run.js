@@ -104,6 +104,14 @@ function showIngest(meta) {
   const report = meta.ingest_report ?? meta.report ?? null;
   const box = document.getElementById("ingest-report");
   box.replaceChildren(report ? valueView(report) : el("p", { className: "empty" }, "No ingest report stored."));
+  // Plausibility warnings (wrong unit, sign or time base suspected): shown above the charts.
+  const warnings = report ? Object.values(report).flatMap((stream) => (stream && stream.warnings) || []) : [];
+  const warnBox = document.getElementById("ingest-warnings");
+  warnBox.hidden = warnings.length === 0;
+  warnBox.replaceChildren(
+    el("strong", {}, `Ingest warnings (${warnings.length}): the run was stored, but check the channel map.`),
+    el("ul", {}, ...warnings.map((w) => el("li", { dataset: { check: w.check } }, w.message))),
+  );
 }
 
 // ----- events -------------------------------------------------------------------
