@@ -39,15 +39,23 @@ function showHead(meta) {
 }
 
 // ----- KPIs ---------------------------------------------------------------------
-function showKpis(headline, shown, analysis) {
+function showKpis(headline, shown, analysis, notRun = null) {
   const strip = document.getElementById("kpis");
-  strip.replaceChildren(badges(headline, shown));
+  strip.replaceChildren(badges(headline, shown, notRun ? notRun.kpis : null));
   if (analysis) {
     const counts = analysis.event_counts || {};
+    const skippedKinds = (notRun && notRun.event_kinds) || {};
     const summary = el("div", { className: "event-counts" });
     for (const [kind, n] of Object.entries(counts)) {
+      // A skipped detector found nothing because it never looked: "not run", not 0.
+      const reason = skippedKinds[kind];
       summary.append(
-        el("span", { className: "count-chip" }, el("span", { className: "swatch", style: { background: eventColour(kind) } }), `${kindLabel(kind)} ${n}`),
+        el(
+          "span",
+          { className: reason ? "count-chip not-run" : "count-chip", title: reason ? `not run: ${reason}` : "", dataset: { kind } },
+          el("span", { className: "swatch", style: { background: eventColour(kind) } }),
+          `${kindLabel(kind)} ${reason ? "not run" : n}`,
+        ),
       );
     }
     strip.append(summary);
@@ -323,7 +331,7 @@ async function load() {
     if (opening) timelines.setRange(timelines.clamp(opening));
   });
   showHead(run);
-  showKpis(data.headline, data.headline_shown, analysis);
+  showKpis(data.headline, data.headline_shown, analysis, data.not_run);
   // The event list (hundreds of rows on a long run) and the rest of the page are built
   // once the charts are drawn: building and laying them out first held the charts back.
   await drawn.catch(() => {});
