@@ -60,3 +60,24 @@ def test_noise_only_stretches_come_from_the_true_states():
     assert res.stretches == [
         pytest.approx(("standing", quality.SETTLE_S, 20.0 - quality.SETTLE_S), abs=0.01)
     ]
+
+
+def test_400_hz_logs_keep_the_quality():
+    # At 400 Hz an encoder difference steps by twice as much per count and the estimator's
+    # noise gives twice as many samples: the slip gate must still see no slip in them.
+    cases = [
+        quality.Case("lean-ctl 1.4", 0, state_rate_hz=400.0),
+        quality.Case(
+            "lean-ctl 2.0", 6, course="gullhaven-quiet", stand_s=60.0, duration_s=60.0,
+            state_rate_hz=400.0,
+        ),
+    ]  # fmt: skip
+    results = [quality.run_case(c) for c in cases]
+    for kind, s in quality.score(results).items():
+        if s.planted:
+            assert s.precision is not None and s.precision >= TARGET, (kind, s.false_alarms)
+            assert s.recall is not None and s.recall >= TARGET, (kind, s.misses)
+        else:
+            assert s.detected == 0, (kind, s.false_alarms)
+    assert quality.noise_only_seconds(results)["standing"] >= 55.0
+    assert quality.noise_only_events(results)["standing"] == []
