@@ -134,7 +134,9 @@ def test_series_of_all_drawn_signals_respects_the_budget(
         assert len(s["t"]) == len(s["y"])
         gaps = sum(v is None for v in s["y"])
         assert len(s["t"]) - gaps <= 300, name
-        assert body["t0"] <= s["t"][0] and s["t"][-1] <= body["t1"]
+        # times go out rounded to 0.1 ms (server/downsample.json_times); the demo logs carry
+        # time stamp jitter, so a rounded last time may pass t1 by up to half of that
+        assert body["t0"] - 5e-5 <= s["t"][0] and s["t"][-1] <= body["t1"] + 5e-5
 
 
 def test_spike_survives_the_default_budget(client: TestClient, stocked: Stocked) -> None:
