@@ -58,6 +58,9 @@ def test_kpis_of_a_negative_exponential_error() -> None:
     assert k["iae"] == pytest.approx(e0 * tau + bump, abs=1e-7)
     assert k["ise"] == pytest.approx(e0**2 * tau / 2 + 0.02 * bump, abs=1e-7)
     assert k["itae"] == pytest.approx(e0 * tau**2 + 8.0495 * bump, abs=1e-7)
+    # RMS = sqrt(ISE / T) by definition, over the logged T = 9.999 s.
+    assert k["rms"] == pytest.approx(np.sqrt(k["ise"] / t[-1]), rel=1e-12)
+    assert k["rms"] == pytest.approx(np.sqrt((e0**2 * tau / 2 + 0.02 * bump) / t[-1]), rel=1e-5)
     band = np.deg2rad(BAND_DEG)
     # In band where e0 exp(-t/tau) <= band, i.e. from t* = tau ln(e0 / band) on (the bump
     # stays inside the band): share (T - t*) / T with T = 9.999 s. Each sample stands for

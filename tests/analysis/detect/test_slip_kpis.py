@@ -167,3 +167,4 @@ def test_skid_and_spin_kpis_on_both_wheels_with_negative_slip() -> None:
     ]
     rms = np.sqrt((1.4**2 * 0.5 + 1.8**2 * 0.3) / 2.995)
     assert res.kpis["yaw_slip"]["yaw_rate_diff_rms"] == pytest.approx(rms, rel=1e-12)
+    assert res.kpis["yaw_slip"]["event_count"] == 2

@@ -152,3 +152,26 @@ def test_fallback_lateral_force_at_a_lean() -> None:
     expected = 1.0 - 2.0 * COM_HEIGHT * np.sin(-into) / (TRACK / 2)
     assert out.kpis["min_margin"] == pytest.approx(expected, abs=1e-9)
     assert out.kpis["side_of_min"] == "right"
+
+
+def test_free_fall_time_and_margin_without_the_filter() -> None:
+    t = np.arange(300) * DT
+    falling = (t >= 0.995) & (t < 1.495)  # 50 samples, 1.00-1.49 s
+    frame = _upright(np.zeros(t.size))
+    # In free fall an accelerometer reads zero specific force (definition of specific force,
+    # common practice, no source).
+    frame.loc[falling, cat.ACCEL_Z] = 0.0
+    res = detect_tip_margin(frame, _profile(), _unfiltered())
+    k = res.kpis
+    # The 50 unsupported samples stand for 10 ms each (half of each neighbouring interval):
+    # 0.5 s, counted as unsupported and as below the 0.3 entry level (margin reported as 0).
+    assert k["unsupported_s"] == pytest.approx(0.5, abs=1e-12)
+    assert k["time_below_s"] == pytest.approx(0.5, abs=1e-12)
+    assert k["share_below"] == pytest.approx(0.5 / 2.99, rel=1e-12)
+    assert (k["min_margin"], k["min_margin_t_s"]) == pytest.approx((0.0, 1.0), abs=1e-12)
+    # No sample of the minimum has a ZMP, and upright elsewhere the ZMP is centred: no side.
+    assert k["side_of_min"] is None
+    assert [(e.start_s, e.end_s, e.peak) for e in res.events] == [
+        pytest.approx((1.0, 1.49, 0.0), abs=1e-12)
+    ]
+    assert res.events[0].detail["unsupported"] is True
