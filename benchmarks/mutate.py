@@ -173,6 +173,20 @@ MUTATIONS: tuple[Mutation, ...] = (
         "t[i] - th.thermal_window_s",
         "worst window may start before the run",
     ),
+    Mutation(
+        "sat-zero-command",
+        SAT,
+        "& (a > 0) & valid",
+        "& valid",
+        "a zero command counts as saturated where no torque is available",
+    ),
+    Mutation(
+        "sat-thermal-partial",
+        SAT,
+        "cand = np.where(full & np.isfinite(rms), rms, -np.inf)",
+        "cand = np.where(np.isfinite(rms), rms, -np.inf)",
+        "worst thermal window may be a partial one at the start of the run",
+    ),
     # --- slip ---------------------------------------------------------------------------
     Mutation(
         "slip-speed-gate",
@@ -243,6 +257,20 @@ MUTATIONS: tuple[Mutation, ...] = (
         "float(np.sqrt(np.nansum(w * diff * diff) / total))",
         "float(np.nansum(w * diff * diff) / total)",
         "yaw-rate difference: mean square reported as RMS",
+    ),
+    Mutation(
+        "slip-share-valid",
+        SLIP,
+        "time_share(t, mask_of_events(t, events), valid)",
+        "time_share(t, mask_of_events(t, events))",
+        "slipping share over all time, not the time with a slip speed",
+    ),
+    Mutation(
+        "slip-ratio-peak-index",
+        SLIP,
+        'ev.detail["slip_ratio_peak"] = float(kappa[i])',
+        'ev.detail["slip_ratio_peak"] = float(kappa[b])',
+        "slip ratio of an event read at its last sample, not at its peak",
     ),
     # --- tip-over -----------------------------------------------------------------------
     Mutation(
@@ -335,6 +363,20 @@ MUTATIONS: tuple[Mutation, ...] = (
         "return track_width / (2.0 * np.asarray(L_c, dtype=float))",
         "return track_width / np.asarray(L_c, dtype=float)",
         "static stability factor without the 2",
+    ),
+    Mutation(
+        "tip-event-side-index",
+        TIP,
+        "side = None if k is None else _side(yv[a + k])",
+        "side = None if k is None else _side(yv[k])",
+        "side of an event read at an index of the run, not of the event",
+    ),
+    Mutation(
+        "tip-rotate-pitch",
+        TIP,
+        "f_z = -s_th * ax + c_th * f_z1",
+        "f_z = s_th * ax + c_th * f_z1",
+        "pitch rotation of the accelerometer of the wrong sign",
     ),
     # --- roll ---------------------------------------------------------------------------
     Mutation(
@@ -442,6 +484,13 @@ MUTATIONS: tuple[Mutation, ...] = (
         "w = w * np.asarray(valid, dtype=bool)",
         "w = w * 1.0",
         "time share ignores the valid mask",
+    ),
+    Mutation(
+        "kin-pitch-arm",
+        KIN,
+        "derivative(t, L * np.sin(np.asarray(pitch, dtype=float)))",
+        "derivative(t, L * np.cos(np.asarray(pitch, dtype=float)))",
+        "pitch lever arm with cos instead of sin",
     ),
 )
 

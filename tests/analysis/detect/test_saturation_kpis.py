@@ -91,3 +91,42 @@ def test_per_actuator_eps_overrides_the_threshold() -> None:
     wide = Actuator("wheel_l", "wheel", "l", 10.0, 4.0, saturation_eps=0.5)
     assert detect_saturation(frame, _profile(plain)).kpis["wheel_l"]["event_count"] == 1
     assert detect_saturation(frame, _profile(wide)).kpis["wheel_l"]["event_count"] == 0
+
+
+def test_a_zero_command_beyond_the_no_load_speed_is_not_saturation() -> None:
+    t = _t(2.0)
+    frame = pd.DataFrame(
+        {
+            "t": t,
+            "wheel_l.torque_cmd": np.where(t < 1.0, 0.0, 0.5),
+            "wheel_l.vel": np.full(t.size, 60.0),
+        }
+    )
+    act = Actuator("wheel_l", "wheel", "l", peak_torque=10.0, continuous_torque=4.0, motor=MOTOR)
+    res = detect_saturation(frame, _profile(act))
+    # DC motor equations (Hughes & Drury, ch. 3): no-load speed V / k_e = 48 rad/s, so at
+    # 60 rad/s the drive has no motoring torque left (line floored at 0). Asking nothing is no
+    # saturation; asking 0.5 N*m is.
+    assert res.series["wheel_l.torque_available"].to_numpy() == pytest.approx(0.0, abs=1e-12)
+    assert _spans(res.events) == pytest.approx([1.0, 1.99, 0.5], abs=1e-12)
+    # Pattern arithmetic (zero-order hold, the last sample weighs nothing): 99 intervals of
+    # 10 ms of the 1.99 s logged.
+    assert res.kpis["wheel_l"]["saturated_share"] == pytest.approx(0.99 / 1.99, rel=1e-12)
+
+
+def test_worst_thermal_window_is_a_full_window() -> None:
+    t = _t(30.0)
+    # 6 N*m for the first 2 s, then 2 N*m: the early, partly filled windows read 6 N*m, but
+    # the thermal KPI compares full 10 s windows only.
+    torque = np.where(t < 2.0, 6.0, 2.0)
+    frame = pd.DataFrame({"t": t, "wheel_l.torque_cmd": torque})
+    res = detect_saturation(frame, _profile(Actuator("wheel_l", "wheel", "l", 10.0, 4.0)))
+    k = res.kpis["wheel_l"]
+    # The first full window (0, 10 s] holds the most of the 6 N*m stretch. Trapezoid rule by
+    # hand: 1.99 s at 36, one 10 ms interval at (36 + 4) / 2, 8 s at 4 (N*m)^2, over 10 s.
+    worst = np.sqrt((1.99 * 36.0 + 0.01 * 20.0 + 8.0 * 4.0) / 10.0)
+    assert k["torque_rms_worst"] == pytest.approx(worst, rel=1e-9)
+    assert k["torque_rms_ratio"] == pytest.approx(worst / 4.0, rel=1e-9)
+    assert (k["torque_rms_worst_start_s"], k["torque_rms_worst_end_s"]) == pytest.approx(
+        (0.0, 10.0), abs=1e-9
+    )

@@ -75,7 +75,9 @@ def test_slip_at_a_standstill_ends_where_the_slip_speed_falls_below_its_floor() 
     t = _t()
     # Robot still; the left rim turns at 0.3 m/s for 0.5 s, then creeps at 0.07 m/s for 1 s.
     rim_l = np.select([(t >= 0.5) & (t < 1.0), (t >= 1.0) & (t < 2.0)], [0.3, 0.07], 0.0)
-    res = detect_slip(_frame(0.0, rim_l, np.zeros(t.size)), _profile())
+    frame = _frame(0.0, rim_l, np.zeros(t.size))
+    frame.loc[(t >= 2.5) & (t < 2.6), "vel_x"] = np.nan  # 20 samples without a base speed
+    res = detect_slip(frame, _profile())
     # Slip ratio with the 0.5 m/s floor (slip_ratio docstring, SAE J670 with the floor ours):
     # 0.3 / 0.5 = 0.6 > 0.2 starts an event; the creep's 0.07 / 0.5 = 0.14 stays above the
     # 0.1 exit level, so only the slip-speed floor (0.07 < 0.1 m/s) ends it, at the last
@@ -88,8 +90,9 @@ def test_slip_at_a_standstill_ends_where_the_slip_speed_falls_below_its_floor() 
     assert ev.detail["direction"] == "spin"
     k = res.kpis["wheel_l"]
     assert (k["event_count"], k["spin_count"], k["skid_count"]) == (1, 1, 0)
-    # Pattern arithmetic (zero-order hold): 100 samples of 5 ms in the event, 2.995 s logged.
-    assert k["slipping_share"] == pytest.approx(0.5 / 2.995, rel=1e-12)
+    # Pattern arithmetic (zero-order hold): 100 samples of 5 ms in the event, of the 2.995 s
+    # logged less the 20 samples of 5 ms without a slip speed.
+    assert k["slipping_share"] == pytest.approx(0.5 / (2.995 - 0.1), rel=1e-12)
     assert k["peak_slip_speed"] == pytest.approx(0.3, abs=1e-12)
 
 
@@ -115,6 +118,10 @@ def test_a_moving_slip_holds_until_the_ratio_falls_below_the_exit_level() -> Non
     # Hysteresis (events.find_intervals): entered above 0.2, held while above 0.1, so the
     # 0.15 stretch belongs to the event; it ends at its last sample, 1.995 s.
     assert _slips(res, "wheel_l") == [pytest.approx((1.0, 1.995), abs=1e-12)]
+    # Peak slip speed 0.6 m/s and the SAE J670 ratio there, 0.6 / 2.0 = 0.3 (not the 0.15
+    # at the event's end).
+    ev = next(e for e in res.events if e.kind == "slip")
+    assert (ev.peak, ev.detail["slip_ratio_peak"]) == pytest.approx((0.6, 0.3), abs=1e-12)
     # With the levels raised to 0.35 / 0.2 neither stretch starts an event ...
     high = replace(Thresholds.defaults(), slip_ratio_on=0.35, slip_ratio_off=0.2)
     assert (
