@@ -58,12 +58,19 @@ from analysis.ingest.order import (
     rewrite_stream,
     time_stats,
 )
-from analysis.ingest.read import BadLines, FileInfo, inspect_file
+from analysis.ingest.read import (
+    MAX_TEXT_RATIO,
+    BadLines,
+    FileInfo,
+    TextBudget,
+    inspect_file,
+)
 from analysis.ingest.timebase import (
     Clock,
     extra_type,
     first_time_ns,
     raw_time,
+    time_check,
     time_type,
 )
 from analysis.profile import RobotProfile, load_profile
@@ -87,6 +94,9 @@ class RunWriter(Protocol):
     def discard_staging(self, path: Path) -> None: ...
 
 
+#: Decompressed log text one ingest reads by default: the ratio to the server's default
+#: 2048 MiB upload limit (``--max-text-mb`` on the command line). [bytes]
+DEFAULT_MAX_TEXT_BYTES = MAX_TEXT_RATIO * 2048 * (1 << 20)
 #: Largest share of bad lines a file may have before the ingest is refused. [-]
 MAX_BAD_SHARE = 0.01
 #: Bad lines named in the refusal message.
@@ -273,6 +283,7 @@ def ingest_files(
     notes: str = "",
     date: str | None = None,
     progress: Progress | None = None,
+    max_text_bytes: int | None = DEFAULT_MAX_TEXT_BYTES,
 ) -> IngestOutcome:
     """Ingest the log files of one run into ``archive``.
 
@@ -291,6 +302,10 @@ def ingest_files(
         carries absolute time).
     progress : callable, optional
         Called as ``progress(fraction, message)``, fraction in [0, 1]. [-]
+    max_text_bytes : int or None
+        Most text read from the CSV and JSON Lines files together, counted after
+        decompression while streaming; None for no cap. Every line is also at most
+        :data:`analysis.ingest.read.MAX_LINE_BYTES` long. [bytes]
 
     Returns
     -------
@@ -346,6 +361,7 @@ def ingest_files(
         types[sname] = {src.time_column: ttype, **{c.raw: pa.float64() for c in src.columns}}
         types[sname].update(extras[sname])
         for p in files_of:
+            infos[p].time_check = time_check(src)
             f = first_time_ns(infos[p], src, ttype)
             if f is not None:
                 firsts.append(f)
@@ -354,6 +370,9 @@ def ingest_files(
 
     total_bytes = sum(i.size for i in infos.values()) or 1
     done_bytes = 0
+    budget = None if max_text_bytes is None else TextBudget(int(max_text_bytes))
+    for info in infos.values():
+        info.text_budget = budget
     staging = archive.new_staging()
     try:
         (staging / "streams").mkdir()
