@@ -40,7 +40,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from analysis import __version__, catalogue
-from analysis.errors import ChannelMapError, IngestError
+from analysis.errors import AlreadyStoredError, ChannelMapError, IngestError
 from analysis.ingest.channel_map import (
     ChannelMap,
     SourceSpec,
@@ -437,6 +437,10 @@ def ingest_files(
         )  # fmt: skip
         say(0.97, "storing run")
         run_id = archive.commit_run(staging, meta)
+    except AlreadyStoredError as exc:  # another ingest of these files stored them first
+        archive.discard_staging(staging)
+        winner = archive.get_meta(exc.run_id)
+        return IngestOutcome(exc.run_id, winner.get("ingest_report", {}), duplicate_of=exc.run_id)
     except BaseException:
         archive.discard_staging(staging)
         raise
