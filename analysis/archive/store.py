@@ -23,6 +23,7 @@ on ``source_hash`` refuses a second row.
 
 from __future__ import annotations
 
+import contextlib
 import fcntl
 import json
 import os
@@ -32,7 +33,6 @@ import shutil
 import sqlite3
 import tomllib
 from collections.abc import Iterator
-import contextlib
 from contextlib import closing, contextmanager
 from datetime import UTC, datetime
 from pathlib import Path
@@ -377,6 +377,10 @@ class Archive:
             d["analysed"] = bool(r[9])
             out.append(d)
         return out
+
+    def is_analysed(self, run_id: str) -> bool:
+        """True when the run has stored analysis results."""
+        return (self._run_dir(run_id) / "results" / "summary.json").is_file()
 
     def get_meta(self, run_id: str) -> dict[str, Any]:
         """The run's meta.json as a dict."""

@@ -87,9 +87,7 @@ def iter_jsonl(
             good.append(first + k)
         if good:
             text = pa.table({c: pa.array(v, pa.string()) for c, v in rows.items()})
-            out = _convert_text_table(
-                text, types, required, np.asarray(good), bad, info.time_check
-            )
+            out = _convert_text_table(text, types, required, np.asarray(good), bad, info.time_check)
             if out.num_rows:
                 yield out
 

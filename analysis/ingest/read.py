@@ -568,8 +568,6 @@ def iter_csv(
             io.BytesIO(clean), read_options=read_opts, parse_options=parse_opts,
             convert_options=text_opts,
         )  # fmt: skip
-        out = _convert_text_table(
-            text, types, required, numbers[valid], bad, info.time_check
-        )
+        out = _convert_text_table(text, types, required, numbers[valid], bad, info.time_check)
         if out.num_rows:
             yield out

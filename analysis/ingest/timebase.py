@@ -20,7 +20,6 @@ from analysis.ingest.channel_map import ISO8601, SourceSpec
 from analysis.ingest.read import FileInfo, TimeCheck, _validate
 from analysis.profile import unit_registry
 
-
 #: Plausible absolute (epoch) timestamps: from 1990-01-01 to 2100-01-01 UTC. [s since epoch]
 EPOCH_RANGE_S = (
     datetime(1990, 1, 1, tzinfo=UTC).timestamp(),

@@ -308,9 +308,10 @@ async def upload(request: Request, archive: ArchiveDep, jobs: JobsDep) -> dict[s
             date=text.get("date") or None,
             progress=ingest_progress,
         )
-        if outcome.duplicate_of:
+        if outcome.duplicate_of and archive.is_analysed(outcome.duplicate_of):
             progress(1.0, f"these files are already stored as run {outcome.duplicate_of}")
             return str(outcome.duplicate_of)
+        # a new run, or one stored earlier whose analysis never ran: analyse it now
 
         def analysis_progress(fraction: float, message: str) -> None:
             progress(INGEST_SHARE + (1 - INGEST_SHARE) * fraction, f"analysis: {message}")

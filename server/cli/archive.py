@@ -142,7 +142,10 @@ def cmd_ingest(args: argparse.Namespace) -> int:
         max_text_bytes=_positive_mb(args.max_text_mb, "--max-text-mb"),
     )
     analysed: str | None = None
-    if not args.no_analyse and outcome.duplicate_of is None:
+    # A stored run is analysed unless --no-analyse; that includes a run stored by an
+    # earlier ingest that was cut short before its analysis (re-ingesting finishes it).
+    pending = outcome.duplicate_of is None or not archive.is_analysed(outcome.run_id)
+    if not args.no_analyse and pending:
         try:
             pipeline = importlib.import_module("analysis.detect.pipeline")
         except ModuleNotFoundError as exc:
@@ -170,6 +173,8 @@ def cmd_ingest(args: argparse.Namespace) -> int:
         return 0
     if outcome.duplicate_of:
         print(f"{outcome.run_id}: these files were ingested before; nothing new stored.")
+        if analysed == "done":
+            print(f"{outcome.run_id}: it had not been analysed; analysed now.")
         return 0
     print(outcome.run_id)
     print("\n".join(_short_report(outcome.report)))

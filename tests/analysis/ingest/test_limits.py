@@ -12,8 +12,15 @@ import pytest
 from analysis.archive.store import Archive
 from analysis.errors import IngestError
 from analysis.ingest.stream import ingest_files
-from tests.analysis.ingest_kit import MAP, PROFILE, START_US, STATE_PERIOD_US, map_text
-from tests.analysis.ingest_kit import state_lines, write
+from tests.analysis.ingest_kit import (
+    MAP,
+    PROFILE,
+    START_US,
+    STATE_PERIOD_US,
+    map_text,
+    state_lines,
+    write,
+)
 
 N = 3000
 #: The real span of N rows at 400 Hz. [s]
