@@ -39,7 +39,12 @@ from server.api import series as routes_series
 from server.api import upload as routes_upload
 from server.jobs import JobManager, submit_pending_analysis
 from server.run_cache import DEFAULT_CACHE_MB, RunCache
-from server.security import SecurityMiddleware, content_security_policy, page_script_hashes
+from server.security import (
+    SecurityMiddleware,
+    content_security_policy,
+    page_script_hashes,
+    scrub_paths,
+)
 
 log = logging.getLogger("outrigger.server")
 
@@ -171,7 +176,13 @@ def create_app(
     )
     app.state.archive = archive
     app.state.token = token or None
-    app.state.jobs = JobManager()
+    places = {str(upload_root): "the upload", str(archive.root): "the archive"}
+    places[str(archive.root.resolve())] = "the archive"
+
+    def scrub(message: str) -> str:
+        return scrub_paths(message, places)
+
+    app.state.jobs = JobManager(scrub=scrub)
     app.state.run_cache = RunCache(int(cache_mb) * 1024 * 1024)
     app.state.max_upload_bytes = int(max_upload_mb) * 1024 * 1024
     app.state.upload_root = upload_root
@@ -185,7 +196,21 @@ def create_app(
     async def outrigger_error(request: Request, exc: OutriggerError) -> JSONResponse:
         headers = {"WWW-Authenticate": "Bearer"} if exc.status == 401 else None
         return JSONResponse(
-            error_body(type(exc).__name__, str(exc)), status_code=exc.status, headers=headers
+            error_body(type(exc).__name__, scrub(str(exc))),
+            status_code=exc.status,
+            headers=headers,
+        )
+
+    @app.exception_handler(RecursionError)
+    async def too_deep(request: Request, exc: RecursionError) -> JSONResponse:
+        return JSONResponse(
+            error_body(
+                "RequestError",
+                "The request holds data nested too deeply to read (hundreds of levels of "
+                "lists or tables inside each other). Send it flat, as the API reference "
+                "(/api.html) shows.",
+            ),
+            status_code=400,
         )
 
     @app.exception_handler(StarletteHTTPException)

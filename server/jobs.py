@@ -74,9 +74,12 @@ class JobManager:
     workers : int
         Threads; 1 by default so two ingests never compete for the disk and
         the 2-core test machines stay responsive. [-]
+    scrub : callable, optional
+        Applied to a failed job's message (the server removes its own paths).
     """
 
-    def __init__(self, workers: int = 1) -> None:
+    def __init__(self, workers: int = 1, scrub: Callable[[str], str] | None = None) -> None:
+        self._scrub = scrub or (lambda message: message)
         self._pool = ThreadPoolExecutor(max_workers=workers, thread_name_prefix="outrigger-job")
         self._jobs: dict[str, Job] = {}
         self._lock = threading.Lock()
@@ -125,7 +128,8 @@ class JobManager:
         try:
             run_id = func(progress)
         except OutriggerError as exc:
-            self._finish(job, FAILED, error={"type": type(exc).__name__, "message": str(exc)})
+            message = self._scrub(str(exc))
+            self._finish(job, FAILED, error={"type": type(exc).__name__, "message": message})
         except Exception:
             log.exception("job %s (%s) failed", job.id, job.kind)
             self._finish(

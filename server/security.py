@@ -175,3 +175,22 @@ class SecurityMiddleware:
                     "or a script (which sends no Origin header).",
                 )
         return None
+
+
+#: An absolute path on this server (under a usual top folder), up to its file name.
+_ABS_PATH = re.compile(
+    r"(?<![\w.:/])/(?:tmp|var|home|root|srv|work|mnt|opt|usr|data|run|media|Users|private)"
+    r"(?:/[\w.+@-]+)*/([\w.+@-]+)"
+)
+
+
+def scrub_paths(message: str, places: dict[str, str]) -> str:
+    """An error message without this server's paths, for an API answer.
+
+    Each of ``places`` (path -> words, e.g. the archive root -> "the archive") is
+    replaced first; any other absolute path is cut to its file name. The command
+    line keeps full paths: there they are the user's own.
+    """
+    for path, words in sorted(places.items(), key=lambda kv: -len(kv[0])):
+        message = message.replace(path, words)
+    return _ABS_PATH.sub(lambda m: m.group(1), message)

@@ -66,7 +66,9 @@ from analysis.profile import (
     profile_from_dict,
 )
 
-RUN_ID_RE = re.compile(r"^[a-z0-9-]+$")
+#: A run id: lower-case letters, digits and '-', at most 100 characters (ids the archive
+#: gives are 20 to 78 long).
+RUN_ID_RE = re.compile(r"^[a-z0-9-]{1,100}$")
 CONFIG_NAME_RE = re.compile(r"^[A-Za-z0-9_-]{1,80}$")
 CONFIG_KINDS = {"profile": "profiles", "map": "maps"}
 #: As-of join tolerance, in periods of the joined stream: one period plus half a
@@ -176,11 +178,14 @@ class Archive:
 
     def _run_dir(self, run_id: str) -> Path:
         if not isinstance(run_id, str) or not RUN_ID_RE.match(run_id):
-            raise RunNotFoundError(f"{run_id!r} is not a run id (lower-case letters, digits, '-').")
+            shown = repr(run_id[:40]) + ("..." if len(str(run_id)) > 40 else "")
+            raise RunNotFoundError(
+                f"{shown} is not a run id (lower-case letters, digits and '-', at most 100)."
+            )
         path = self.root / "runs" / run_id
         if not (path / "meta.json").is_file():
             raise RunNotFoundError(
-                f"No run {run_id!r} in the archive {self.root}. `outrigger runs` lists the runs."
+                f"No run {run_id!r} in the archive. `outrigger runs` lists the runs."
             )
         return path
 
@@ -629,6 +634,11 @@ class Archive:
                 data = tomllib.loads(text)
             except tomllib.TOMLDecodeError as exc:
                 raise ProfileError(f"Profile {name!r} is not valid TOML: {exc}.") from exc
+            except RecursionError as exc:
+                raise ProfileError(
+                    f"Profile {name!r} is nested too deeply to read (arrays or tables inside "
+                    "each other hundreds of levels deep); see the README for its layout."
+                ) from exc
             profile_from_dict(data, source=f"profile {name!r}")
         else:
             parse_channel_map(text, origin=f"channel map {name!r}")

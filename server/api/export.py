@@ -106,9 +106,7 @@ def window_csv(
         out = pd.merge(out, series, on=cat.T, how="outer", sort=True)
     out = out[[cat.T, *[n for n in names if n in out]]]
     for col in out.columns:  # text from the log (extra.* columns): never a live formula
-        if not pd.api.types.is_numeric_dtype(out[col]) and not pd.api.types.is_bool_dtype(
-            out[col]
-        ):
+        if not pd.api.types.is_numeric_dtype(out[col]) and not pd.api.types.is_bool_dtype(out[col]):
             out[col] = out[col].map(escape_formula)
     # Floats as their shortest exact text (pandas' default): no digit is lost.
     text = out.rename(columns={c: _header(c) for c in out.columns}).to_csv(

@@ -16,7 +16,7 @@ from server.api.export import escape_formula
 from tests.analysis.ingest_kit import MAP, PROFILE, state_lines, write
 from tests.server.dashboard_fixtures import fresh_app
 
-NOTES = ["=HYPERLINK(\"http://x\",\"y\")", "+1+2", "-3+4", "@SUM(A1)", "\tcmd", "plain", "a=b"]
+NOTES = ['=HYPERLINK("http://x","y")', "+1+2", "-3+4", "@SUM(A1)", "\tcmd", "plain", "a=b"]
 
 
 def test_escape_formula_by_the_owasp_rule():
