@@ -161,6 +161,7 @@ class _StreamWriter:
         self.conflicting = 0
         self.reordered = 0
         self.t_min = np.inf
+        self.non_finite: dict[str, dict[str, int]] = {}  # signal -> missing, nan, inf counts
 
     def add(self, raw: pa.Table) -> None:
         t = self.clock.seconds(raw_time(raw.column(self.source.time_column)))
@@ -193,10 +194,28 @@ class _StreamWriter:
             return
         self.last = table.slice(table.num_rows - 1)
         self.t_parts.append(t)
+        self._count_non_finite(table)
         self.pending.append(table)
         self.pending_rows += table.num_rows
         if self.pending_rows >= ROW_GROUP_ROWS:
             self._flush()
+
+    def _count_non_finite(self, table: pa.Table) -> None:
+        """Count missing, NaN and infinite values per mapped signal (kept as they are).
+
+        A CSV cell ``nan`` or ``NaN`` is read as missing, like an empty cell; NaN
+        proper comes from Parquet or JSON input.
+        """
+        for c in self.source.columns:
+            col = table.column(c.signal)
+            missing = col.null_count
+            nan = int(pc.sum(pc.is_nan(col)).as_py() or 0)
+            inf = int(pc.sum(pc.is_inf(col)).as_py() or 0)
+            if missing or nan or inf:
+                seen = self.non_finite.setdefault(c.signal, {"missing": 0, "nan": 0, "inf": 0})
+                seen["missing"] += missing
+                seen["nan"] += nan
+                seen["inf"] += inf
 
     def _flush(self) -> None:
         if not self.pending:
@@ -426,6 +445,7 @@ def ingest_files(
                     "count": sum(b.count for _, b in bads),
                     "lines": [dict(x, file=n) for n, b in bads for x in b.listed][:100],
                 },
+                "non_finite": w.non_finite,
                 "signals": [c.signal for c in w.source.columns],
                 "extra_columns": [catalogue.extra(c) for c in w.extras],
             }

@@ -113,6 +113,12 @@ def _short_report(report: dict[str, Any]) -> list[str]:
         for s in r["skipped_lines"]["lines"][:5]:
             where = s.get("line", s.get("row"))
             lines.append(f"      skipped {s.get('file', '')}:{where}: {s['reason']}")
+        odd = [
+            f"{signal} " + ", ".join(f"{n} {k}" for k, n in counts.items() if n)
+            for signal, counts in (r.get("non_finite") or {}).items()
+        ]
+        if odd:
+            lines.append(f"      missing or non-finite values: {'; '.join(odd)}")
         if r["extra_columns"]:
             lines.append(f"      kept unmapped: {', '.join(r['extra_columns'])}")
     return lines

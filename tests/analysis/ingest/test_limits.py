@@ -104,3 +104,23 @@ def test_a_log_of_only_implausible_times_is_refused_with_the_reason(tmp_path):
     with pytest.raises(IngestError, match="outside the plausible range"):
         ingest_files(archive, [path], MAP, PROFILE)
     assert archive.list_runs() == []
+
+
+def test_nan_and_inf_values_are_counted_per_column_in_the_report(tmp_path):
+    # Issue 11, item 10: NaN / inf values in a log are kept (not invented away) and counted.
+    lines = state_lines(N)
+    for row, (roll, speed) in {
+        10: ("nan", "inf"),
+        11: ("NaN", "1.5"),
+        12: ("-inf", "-inf"),
+    }.items():
+        parts = lines[row + 2].split(",")
+        parts[1], parts[5] = roll, speed
+        lines[row + 2] = ",".join(parts)
+    _, out = _ingest(tmp_path, lines)
+    # CSV "nan"/"NaN" cells are read as missing, like empty cells (pyarrow's null values).
+    assert out.report["state"]["non_finite"] == {
+        "roll": {"missing": 2, "nan": 0, "inf": 1},
+        "vel_x": {"missing": 0, "nan": 0, "inf": 2},
+    }
+    assert _skipped(out.report)["count"] == 0
