@@ -52,9 +52,10 @@ class Served:
             try:
                 httpx.get(f"{self.url}/api/meta", timeout=1)
                 return
-            except httpx.HTTPError:
+            except httpx.HTTPError as exc:
                 if self.proc.poll() is not None or time.monotonic() > deadline:
-                    raise RuntimeError(f"server did not start: {self.proc.stderr.read()}")  # type: ignore[union-attr]
+                    err = self.proc.stderr.read() if self.proc.stderr else ""
+                    raise RuntimeError(f"server did not start: {err}") from exc
                 time.sleep(0.1)
 
     def stop(self, sig: int = signal.SIGTERM) -> None:
