@@ -75,7 +75,8 @@ def test_column_reads_missing_values_as_nan() -> None:
 
 def test_rim_speed_adds_pitch_rate_for_a_leg_referenced_encoder() -> None:
     # Worked number: r = 0.1 m, wheel 20 rad/s against its leg, leg pitching back at 2 rad/s:
-    # ground-referenced wheel rate 18 rad/s, rim speed 1.8 m/s (DESIGN.md, v = r (w + q)).
+    # ground-referenced wheel rate 18 rad/s, rim speed 1.8 m/s (v = r (w + q): angular rates
+    # of bodies in plane motion add, Meriam & Kraige, Engineering Mechanics: Dynamics, ch. 5).
     assert rim_speed(np.array([20.0]), np.array([-2.0]), 0.1)[0] == pytest.approx(1.8)
     # Ground-referenced encoder: v = r w (rolling without slip, common practice, no source).
     assert rim_speed(np.array([20.0]), None, 0.1)[0] == pytest.approx(2.0)
