@@ -43,15 +43,15 @@ from analysis.kinematics import (
     time_share,
     yaw_rate_from_wheels,
 )
-from analysis.metrics import lowpass_zero_phase
 from analysis.profile import RobotProfile, Thresholds
 
 DETECTOR = "slip"
 
-#: Cut-off of the zero-phase low-pass on the slip speed before the slip-speed gate
-#: (half the rate of an event of the 0.05 s default minimum duration; engineering
-#: choice, no source). The ratio, the series and the peaks stay unfiltered. [Hz]
-GATE_CUTOFF_HZ = 10.0
+#: The slip-speed gate opens only where |slip speed| stays above slip_speed_min for at
+#: least this long without a break, so single-sample spikes of an encoder difference or
+#: a velocity estimate are no slip (5 samples at 200 Hz, 9 at 400 Hz; engineering
+#: choice, no source). The ratio, the series and the peaks stay unfiltered. [s]
+GATE_HOLD_S = 0.02
 SPIN = "spin"
 SKID = "skid"
 
@@ -157,6 +157,21 @@ def _mean_leg_length(frame: pd.DataFrame, notes: list[str]) -> np.ndarray | None
         return np.where(count > 0, total / count, np.nan)
 
 
+def _held(t: np.ndarray, mask: np.ndarray, hold_s: float) -> np.ndarray:
+    """``mask`` kept only on runs of consecutive True samples spanning at least ``hold_s``."""
+    m = np.asarray(mask, dtype=bool)
+    if not m.any():
+        return m
+    edges = np.diff(np.concatenate(([0], m.astype(np.int8), [0])))
+    starts = np.flatnonzero(edges == 1)
+    ends = np.flatnonzero(edges == -1) - 1  # inclusive
+    keep = (t[ends] - t[starts]) >= hold_s - 1e-9
+    out = np.zeros(m.size, dtype=bool)
+    for a, b in zip(starts[keep], ends[keep], strict=True):  # loop over runs, not samples
+        out[a : b + 1] = True
+    return out
+
+
 def _wheel_events(
     t: np.ndarray,
     name: str,
@@ -167,11 +182,11 @@ def _wheel_events(
     """Series, slip events and KPIs of one wheel."""
     slip = v_rim - v_contact
     kappa = slip_ratio(v_rim, v_contact, th.slip_min_ref_speed)
-    # The speed gate looks at the slip speed low-passed at GATE_CUTOFF_HZ: sensor noise
-    # (encoder quantisation, estimator noise) is fast, a slip lasts min_duration or more.
-    steady_slip = lowpass_zero_phase(t, slip, GATE_CUTOFF_HZ)
+    # The speed gate: |slip speed| above the floor for GATE_HOLD_S at least. Sensor noise
+    # (encoder quantisation, estimator noise) passes the floor for a sample or two only.
     with np.errstate(invalid="ignore"):
-        gated = np.where(np.abs(steady_slip) > th.slip_speed_min, np.abs(kappa), 0.0)
+        fast = _held(t, np.abs(slip) > th.slip_speed_min, GATE_HOLD_S)
+        gated = np.where(fast, np.abs(kappa), 0.0)
     gated[~np.isfinite(kappa)] = np.nan
     intervals = find_intervals(
         t,
@@ -278,10 +293,10 @@ def detect_slip(
     w_joint``; ``v_contact = v_mid -/+ yaw_rate b / 2`` for left/right ([3]);
     slip speed ``v_rim - v_contact``; slip ratio per :func:`slip_ratio`. An
     event needs ``|kappa| > slip_ratio_on`` (held while above
-    ``slip_ratio_off``) and ``|slip speed| > slip_speed_min``, the slip speed of
-    the gate low-passed at :data:`GATE_CUTOFF_HZ` (zero phase): single-sample
-    spikes of an encoder difference or a velocity estimate are no slip, while the
-    ratio, the series and the peaks stay unfiltered. The lever-arm term of the
+    ``slip_ratio_off``) and ``|slip speed| > slip_speed_min`` held for at least
+    :data:`GATE_HOLD_S` without a break: single-sample spikes of an encoder
+    difference or a velocity estimate are no slip, while the edges of a real slip,
+    the ratio, the series and the peaks stay exact. The lever-arm term of the
     contact speed comes from the gyro pitch rate (:func:`analysis.kinematics.lever_arm_rate`).
     """
     th = thresholds if thresholds is not None else profile.thresholds

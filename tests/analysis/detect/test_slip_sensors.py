@@ -47,7 +47,7 @@ def test_a_real_slip_keeps_its_exact_start_and_end_and_peak() -> None:
     inside = (t >= 1.0) & (t < 1.3)
     frame.loc[inside, "wheel_l.vel"] += 3.0  # rim 0.3 m/s over still ground for 0.3 s
     (ev,) = _slips(frame)
-    # The gate is low-passed, the ratio and series are not: the event covers exactly the
+    # The gate holds runs of 0.02 s or more, unfiltered: the event covers exactly the
     # samples of the step (first 1.0 s, last 1.2975 s) and its peak is the step's 0.3 m/s.
     assert (ev.start_s, ev.end_s) == pytest.approx((1.0, 1.2975))
     assert ev.peak == pytest.approx(3.0 * R, abs=1e-9)  # 3 rad/s on a 0.1 m wheel: 0.3 m/s

@@ -88,11 +88,12 @@ def test_time_unit_wrong_and_right(tmp_path, tables):
     torque_boot(boot_tables["torque"])
     right = _ingest(tmp_path / "right", boot_tables, _boot_map("us"), change)
     assert right == []
-    wrong = _ingest(tmp_path / "wrong", boot_tables, _boot_map("s"), change)
+    # microseconds read as milliseconds: one 5,000 us step is 5 s, 0.2 Hz, and the 25 s
+    # run lasts 7 h (seconds would give 290 days, which the ingest refuses outright)
+    wrong = _ingest(tmp_path / "wrong", boot_tables, _boot_map("ms"), change)
     assert _checks(wrong) == [("time_unit", "stamp_us")]
-    # microseconds read as seconds: one 5,000 us step is 5,000 s, 0.0002 Hz; the message
-    # names the unit that gives the demo's 200 Hz
-    assert "2e-04 Hz" in wrong[0]["message"] or "0.0002 Hz" in wrong[0]["message"]
+    # the message gives the rate found and names the unit that gives the demo's 200 Hz
+    assert "0.2 Hz" in wrong[0]["message"]
     assert 'time_unit = "us" would give 200 Hz' in wrong[0]["message"]
 
 
