@@ -187,6 +187,13 @@ MUTATIONS: tuple[Mutation, ...] = (
         "cand = np.where(np.isfinite(rms), rms, -np.inf)",
         "worst thermal window may be a partial one at the start of the run",
     ),
+    Mutation(
+        "sat-thresholds-arg",
+        SAT,
+        "th = thresholds if thresholds is not None else profile.thresholds",
+        "th = profile.thresholds",
+        "thresholds argument ignored (the profile's used)",
+    ),
     # --- slip ---------------------------------------------------------------------------
     Mutation(
         "slip-speed-gate",
@@ -271,6 +278,13 @@ MUTATIONS: tuple[Mutation, ...] = (
         'ev.detail["slip_ratio_peak"] = float(kappa[i])',
         'ev.detail["slip_ratio_peak"] = float(kappa[b])',
         "slip ratio of an event read at its last sample, not at its peak",
+    ),
+    Mutation(
+        "slip-thresholds-arg",
+        SLIP,
+        "th = thresholds if thresholds is not None else profile.thresholds",
+        "th = profile.thresholds",
+        "thresholds argument ignored (the profile's used)",
     ),
     # --- tip-over -----------------------------------------------------------------------
     Mutation(
@@ -378,6 +392,13 @@ MUTATIONS: tuple[Mutation, ...] = (
         "f_z = s_th * ax + c_th * f_z1",
         "pitch rotation of the accelerometer of the wrong sign",
     ),
+    Mutation(
+        "tip-thresholds-arg",
+        TIP,
+        "th = thresholds if thresholds is not None else profile.thresholds",
+        "th = profile.thresholds",
+        "thresholds argument ignored (the profile's used)",
+    ),
     # --- roll ---------------------------------------------------------------------------
     Mutation(
         "roll-max-abs",
@@ -434,6 +455,13 @@ MUTATIONS: tuple[Mutation, ...] = (
         "-np.arctan(f_y / f_z), np.nan)",
         "np.arctan(f_y / f_z), np.nan)",
         "ZMP-centring lean of the wrong sign",
+    ),
+    Mutation(
+        "roll-thresholds-arg",
+        ROLL,
+        "th = thresholds if thresholds is not None else profile.thresholds",
+        "th = profile.thresholds",
+        "thresholds argument ignored (the profile's used)",
     ),
     # --- kinematics ---------------------------------------------------------------------
     Mutation(
