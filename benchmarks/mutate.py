@@ -198,7 +198,7 @@ MUTATIONS: tuple[Mutation, ...] = (
     Mutation(
         "slip-speed-gate",
         SLIP,
-        "np.where(np.abs(slip) > th.slip_speed_min, np.abs(kappa), 0.0)",
+        "np.where(np.abs(steady_slip) > th.slip_speed_min, np.abs(kappa), 0.0)",
         "np.abs(kappa)",
         "slip-speed gate removed",
     ),
@@ -516,9 +516,23 @@ MUTATIONS: tuple[Mutation, ...] = (
     Mutation(
         "kin-pitch-arm",
         KIN,
-        "derivative(t, L * np.sin(np.asarray(pitch, dtype=float)))",
-        "derivative(t, L * np.cos(np.asarray(pitch, dtype=float)))",
-        "pitch lever arm with cos instead of sin",
+        "return dL * np.sin(theta) + L * np.cos(theta) * q",
+        "return dL * np.sin(theta) + L * np.sin(theta) * q",
+        "pitch lever arm from the gyro rate with sin instead of cos",
+    ),
+    Mutation(
+        "kin-pitch-arm-fallback",
+        KIN,
+        "lowpass_zero_phase(t, L * np.sin(theta), cutoff_hz)",
+        "lowpass_zero_phase(t, L * np.cos(theta), cutoff_hz)",
+        "pitch lever arm without a gyro rate with cos instead of sin",
+    ),
+    Mutation(
+        "kin-pitch-sign",
+        KIN,
+        "v = v - lever_arm_rate(",
+        "v = v + lever_arm_rate(",
+        "pitch lever arm added instead of subtracted",
     ),
 )
 
