@@ -1,8 +1,7 @@
 """Tests of the demo-run generator (analysis/demo/) and the bundled demo_logs/.
 
 The generated frame is checked against published kinematics (differential drive,
-rigid-body lever arm), reconstructed
-here independently from the logged signals, and against outside values (standard
+rigid-body lever arm), reconstructed here independently from the logged signals, and against outside values (standard
 gravity, the steady-turn lean relation, pint as the unit reference). The physics
 checks use ideal sensors (the log carries the true states, rounded); the sensor
 model itself is tested in test_sensors.py.
