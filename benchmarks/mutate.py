@@ -187,11 +187,18 @@ MUTATIONS: tuple[Mutation, ...] = (
         "cand = np.where(np.isfinite(rms), rms, -np.inf)",
         "worst thermal window may be a partial one at the start of the run",
     ),
+    Mutation(
+        "sat-thresholds-arg",
+        SAT,
+        "th = thresholds if thresholds is not None else profile.thresholds",
+        "th = profile.thresholds",
+        "thresholds argument ignored (the profile's used)",
+    ),
     # --- slip ---------------------------------------------------------------------------
     Mutation(
         "slip-speed-gate",
         SLIP,
-        "np.where(np.abs(slip) > th.slip_speed_min, np.abs(kappa), 0.0)",
+        "np.where(np.abs(steady_slip) > th.slip_speed_min, np.abs(kappa), 0.0)",
         "np.abs(kappa)",
         "slip-speed gate removed",
     ),
@@ -271,6 +278,13 @@ MUTATIONS: tuple[Mutation, ...] = (
         'ev.detail["slip_ratio_peak"] = float(kappa[i])',
         'ev.detail["slip_ratio_peak"] = float(kappa[b])',
         "slip ratio of an event read at its last sample, not at its peak",
+    ),
+    Mutation(
+        "slip-thresholds-arg",
+        SLIP,
+        "th = thresholds if thresholds is not None else profile.thresholds",
+        "th = profile.thresholds",
+        "thresholds argument ignored (the profile's used)",
     ),
     # --- tip-over -----------------------------------------------------------------------
     Mutation(
@@ -378,6 +392,13 @@ MUTATIONS: tuple[Mutation, ...] = (
         "f_z = s_th * ax + c_th * f_z1",
         "pitch rotation of the accelerometer of the wrong sign",
     ),
+    Mutation(
+        "tip-thresholds-arg",
+        TIP,
+        "th = thresholds if thresholds is not None else profile.thresholds",
+        "th = profile.thresholds",
+        "thresholds argument ignored (the profile's used)",
+    ),
     # --- roll ---------------------------------------------------------------------------
     Mutation(
         "roll-max-abs",
@@ -435,6 +456,13 @@ MUTATIONS: tuple[Mutation, ...] = (
         "np.arctan(f_y / f_z), np.nan)",
         "ZMP-centring lean of the wrong sign",
     ),
+    Mutation(
+        "roll-thresholds-arg",
+        ROLL,
+        "th = thresholds if thresholds is not None else profile.thresholds",
+        "th = profile.thresholds",
+        "thresholds argument ignored (the profile's used)",
+    ),
     # --- kinematics ---------------------------------------------------------------------
     Mutation(
         "kin-contacts",
@@ -488,9 +516,23 @@ MUTATIONS: tuple[Mutation, ...] = (
     Mutation(
         "kin-pitch-arm",
         KIN,
-        "derivative(t, L * np.sin(np.asarray(pitch, dtype=float)))",
-        "derivative(t, L * np.cos(np.asarray(pitch, dtype=float)))",
-        "pitch lever arm with cos instead of sin",
+        "return dL * np.sin(theta) + L * np.cos(theta) * q",
+        "return dL * np.sin(theta) + L * np.sin(theta) * q",
+        "pitch lever arm from the gyro rate with sin instead of cos",
+    ),
+    Mutation(
+        "kin-pitch-arm-fallback",
+        KIN,
+        "lowpass_zero_phase(t, L * np.sin(theta), cutoff_hz)",
+        "lowpass_zero_phase(t, L * np.cos(theta), cutoff_hz)",
+        "pitch lever arm without a gyro rate with cos instead of sin",
+    ),
+    Mutation(
+        "kin-pitch-sign",
+        KIN,
+        "v = v - lever_arm_rate(",
+        "v = v + lever_arm_rate(",
+        "pitch lever arm added instead of subtracted",
     ),
 )
 

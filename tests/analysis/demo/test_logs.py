@@ -1,7 +1,7 @@
 """Tests of the demo-run generator (analysis/demo/) and the bundled demo_logs/.
 
-The generated frame is checked against the physics of DESIGN.md, reconstructed
-here independently from the logged signals, and against outside values (standard
+The generated frame is checked against published kinematics (differential drive,
+rigid-body lever arm), reconstructed here independently from the logged signals, and against outside values (standard
 gravity, the steady-turn lean relation, pint as the unit reference). The physics
 checks use ideal sensors (the log carries the true states, rounded); the sensor
 model itself is tested in test_sensors.py.
@@ -61,7 +61,7 @@ def _steady(run, segment: int, trim_m: float = 4.0) -> np.ndarray:
 
 
 def _contact_residual(frame: pd.DataFrame, side: str) -> np.ndarray:
-    """Rim speed minus contact speed, reconstructed from the logged signals (DESIGN.md)."""
+    """Rim speed minus contact speed, reconstructed from the logged signals."""
     t = frame[cat.T].to_numpy()
     L = 0.5 * (frame[cat.LEG_L_LENGTH] + frame[cat.LEG_R_LENGTH]).to_numpy()
     pitch, roll = frame[cat.PITCH].to_numpy(), frame[cat.ROLL].to_numpy()
@@ -84,7 +84,8 @@ def test_rim_speed_equals_contact_speed_outside_slip(run14):
         # stay 0.25 s clear of true slip (the numerical derivative spreads it)
         near = np.convolve(slipping, np.ones(101), mode="same") > 0
         calm = ~near
-        # Identity of DESIGN.md (differential drive, Siegwart et al. 2011). Ideal sensors:
+        # Differential drive (Siegwart et al. 2011) with the rigid-body lever arm (Meriam &
+        # Kraige, Engineering Mechanics: Dynamics, 2012). Ideal sensors:
         # what is left is the files' rounding (0.001 m/s, 0.001 deg, 0.01 rpm) through the
         # numerical derivative; 0.02 m/s RMS leaves room, 0.1 is the slip-speed floor.
         assert np.sqrt(np.mean(res[calm] ** 2)) < 0.02
@@ -97,7 +98,8 @@ def test_right_wheel_spins_on_the_wet_plate(run14):
     t = run14.frame[cat.T].to_numpy()
     inside = (t >= slips[0].start_s) & (t <= slips[0].end_s)
     res = _contact_residual(run14.frame, "r")
-    # Spin: rim ahead of the ground (DESIGN.md); the planted spin is well above 0.1 m/s.
+    # Spin: rim ahead of the ground, positive longitudinal slip (SAE J670); the planted spin
+    # is well above 0.1 m/s.
     assert np.median(res[inside]) > 0.3
     # Yaw rate from the wheels, r (w_R - w_L) / b, departs from the gyro by far more than
     # the 15 deg/s default threshold while the right wheel spins.
