@@ -87,7 +87,8 @@ THRESHOLD_SPECS: dict[str, ThresholdSpec] = {
             "m/s",
             "m/s",
             0.1,
-            "Slip also needs |rim - contact speed| above this, so sensor noise at walking pace is no slip.",
+            "Slip also needs |rim - contact speed|, low-passed at 10 Hz, above this, so sensor "
+            "noise at walking pace is no slip.",
         ),
         ThresholdSpec(
             "slip_min_ref_speed_m_s",

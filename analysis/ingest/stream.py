@@ -58,6 +58,7 @@ from analysis.ingest.order import (
     rewrite_stream,
     time_stats,
 )
+from analysis.ingest.plausibility import check_time_base, check_values
 from analysis.ingest.read import (
     MAX_TEXT_RATIO,
     BadLines,
@@ -458,6 +459,7 @@ def ingest_files(
                 "non_finite": w.non_finite,
                 "signals": [c.signal for c in w.source.columns],
                 "extra_columns": [catalogue.extra(c) for c in w.extras],
+                "warnings": _plausibility(w.path, w.source, stats, prof),
             }
         run_s = max(float(t[-1]) for t in t_of.values())
         if run_s < MIN_DURATION_S:
@@ -483,6 +485,33 @@ def ingest_files(
         raise
     say(1.0, f"stored run {run_id}")
     return IngestOutcome(run_id, report)
+
+
+def _plausibility(
+    path: Path, source: SourceSpec, stats: dict[str, Any], prof: RobotProfile
+) -> list[dict[str, Any]]:
+    """Plausibility warnings of one stored stream (:mod:`analysis.ingest.plausibility`)."""
+    warnings = check_time_base(source, stats["rate_hz"], stats["duration_s"])
+    wanted = [c.signal for c in source.columns if c.signal in _PLAUSIBILITY_SIGNALS]
+    wanted += [c.signal for c in source.columns if c.signal.endswith(f".{catalogue.VEL}")]
+    wanted += [c.signal for c in source.columns if c.signal.endswith(f".{catalogue.POS}")]
+    if wanted:
+        tab = pq.read_table(path, columns=[catalogue.T, *dict.fromkeys(wanted)])
+        cols = {n: tab.column(n).to_numpy(zero_copy_only=False) for n in tab.column_names}
+        warnings += check_values(source, cols.pop(catalogue.T), cols, prof)
+    return warnings
+
+
+_PLAUSIBILITY_SIGNALS = {
+    catalogue.ROLL,
+    catalogue.PITCH,
+    catalogue.YAW,
+    catalogue.ROLL_REF,
+    catalogue.PITCH_REF,
+    catalogue.YAW_RATE,
+    catalogue.ACCEL_Z,
+    catalogue.VEL_X,
+}
 
 
 def _build_meta(

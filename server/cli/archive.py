@@ -121,6 +121,8 @@ def _short_report(report: dict[str, Any]) -> list[str]:
             lines.append(f"      missing or non-finite values: {'; '.join(odd)}")
         if r["extra_columns"]:
             lines.append(f"      kept unmapped: {', '.join(r['extra_columns'])}")
+        for w in r.get("warnings", []):
+            lines.append(f"      warning: {w['message']}")
     return lines
 
 
