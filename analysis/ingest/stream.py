@@ -267,11 +267,17 @@ def _refuse_bad(info: FileInfo, bad: BadLines) -> None:
         f"{bad.unit} {b[bad.unit]}: {b['reason']}" for b in bad.listed[:MAX_NAMED_LINES]
     )
     more = f" (and {bad.count - MAX_NAMED_LINES} more)" if bad.count > MAX_NAMED_LINES else ""
+    hint = "or check the delimiter and the channel map's column names"
+    if any("plausible range" in str(b["reason"]) for b in bad.listed):
+        hint = (
+            "or, when most times are out of range, check the channel map's time_unit "
+            "and time_origin for this file (a time in us read as s lies years away)"
+        )
     raise IngestError(
         f"{info.path.name}: {bad.count} of {bad.total} {bad.unit}s do not parse "
         f"({100 * bad.count / max(bad.total, 1):.1f}%, more than the "
         f"{100 * MAX_BAD_SHARE:g}% allowed): {named}{more}. Repair or cut those {bad.unit}s, "
-        f"or check the delimiter and the channel map's column names."
+        f"{hint}."
     )
 
 

@@ -106,6 +106,7 @@ def matrix(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
 
 
 def test_peak_memory_over_the_whole_matrix_stays_under_1_gib(matrix):
+    print(f"bad-input matrix: peak RSS {matrix['peak_rss_bytes'] / 2**20:.0f} MiB")
     assert matrix["peak_rss_bytes"] < RSS_LIMIT_BYTES, matrix["peak_rss_bytes"] / 2**20
 
 
