@@ -25,10 +25,12 @@ from __future__ import annotations
 
 import io
 import json
+import zlib
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pyarrow as pa
@@ -571,3 +573,79 @@ def iter_csv(
         out = _convert_text_table(text, types, required, numbers[valid], bad, info.time_check)
         if out.num_rows:
             yield out
+
+
+class TextGuard:
+    """The line-length and decompressed-size limits applied to a log as its bytes arrive.
+
+    The server feeds each uploaded log through one of these while writing it to disk,
+    so an upload past a limit is refused (400) before any job starts. A gzip file is
+    decompressed in steps of at most :data:`MAX_LINE_BYTES` of output, so a bomb never
+    expands in memory; concatenated gzip members are followed. Parquet files (binary)
+    pass unchecked here; their reader checks them.
+
+    Parameters
+    ----------
+    name : str
+        File name, for the message.
+    budget : TextBudget
+        Shared by every log of one upload.
+    """
+
+    def __init__(self, name: str, budget: TextBudget) -> None:
+        self.name = name
+        self.budget = budget
+        self.head = b""
+        self.mode: str | None = None  # "gzip", "text" or "binary", from the first bytes
+        self.inflate: Any = None
+        self.run = 0  # bytes since the last line break
+        self.line = 1
+
+    def feed(self, data: bytes) -> None:
+        """Check the next bytes of the file as sent."""
+        if self.mode is None:
+            self.head += data
+            if len(self.head) < 4:
+                return
+            data, self.head = self.head, b""
+            if data[:4] == b"PAR1":
+                self.mode = "binary"
+            elif data[:2] == b"\x1f\x8b":
+                self.mode = "gzip"
+                self.inflate = zlib.decompressobj(47)  # gzip or zlib header (zlib docs)
+            else:
+                self.mode = "text"
+        if self.mode == "text":
+            self._text(data)
+        elif self.mode == "gzip":
+            self._gzip(data)
+
+    def _gzip(self, data: bytes) -> None:
+        while data:
+            try:
+                out = self.inflate.decompress(data, MAX_LINE_BYTES)
+            except zlib.error as exc:
+                raise IngestError(f"{self.name} is not a readable gzip file: {exc}") from exc
+            self._text(out)
+            if self.inflate.eof:  # another gzip member may follow
+                data = self.inflate.unused_data
+                self.inflate = zlib.decompressobj(47)
+            else:
+                data = self.inflate.unconsumed_tail
+
+    def _text(self, out: bytes) -> None:
+        if not out:
+            return
+        self.budget.spend(self.name, len(out))
+        first = out.find(b"\n")
+        if first < 0:
+            self.run += len(out)
+            if self.run > MAX_LINE_BYTES:
+                raise _line_too_long(self.name, self.line)
+            return
+        if self.run + first > MAX_LINE_BYTES:
+            raise _line_too_long(self.name, self.line)
+        last = out.rfind(b"\n")
+        _check_lines(self.name, out[first + 1 : last + 1], self.line + 1)
+        self.line += out.count(b"\n")
+        self.run = len(out) - last - 1

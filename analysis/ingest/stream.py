@@ -98,6 +98,10 @@ class RunWriter(Protocol):
 #: Decompressed log text one ingest reads by default: the ratio to the server's default
 #: 2048 MiB upload limit (``--max-text-mb`` on the command line). [bytes]
 DEFAULT_MAX_TEXT_BYTES = MAX_TEXT_RATIO * 2048 * (1 << 20)
+#: Fewest valid samples a log of a run may hold. [-]
+MIN_SAMPLES = 10
+#: Shortest run stored (first to last sample over all its logs). [s]
+MIN_DURATION_S = 2.0
 #: Largest share of bad lines a file may have before the ingest is refused. [-]
 MAX_BAD_SHARE = 0.01
 #: Bad lines named in the refusal message.
@@ -263,11 +267,17 @@ def _refuse_bad(info: FileInfo, bad: BadLines) -> None:
         f"{bad.unit} {b[bad.unit]}: {b['reason']}" for b in bad.listed[:MAX_NAMED_LINES]
     )
     more = f" (and {bad.count - MAX_NAMED_LINES} more)" if bad.count > MAX_NAMED_LINES else ""
+    hint = "or check the delimiter and the channel map's column names"
+    if any("plausible range" in str(b["reason"]) for b in bad.listed):
+        hint = (
+            "or, when most times are out of range, check the channel map's time_unit "
+            "and time_origin for this file (a time in us read as s lies years away)"
+        )
     raise IngestError(
         f"{info.path.name}: {bad.count} of {bad.total} {bad.unit}s do not parse "
         f"({100 * bad.count / max(bad.total, 1):.1f}%, more than the "
         f"{100 * MAX_BAD_SHARE:g}% allowed): {named}{more}. Repair or cut those {bad.unit}s, "
-        f"or check the delimiter and the channel map's column names."
+        f"{hint}."
     )
 
 
@@ -434,6 +444,12 @@ def ingest_files(
                     f"No valid rows in {', '.join(n for n, _ in bad_of[sname])} "
                     f"(source {sname!r}); every line was skipped."
                 )
+            if stats["rows"] < MIN_SAMPLES:
+                raise IngestError(
+                    f"{', '.join(n for n, _ in bad_of[sname])} (source {sname!r}) holds "
+                    f"{stats['rows']} valid sample(s); a run needs at least {MIN_SAMPLES} per "
+                    "log to be analysed. Give the whole log of the run."
+                )
             bads = bad_of[sname]
             report[sname] = {
                 "file": ", ".join(n for n, _ in bads),
@@ -451,6 +467,13 @@ def ingest_files(
                 "extra_columns": [catalogue.extra(c) for c in w.extras],
                 "warnings": _plausibility(w.path, w.source, stats, prof),
             }
+        run_s = max(float(t[-1]) for t in t_of.values())
+        if run_s < MIN_DURATION_S:
+            raise IngestError(
+                f"The run lasts {run_s:.3g} s (from the first to the last sample of its logs); "
+                f"a run needs at least {MIN_DURATION_S:g} s to be analysed. Give the whole "
+                "log of the run."
+            )
         origin_ns += int(round(-shift * 1e9)) if shift else 0
         meta = _build_meta(
             staging, cmap, prof, profile_text, report, hashes, run_hash, origin_ns, epoch,

@@ -3,6 +3,9 @@
 The multipart body is parsed as it arrives and each file part is written to a
 fresh temporary folder in chunks; nothing is held whole in memory. The size
 limit counts every byte of the body and answers 413 as soon as it is passed.
+Each log is checked as it arrives against the ingest's limits (longest line 1 MiB,
+decompressed text 20x the upload limit, a gzip file inflated in small steps), so a
+decompression bomb answers 400 before any job starts.
 File names are checked before a byte is written: a name with a path in it
 (``../x.csv``, ``a/b.csv``) is refused with 400. The profile and map are parsed
 before the job starts, so their errors answer 400 at once; ingestion errors
@@ -25,7 +28,7 @@ from python_multipart.multipart import MultipartParser, parse_options_header
 from analysis.archive.store import Archive
 from analysis.detect.pipeline import analyse_run
 from analysis.ingest.channel_map import load_channel_map
-from analysis.ingest.read import MAX_TEXT_RATIO
+from analysis.ingest.read import MAX_TEXT_RATIO, TextBudget, TextGuard
 from analysis.ingest.stream import ingest_files
 from analysis.profile import load_profile
 from server.deps import ApiError, forget_run, get_archive, get_jobs, require_write
@@ -102,8 +105,10 @@ class _Received:
 class _Receiver:
     """Callbacks of the streaming multipart parser: route each part to disk or a text field."""
 
-    def __init__(self, received: _Received) -> None:
+    def __init__(self, received: _Received, text_budget: TextBudget | None = None) -> None:
         self.r = received
+        self.budget = text_budget
+        self.guard: TextGuard | None = None
         self.header_field = b""
         self.header_value = b""
         self.headers: dict[bytes, bytes] = {}
@@ -124,6 +129,7 @@ class _Receiver:
 
     def part_begin(self) -> None:
         self.headers = {}
+        self.guard = None
         self.sink, self.text_name, self.text = None, None, bytearray()
 
     def header_field_data(self, data: bytes, start: int, end: int) -> None:
@@ -156,6 +162,8 @@ class _Receiver:
             if path in self.r.logs:
                 raise ApiError(f"The log file {name!r} was given twice; upload it once.")
             self.r.logs.append(path)
+            if self.budget is not None:
+                self.guard = TextGuard(name, self.budget)
         elif field_name in (MAP_FIELD, PROFILE_FIELD):
             if not name:
                 return
@@ -175,6 +183,8 @@ class _Receiver:
 
     def part_data(self, data: bytes, start: int, end: int) -> None:
         if self.sink is not None:
+            if self.guard is not None:  # line length and decompressed size, as it arrives
+                self.guard.feed(data[start:end])
             self.sink.write(data[start:end])
         elif self.text_name is not None:
             self.text += data[start:end]
@@ -184,6 +194,7 @@ class _Receiver:
                 )
 
     def part_end(self) -> None:
+        self.guard = None
         if self.sink is not None:
             self.sink.close()
             self.sink = None
@@ -218,7 +229,7 @@ async def receive_upload(request: Request, folder: Path) -> _Received:
     if declared and declared.isdigit() and int(declared) > limit:
         raise _too_large(limit)
     received = _Received(folder=folder)
-    receiver = _Receiver(received)
+    receiver = _Receiver(received, TextBudget(MAX_TEXT_RATIO * limit))
     parser = MultipartParser(boundary, receiver.callbacks())
     total = 0
     try:

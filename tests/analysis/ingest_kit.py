@@ -10,6 +10,8 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
+import pytest
+
 DATA = Path(__file__).resolve().parent.parent / "data" / "ingest"
 PROFILE = DATA / "marram2_profile.toml"
 MAP = DATA / "marram2_map.toml"
@@ -88,3 +90,17 @@ roll_deg = {{ signal = "roll", unit = "deg" }}
 speed = {{ signal = "vel_x", unit = "m/s" }}
 {extra}
 """
+
+
+@pytest.fixture()
+def short_runs_allowed(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Let ingest store runs shorter than its 2 s / 10-sample minimum.
+
+    Many ingest and archive tests use logs of a few hundred rows (under 2 s at
+    400 Hz) to check other things; the minimum itself is tested in
+    ``tests/server/test_odd_input.py``, where this fixture is not used.
+    """
+    import analysis.ingest.stream as stream
+
+    monkeypatch.setattr(stream, "MIN_DURATION_S", 0.0)
+    monkeypatch.setattr(stream, "MIN_SAMPLES", 1)

@@ -21,9 +21,9 @@ from tests.reliability.measure import RSS_LIMIT_BYTES, run_cli
 HEADER = b"stamp_us,roll_deg,speed\n"
 
 
-def _gzip_stream(path: Path, head: bytes, filler: bytes, total: int) -> Path:
-    """Write ``head`` then ``total`` bytes of ``filler`` repeated, gzip level 1, in chunks."""
-    comp = zlib.compressobj(1, zlib.DEFLATED, 31)  # wbits 31: gzip wrapper (zlib docs)
+def _gzip_stream(path: Path, head: bytes, filler: bytes, total: int, level: int = 1) -> Path:
+    """Write ``head`` then ``total`` bytes of ``filler`` repeated, gzip, in chunks."""
+    comp = zlib.compressobj(level, zlib.DEFLATED, 31)  # wbits 31: gzip wrapper (zlib docs)
     chunk = filler * ((8 << 20) // len(filler))
     with path.open("wb") as fh:
         fh.write(comp.compress(head))

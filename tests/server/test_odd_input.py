@@ -98,3 +98,18 @@ def test_scrub_paths_keeps_api_paths_and_units():
         "The channel map map_file.toml is bad; DELETE /api/runs/x?confirm=x; "
         "unit m/s; the archive/runs/r1/meta.json cannot be read"
     )
+
+
+@pytest.mark.parametrize(("rows", "words"), [(400, r"lasts 0\.99\d s"), (5, "holds 5 valid")])
+def test_a_run_too_short_to_analyse_is_refused(tmp_path, rows, words):
+    from analysis.archive.store import Archive
+    from analysis.errors import IngestError
+    from analysis.ingest.stream import ingest_files
+    from tests.analysis.ingest_kit import MAP, state_lines, write
+
+    # 400 rows at 400 Hz span 399 x 2.5 ms = 0.9975 s, under the 2 s minimum.
+    archive = Archive(tmp_path / "data")
+    log = write(tmp_path / "s_state.csv", state_lines(rows))
+    with pytest.raises(IngestError, match=words):
+        ingest_files(archive, [log], MAP, PROFILE)
+    assert archive.list_runs() == []
