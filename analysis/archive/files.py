@@ -46,6 +46,38 @@ def write_json(path: Path, data: dict[str, Any]) -> None:
     os.replace(tmp, path)
 
 
+class FrameWriter:
+    """Write a frame to Parquet in parts, as :func:`write_frame` would write it whole.
+
+    For frames of plain columns (numbers, bool, text; no dict/list cells). Each
+    part becomes a row group; every part must have the first part's columns.
+    """
+
+    def __init__(self, path: Path) -> None:
+        self.path = path
+        self._writer: pq.ParquetWriter | None = None
+        self.rows = 0
+
+    def write(self, frame: pd.DataFrame) -> None:
+        """Append the rows of ``frame``."""
+        table = pa.Table.from_pandas(frame, preserve_index=False)
+        if self._writer is None:
+            schema = table.schema.with_metadata(
+                {**(table.schema.metadata or {}), _JSON_COLUMNS_KEY: b"[]"}
+            )
+            self._writer = pq.ParquetWriter(self.path, schema, compression="zstd")
+        table = table.cast(self._writer.schema)
+        self._writer.write_table(table)
+        self.rows += table.num_rows
+
+    def close(self) -> None:
+        """Finish the file (an empty frame's file if nothing was written)."""
+        if self._writer is None:
+            write_frame(pd.DataFrame(), self.path)
+            return
+        self._writer.close()
+
+
 def write_frame(frame: pd.DataFrame, path: Path) -> None:
     """DataFrame to Parquet; object columns of dicts/lists are stored as JSON text."""
     frame = frame.copy()

@@ -455,11 +455,14 @@ class Archive:
         self,
         run_id: str,
         events: pd.DataFrame,
-        series: pd.DataFrame,
+        series: pd.DataFrame | Path,
         summary: dict[str, Any],
         overview: RunOverview | None = None,
     ) -> None:
         """Store analysis results, replacing the previous ones atomically.
+
+        ``series`` is the derived-series frame, or the path of a Parquet file of it
+        already written (see ``analysis.archive.files.FrameWriter``), moved in.
 
         ``overview`` (the whole-run chart overview built from the run's frame and
         these ``series``) replaces the stored one right after the results; when
@@ -471,7 +474,10 @@ class Archive:
             new = staging / "results"
             new.mkdir()
             write_frame(events, new / "events.parquet")
-            write_frame(series, new / "series.parquet")
+            if isinstance(series, Path):  # written in parts beforehand (a chunked analysis)
+                shutil.move(series, new / "series.parquet")
+            else:
+                write_frame(series, new / "series.parquet")
             write_json(new / "summary.json", summary)
             if overview is not None:
                 stamp = overview_fingerprint(self, run_id, series_path=new / "series.parquet")
