@@ -70,7 +70,7 @@ FrameLoader = Callable[[float, float], pd.DataFrame]
 SeriesSink = Callable[[pd.DataFrame], None]
 
 
-class NotChunkable(Exception):
+class NotChunkableError(Exception):
     """The chunks disagree on what can run; analyse the run whole. Says why."""
 
 
@@ -366,7 +366,7 @@ def analyse_in_chunks(
 
     Raises
     ------
-    NotChunkable
+    NotChunkableError
         When chunks disagree on which detectors or methods could run.
     """
     t_first, t_last = float(t_all[0]), float(t_all[-1])
@@ -405,7 +405,7 @@ def analyse_in_chunks(
         if prev_cut_seen is not None and any(
             e.start_s - guard <= prev_cut_seen <= e.end_s + guard for e in res.events
         ):
-            raise NotChunkable(
+            raise NotChunkableError(
                 f"an event crosses the chunk boundary at t = {prev_cut_seen:.2f} s in one chunk "
                 f"but not in the other"
             )
@@ -421,10 +421,12 @@ def analyse_in_chunks(
             first_sig, skipped, columns = sig, list(res.skipped), list(res.series.columns)
             unknown = set(res.kpis) - KNOWN
             if unknown:
-                raise NotChunkable(f"no chunked KPIs for detector(s) {', '.join(sorted(unknown))}")
+                raise NotChunkableError(
+                    f"no chunked KPIs for detector(s) {', '.join(sorted(unknown))}"
+                )
             kpis_acc = ChunkKpis(profile, th, t_first, res.kpis)
         elif sig[:2] != first_sig[:2] or _methods(res.kpis) != _methods(kpis_acc.first_kpis):  # type: ignore[union-attr]
-            raise NotChunkable(
+            raise NotChunkableError(
                 f"the chunk from t = {core_lo:.1f} s ran other detectors or methods than the first"
             )
         for name, lines in res.notes.items():

@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from analysis import __version__, catalogue
+from analysis.archive.files import FrameWriter
 from analysis.archive.fleet import (
     delete_fleet_rows,
     fleet_run_ids,
@@ -27,9 +28,8 @@ from analysis.archive.fleet import (
     results_stamp,
     write_fleet_rows,
 )
-from analysis.archive.files import FrameWriter
 from analysis.detect.balance import detect_balance
-from analysis.detect.chunked import CHUNK_S, NotChunkable, analyse_in_chunks
+from analysis.detect.chunked import CHUNK_S, NotChunkableError, analyse_in_chunks
 from analysis.detect.limits import headline_kpis
 from analysis.detect.roll import detect_roll_tracking
 from analysis.detect.saturation import detect_saturation
@@ -249,7 +249,7 @@ def analyse_run(
     if span > 2.0 * size:
         try:
             return _analyse_run_chunked(archive, run_id, profile, thresholds, progress, t_all, size)
-        except NotChunkable as why:
+        except NotChunkableError as why:
             fallback = (
                 f"Analysed as one whole-run pass instead of in time chunks: {why}. This needs "
                 f"memory in proportion to the run's length."

@@ -29,6 +29,7 @@ from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pyarrow as pa
@@ -41,6 +42,8 @@ from analysis.errors import IngestError
 
 #: Bytes of text parsed at once (before decompression for gzip this is the text size).
 BLOCK_BYTES = 32 << 20
+#: Block size of pyarrow's CSV parser inside one of those blocks (parsed in parallel). [B]
+PARSE_BLOCK = 8 << 20
 #: Rows per batch read from Parquet input.
 PARQUET_BATCH_ROWS = 1 << 18
 #: Bytes read to find the header and guess types.
@@ -305,27 +308,56 @@ def _iter_text_blocks(
     info: FileInfo, tick: Callable[[int], None] | None
 ) -> Iterator[tuple[bytes, int]]:
     """Yield (block of whole lines, 1-based line number of its first line)."""
+    for block, first, _ in _iter_counted_blocks(info, tick):
+        yield bytes(block), first
+
+
+def _iter_counted_blocks(
+    info: FileInfo, tick: Callable[[int], None] | None, hasher: Any = None
+) -> Iterator[tuple[bytes | memoryview, int, int]]:
+    """Yield (block of whole lines, line number of its first line, newlines in it).
+
+    One pass over the bytes: the newlines of each block are counted once, here;
+    a block is a view into the bytes read (no copy), except for the one line
+    that straddles two reads, which comes as a block of its own. With ``hasher``
+    (a ``hashlib`` object, uncompressed files only) every byte of the file is
+    fed to it as it is read.
+    """
+    if hasher is not None and info.compression:
+        raise ValueError("hash while reading applies to uncompressed files only")
     raw, stream = _open_text(info.path, info.compression)
     try:
         skipped = stream.read(info.data_offset)
+        if hasher is not None:
+            hasher.update(skipped)
         line_no = skipped.count(b"\n") + 1
         carry = b""
         while True:
             chunk = stream.read(BLOCK_BYTES)
+            if hasher is not None:
+                hasher.update(chunk)
             if tick is not None:
                 tick(raw.tell())
             if not chunk:
                 if carry:
-                    yield carry, line_no
+                    yield carry, line_no, carry.count(b"\n")
                 return
-            data = carry + chunk
-            end = data.rfind(b"\n")
-            if end < 0:
-                carry = data
+            first = chunk.find(b"\n")
+            if first < 0:
+                carry += chunk
                 continue
-            block, carry = data[: end + 1], data[end + 1 :]
-            yield block, line_no
-            line_no += block.count(b"\n")
+            last = chunk.rfind(b"\n")
+            if carry:  # the line begun in the previous read
+                head = carry + chunk[: first + 1]
+                yield head, line_no, 1
+                line_no += 1
+            else:
+                first = -1
+            newlines = chunk.count(b"\n", first + 1, last + 1)
+            if newlines:
+                yield memoryview(chunk)[first + 1 : last + 1], line_no, newlines
+                line_no += newlines
+            carry = chunk[last + 1 :]
     finally:
         stream.close()
         raw.close()
@@ -374,6 +406,7 @@ def iter_csv(
     required: str,
     bad: BadLines,
     tick: Callable[[int], None] | None = None,
+    hasher: Any = None,
 ) -> Iterator[pa.Table]:
     """Yield the rows of a CSV file as tables with ``types``, skipping bad lines.
 
@@ -389,9 +422,11 @@ def iter_csv(
         Receives the skipped lines and the count of data lines.
     tick : callable, optional
         Called with the bytes of the file read so far.
+    hasher : hashlib object, optional
+        Fed every byte of the file as it is read (uncompressed files only).
     """
     ncols = len(info.columns)
-    read_opts = pacsv.ReadOptions(column_names=info.columns, block_size=8 << 20)
+    read_opts = pacsv.ReadOptions(column_names=info.columns, block_size=PARSE_BLOCK)
     parse_opts = pacsv.ParseOptions(delimiter=info.delimiter)
     typed_opts = pacsv.ConvertOptions(column_types=types, include_columns=list(types))
     text_opts = pacsv.ConvertOptions(
@@ -399,12 +434,12 @@ def iter_csv(
         include_columns=list(types),
         strings_can_be_null=True,
     )
-    for block, first in _iter_text_blocks(info, tick):
-        n_lines = block.count(b"\n") + (0 if block.endswith(b"\n") else 1)
+    for view, first, newlines in _iter_counted_blocks(info, tick, hasher):
+        n_lines = newlines + (0 if view[-1:] == b"\n" else 1)
         try:
             table = pacsv.read_csv(
-                io.BytesIO(block), read_options=read_opts, parse_options=parse_opts,
-                convert_options=typed_opts,
+                pa.BufferReader(pa.py_buffer(view)), read_options=read_opts,
+                parse_options=parse_opts, convert_options=typed_opts,
             )  # fmt: skip
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
             table = None
@@ -414,6 +449,7 @@ def iter_csv(
                 bad.total += n_lines
                 yield table
                 continue
+        block = bytes(view)  # the slow path: bad lines to find
         buf, starts, ends, valid, ignorable, fields, numbers = _line_table(
             block, info.delimiter, ncols, first
         )

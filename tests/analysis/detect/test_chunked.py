@@ -80,7 +80,11 @@ def _awkward_chunk(frame, events, margin):
     """A chunk length whose first window ends inside the longest event that allows it."""
     t0, t1 = float(frame[cat.T].iloc[0]), float(frame[cat.T].iloc[-1])
     mid = [0.5 * (e.start_s + e.end_s) for e in events]
-    fit = [(e.duration_s, m) for e, m in zip(events, mid, strict=True) if t0 + 2 * margin < m < t1 - margin - 1]
+    fit = [
+        (e.duration_s, m)
+        for e, m in zip(events, mid, strict=True)
+        if t0 + 2 * margin < m < t1 - margin - 1
+    ]
     return max(fit)[1] - t0 - margin
 
 
