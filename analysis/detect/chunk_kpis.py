@@ -46,7 +46,9 @@ class _Extreme:
     t_s: float = float("nan")
     extra: float = float("nan")
 
-    def offer(self, value: float, t_s: float, extra: float = float("nan"), lower: bool = False):
+    def offer(
+        self, value: float, t_s: float, extra: float = float("nan"), lower: bool = False
+    ) -> None:
         if not np.isfinite(value):
             return
         if not np.isfinite(self.value) or (value < self.value if lower else value > self.value):
@@ -116,7 +118,14 @@ class ChunkKpis:
             getattr(self, f"_add_{name}")(t, frame, series, events, own)
 
     # --- saturation ------------------------------------------------------------------
-    def _add_saturation(self, t, frame, series, events, own) -> None:
+    def _add_saturation(
+        self,
+        t: np.ndarray,
+        frame: pd.DataFrame,
+        series: pd.DataFrame,
+        events: list[Event],
+        own: slice,
+    ) -> None:
         for act in self.profile.actuators:
             kp = self.first_kpis["saturation"].get(act.name)
             if kp is None:
@@ -163,7 +172,14 @@ class ChunkKpis:
         return out
 
     # --- slip ------------------------------------------------------------------------
-    def _add_slip(self, t, frame, series, events, own) -> None:
+    def _add_slip(
+        self,
+        t: np.ndarray,
+        frame: pd.DataFrame,
+        series: pd.DataFrame,
+        events: list[Event],
+        own: slice,
+    ) -> None:
         for act in self.profile.wheels().values():
             name = f"{act.name}.{cat.SLIP_SPEED}"
             if name not in series:
@@ -208,7 +224,14 @@ class ChunkKpis:
         return out
 
     # --- tip -------------------------------------------------------------------------
-    def _add_tip(self, t, frame, series, events, own) -> None:
+    def _add_tip(
+        self,
+        t: np.ndarray,
+        frame: pd.DataFrame,
+        series: pd.DataFrame,
+        events: list[Event],
+        own: slice,
+    ) -> None:
         margin = series[cat.TIP_MARGIN].to_numpy(dtype=float)
         y_zmp = series[cat.ZMP_Y].to_numpy(dtype=float)
         valid = np.isfinite(margin)
@@ -258,7 +281,14 @@ class ChunkKpis:
         }
 
     # --- roll ------------------------------------------------------------------------
-    def _add_roll(self, t, frame, series, events, own) -> None:
+    def _add_roll(
+        self,
+        t: np.ndarray,
+        frame: pd.DataFrame,
+        series: pd.DataFrame,
+        events: list[Event],
+        own: slice,
+    ) -> None:
         e = series[cat.ROLL_ERROR].to_numpy(dtype=float)
         valid = np.isfinite(e)
         band = float(self.th.roll_band)
@@ -297,7 +327,14 @@ class ChunkKpis:
         }
 
     # --- balance ---------------------------------------------------------------------
-    def _add_balance(self, t, frame, series, events, own) -> None:
+    def _add_balance(
+        self,
+        t: np.ndarray,
+        frame: pd.DataFrame,
+        series: pd.DataFrame,
+        events: list[Event],
+        own: slice,
+    ) -> None:
         pitch = column(frame, cat.PITCH)
         if pitch is None:
             return

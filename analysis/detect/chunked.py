@@ -27,8 +27,9 @@ detector runs unchanged on each chunk, and the results are stitched:
   settled parts; the next chunk checks that it too is quiet at the cut, and a
   disagreement makes the analysis fall back to one whole-run pass.
 * **KPIs** are rebuilt from sums over the cores (:mod:`analysis.detect.chunk_kpis`);
-  the roll lag (a cross-correlation over the whole run) and the 1st percentile
-  of the tip margin read those one or two columns of the whole run.
+  the roll lag (a cross-correlation over the whole run) from sums over chunks of
+  roll and its reference (:mod:`analysis.detect.chunk_lag`); the 1st percentile of
+  the tip margin keeps the margin's logged values (8 bytes per sample).
 * **Overview.** The chart overview's per-bucket extremes and break points are
   gathered chunk by chunk (:class:`OverviewBuilder`), the same as
   :func:`analysis.overview.build_overview` on the whole run.
@@ -52,9 +53,10 @@ import pandas as pd
 
 from analysis import catalogue as cat
 from analysis.detect.chunk_kpis import KNOWN, ChunkKpis
+from analysis.detect.chunk_lag import lag_in_chunks
 from analysis.detect.tipover import F_Z_MIN
 from analysis.events import GAP_FACTOR, Event, run_median_period
-from analysis.metrics import FILTER_ORDER, lag_by_xcorr
+from analysis.metrics import FILTER_ORDER
 from analysis.overview import OVERVIEW_BUCKETS, RunOverview, SignalOverview, _as_float
 from analysis.profile import RobotProfile, Thresholds
 
@@ -341,7 +343,7 @@ def analyse_in_chunks(
     analyse: Callable[[pd.DataFrame], Any],
     sink: SeriesSink,
     *,
-    load_columns: Callable[[list[str]], pd.DataFrame],
+    load_columns: Callable[[list[str], float, float], pd.DataFrame],
     chunk_s: float = CHUNK_S,
     progress: Callable[[float, str], None] | None = None,
 ) -> ChunkedAnalysis:
@@ -360,7 +362,8 @@ def analyse_in_chunks(
     sink : callable
         Receives each core's derived series (column ``t`` first), in time order.
     load_columns : callable
-        ``load_columns(names)``: those columns of the whole run (for the roll lag).
+        ``load_columns(names, t0, t1)``: column ``t`` and those columns between two
+        times, inclusive (for the roll lag, :mod:`analysis.detect.chunk_lag`). [s]
     chunk_s : float
         Core length of a chunk. [s]
 
@@ -370,7 +373,10 @@ def analyse_in_chunks(
         When chunks disagree on which detectors or methods could run.
     """
     t_first, t_last = float(t_all[0]), float(t_all[-1])
-    median_dt = float(np.median(np.diff(t_all))) if t_all.size > 1 else float("nan")
+    # np.median(np.diff(t)) as in analysis.events.median_period, without a third copy
+    median_dt = (
+        float(np.median(np.diff(t_all), overwrite_input=True)) if t_all.size > 1 else float("nan")
+    )
     margin = chunk_margin_s(th)
     guard = th.merge_gap_s + 2.0 * (median_dt if np.isfinite(median_dt) else 0.0)
     overview = OverviewBuilder(t_first, t_last, median_dt)
@@ -384,6 +390,7 @@ def analyse_in_chunks(
     prev_cut_seen: float | None = None
     chunks = 0
     windows: list[tuple[float, float, float]] = []
+    spans: dict[str, tuple[float, float]] = {}  # first and last logged time of ref and roll
     grow = 1.0
     while True:
         nominal = core_lo + chunk_s * grow
@@ -443,6 +450,13 @@ def analyse_in_chunks(
         core_series = res.series.iloc[a:stop].reset_index(drop=True)
         kpis_acc.add(core_frame, core_series, events, closing)  # type: ignore[union-attr]
         own_frame, own_series = core_frame.iloc[: b - a], core_series.iloc[: b - a]
+        for name in (cat.ROLL_REF, cat.ROLL):
+            if name in own_frame:
+                ok = own_frame[name].notna().to_numpy()
+                if ok.any():
+                    tt = own_frame[cat.T].to_numpy(dtype=float)[ok]
+                    lo_v, hi_v = spans.get(name, (float(tt[0]), float(tt[-1])))
+                    spans[name] = (min(lo_v, float(tt[0])), max(hi_v, float(tt[-1])))
         sink(own_series)
         overview.add(own_frame, "frame")
         if chunks == 0:
@@ -459,7 +473,17 @@ def analyse_in_chunks(
     assert kpis_acc is not None
     events.sort(key=lambda e: (e.start_s, e.kind, e.channel or ""))
     kpis = kpis_acc.finish(events)
-    _whole_run_notes(notes, kpis_acc, kpis, load_columns, th)
+    _whole_run_notes(notes, kpis_acc, kpis, th)
+    if "roll" in kpis and kpis["roll"].get("rms") is not None:
+
+        def read(t0: float, t1: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+            cols = load_columns([cat.ROLL_REF, cat.ROLL], t0, t1)
+            return tuple(cols[n].to_numpy(dtype=float) for n in (cat.T, cat.ROLL_REF, cat.ROLL))  # type: ignore[return-value]
+
+        nan = (float("nan"), float("nan"))
+        span = (*spans.get(cat.ROLL_REF, nan), *spans.get(cat.ROLL, nan))
+        lag = lag_in_chunks(read, t_all, lambda: span, th.roll_lag_max_s, 4 * chunk_s, median_dt)
+        _roll_lag(notes, kpis["roll"], lag, th)
     return ChunkedAnalysis(
         events,
         kpis,
@@ -474,7 +498,7 @@ def analyse_in_chunks(
 
 def _methods(kpis: dict[str, Any]) -> tuple[Any, ...]:
     """The method each detector (and actuator) used, to compare chunks."""
-    out = []
+    out: list[tuple[Any, ...]] = []
     for name, k in sorted(kpis.items()):
         if not isinstance(k, dict):
             continue
@@ -484,13 +508,9 @@ def _methods(kpis: dict[str, Any]) -> tuple[Any, ...]:
 
 
 def _whole_run_notes(
-    notes: dict[str, list[str]],
-    acc: ChunkKpis,
-    kpis: dict[str, Any],
-    load_columns: Callable[[list[str]], pd.DataFrame],
-    th: Thresholds,
+    notes: dict[str, list[str]], acc: ChunkKpis, kpis: dict[str, Any], th: Thresholds
 ) -> None:
-    """Whole-run KPIs and notes that a chunk cannot give: roll lag, counts in notes."""
+    """Notes whose counts a chunk cannot give."""
     if "tip" in notes:
         lines = [n for n in notes["tip"] if not _COUNT_NOTE.match(n)]
         if acc.unsupported_samples:
@@ -511,16 +531,10 @@ def _whole_run_notes(
                     seen_filter = True
                 kept.append(n)
             notes[name] = kept
-    if "roll" not in kpis or kpis["roll"].get("rms") is None:
-        return
-    cols = load_columns([cat.ROLL_REF, cat.ROLL])
-    lag = lag_by_xcorr(
-        cols[cat.T].to_numpy(dtype=float),
-        cols[cat.ROLL_REF].to_numpy(dtype=float),
-        cols[cat.ROLL].to_numpy(dtype=float),
-        th.roll_lag_max_s,
-    )
-    del cols
+
+
+def _roll_lag(notes: dict[str, list[str]], roll: dict[str, Any], lag: Any, th: Thresholds) -> None:
+    """Put the whole run's roll lag in the roll KPIs and notes, as the detector words it."""
     lines = [n for n in notes.get("roll", []) if not n.startswith(_LAG_NOTE)]
     if lag.reason:
         lines.append(f"Roll lag not estimated: {lag.reason}.")
@@ -530,7 +544,6 @@ def _whole_run_notes(
             f"be larger; raise roll_lag_max_s to search further."
         )
     notes["roll"] = lines
-    roll = kpis["roll"]
     roll["lag_s"] = None if not np.isfinite(lag.lag_s) else lag.lag_s
     roll["lag_correlation"] = None if not np.isfinite(lag.correlation) else lag.correlation
     roll["lag_at_bound"] = lag.at_bound

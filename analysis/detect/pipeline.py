@@ -291,7 +291,9 @@ def _analyse_run_chunked(
             th,
             lambda frame: analyse_frame(frame, profile, th),
             writer.write,
-            load_columns=lambda names: archive.load_frame(run_id, columns=names),
+            load_columns=lambda names, t0, t1: archive.load_frame(
+                run_id, columns=names, t0=t0, t1=t1
+            ),
             chunk_s=chunk_s,
             progress=progress,
         )
