@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from analysis.profile import Actuator, ComModel, MotorConstants, RobotProfile, Thresholds
@@ -46,6 +47,62 @@ def write_json(path: Path, data: dict[str, Any]) -> None:
     os.replace(tmp, path)
 
 
+class RowGroupCache:
+    """Decoded row groups of Parquet files, for reading successive time windows.
+
+    A chunked analysis reads a run window after window; Parquet is decoded a
+    whole row group (about 1M rows) at a time, so each window would decode its
+    row groups again. This keeps the row groups of the last window of each file
+    (and of the column set asked for) and decodes each row group once when the
+    windows move forward. Rows come out exactly as ``pyarrow.parquet.read_table``
+    with the same ``t`` filters gives them.
+    """
+
+    def __init__(self) -> None:
+        self._files: dict[str, pq.ParquetFile] = {}
+        self._spans: dict[str, list[tuple[float, float]]] = {}
+        self._held: dict[str, dict[tuple[int, tuple[str, ...]], pa.Table]] = {}
+
+    def read(self, path: Path, columns: list[str], lo: float | None, hi: float | None) -> pa.Table:
+        """Rows of ``path`` with ``lo <= t <= hi`` (either bound optional), given columns."""
+        key = str(path)
+        pf = self._files.get(key)
+        if pf is None:
+            pf = self._files[key] = pq.ParquetFile(path)
+            spans = []
+            t_index = pf.schema_arrow.get_field_index("t")
+            for i in range(pf.num_row_groups):
+                st = pf.metadata.row_group(i).column(t_index).statistics
+                spans.append((float(st.min), float(st.max)) if st is not None and st.has_min_max
+                             else (-math.inf, math.inf))  # fmt: skip
+            self._spans[key] = spans
+        wanted = [
+            i
+            for i, (a, b) in enumerate(self._spans[key])
+            if (lo is None or b >= lo) and (hi is None or a <= hi)
+        ]
+        cols = tuple(columns)
+        held = self._held.get(key, {})
+        tables = [
+            tab
+            if (tab := held.get((i, cols))) is not None
+            else pf.read_row_group(i, columns=list(cols))
+            for i in wanted
+        ]
+        self._held[key] = {(i, cols): tab for i, tab in zip(wanted, tables, strict=True)}
+        if not tables:
+            return pf.schema_arrow.empty_table().select(list(cols))
+        table = pa.concat_tables(tables)
+        t = table.column("t")
+        mask = None
+        if lo is not None:
+            mask = pc.greater_equal(t, lo)
+        if hi is not None:
+            upper = pc.less_equal(t, hi)
+            mask = upper if mask is None else pc.and_(mask, upper)
+        return table if mask is None else table.filter(mask)
+
+
 class FrameWriter:
     """Write a frame to Parquet in parts, as :func:`write_frame` would write it whole.
 
@@ -65,7 +122,11 @@ class FrameWriter:
             schema = table.schema.with_metadata(
                 {**(table.schema.metadata or {}), _JSON_COLUMNS_KEY: b"[]"}
             )
-            self._writer = pq.ParquetWriter(self.path, schema, compression="zstd")
+            # derived series are noisy floats: a dictionary would cost time for nothing
+            dictionary = [f.name for f in schema if not pa.types.is_floating(f.type)]
+            self._writer = pq.ParquetWriter(
+                self.path, schema, compression="zstd", use_dictionary=dictionary
+            )
         table = table.cast(self._writer.schema)
         self._writer.write_table(table)
         self.rows += table.num_rows

@@ -37,6 +37,7 @@ import pyarrow.parquet as pq
 
 from analysis import catalogue
 from analysis.archive.files import (
+    RowGroupCache,
     asof_indices,
     profile_from_si,
     read_frame,
@@ -389,6 +390,7 @@ class Archive:
         columns: list[str] | None = None,
         t0: float | None = None,
         t1: float | None = None,
+        cache: RowGroupCache | None = None,
     ) -> pd.DataFrame:
         """The run as one frame on the time base of its fastest state stream.
 
@@ -401,6 +403,8 @@ class Archive:
             Names the run does not hold are left out, so check ``in frame``.
         t0, t1 : float, optional
             Time window, inclusive. [s]
+        cache : RowGroupCache, optional
+            Keeps decoded row groups between calls that read successive windows.
 
         Returns
         -------
@@ -425,6 +429,9 @@ class Archive:
                 filters.append((catalogue.T, ">=", lo))
             if t1 is not None:
                 filters.append((catalogue.T, "<=", t1))
+            if cache is not None:
+                path = run_dir / info[stream]["path"]
+                return cache.read(path, [catalogue.T, *dict.fromkeys(cols)], lo, t1)
             return pq.read_table(
                 run_dir / info[stream]["path"],
                 columns=[catalogue.T, *dict.fromkeys(cols)],

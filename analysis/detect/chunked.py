@@ -309,7 +309,10 @@ def _first_extremes(y: np.ndarray, bucket: np.ndarray) -> np.ndarray:
         np.not_equal(seg[1:], seg[:-1], out=keep[1:])
         return pos[keep]
 
-    return np.union1d(first(np.flatnonzero(y == lo)), first(np.flatnonzero(y == hi)))
+    keep = np.zeros(y.size, dtype=bool)  # the union of two sorted index sets, in order
+    keep[first(np.flatnonzero(y == lo))] = True
+    keep[first(np.flatnonzero(y == hi))] = True
+    return np.flatnonzero(keep)
 
 
 # --- the chunked pass -----------------------------------------------------------------

@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from analysis import __version__, catalogue
-from analysis.archive.files import FrameWriter
+from analysis.archive.files import FrameWriter, RowGroupCache
 from analysis.archive.fleet import (
     delete_fleet_rows,
     fleet_run_ids,
@@ -284,8 +284,9 @@ def _analyse_run_chunked(
     try:
         path = staging / "series.parquet"
         writer = FrameWriter(path)
+        cache = RowGroupCache()  # each row group decoded once as the chunks move on
         done = analyse_in_chunks(
-            lambda t0, t1: archive.load_frame(run_id, t0=t0, t1=t1),
+            lambda t0, t1: archive.load_frame(run_id, t0=t0, t1=t1, cache=cache),
             t_all,
             profile,
             th,
