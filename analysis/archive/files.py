@@ -48,51 +48,61 @@ def write_json(path: Path, data: dict[str, Any]) -> None:
 
 
 class RowGroupCache:
-    """Decoded row groups of Parquet files, for reading successive time windows.
+    """Forward reader of Parquet files for successive time windows of a run.
 
-    A chunked analysis reads a run window after window; Parquet is decoded a
-    whole row group (about 1M rows) at a time, so each window would decode its
-    row groups again. This keeps the row groups of the last window of each file
-    (and of the column set asked for) and decodes each row group once when the
-    windows move forward. Rows come out exactly as ``pyarrow.parquet.read_table``
-    with the same ``t`` filters gives them.
+    A chunked analysis reads a run window after window, each starting later than
+    the one before. Reading each window with ``pyarrow.parquet.read_table`` decodes
+    whole row groups (about 1M rows) again and again, and holds them; this reads
+    each file once, in batches, and holds only the batches of the current window.
+    A window that starts before the batches held (or other columns) starts the
+    file over. Rows come out exactly as ``read_table`` with the same ``t`` filters
+    gives them.
     """
 
+    #: Rows per decoded batch. [-]
+    BATCH_ROWS = 1 << 16
+
     def __init__(self) -> None:
-        self._files: dict[str, pq.ParquetFile] = {}
-        self._spans: dict[str, list[tuple[float, float]]] = {}
-        self._held: dict[str, dict[tuple[int, tuple[str, ...]], pa.Table]] = {}
+        self._state: dict[str, tuple[tuple[str, ...], Any, list[pa.RecordBatch], bool]] = {}
+        self._dropped: dict[str, float] = {}  # last time of the batches let go, per file [s]
 
     def read(self, path: Path, columns: list[str], lo: float | None, hi: float | None) -> pa.Table:
         """Rows of ``path`` with ``lo <= t <= hi`` (either bound optional), given columns."""
-        key = str(path)
-        pf = self._files.get(key)
-        if pf is None:
-            pf = self._files[key] = pq.ParquetFile(path)
-            spans = []
-            t_index = pf.schema_arrow.get_field_index("t")
-            for i in range(pf.num_row_groups):
-                st = pf.metadata.row_group(i).column(t_index).statistics
-                spans.append((float(st.min), float(st.max)) if st is not None and st.has_min_max
-                             else (-math.inf, math.inf))  # fmt: skip
-            self._spans[key] = spans
-        wanted = [
-            i
-            for i, (a, b) in enumerate(self._spans[key])
-            if (lo is None or b >= lo) and (hi is None or a <= hi)
-        ]
-        cols = tuple(columns)
-        held = self._held.get(key, {})
-        tables = [
-            tab
-            if (tab := held.get((i, cols))) is not None
-            else pf.read_row_group(i, columns=list(cols))
-            for i in wanted
-        ]
-        self._held[key] = {(i, cols): tab for i, tab in zip(wanted, tables, strict=True)}
-        if not tables:
-            return pf.schema_arrow.empty_table().select(list(cols))
-        table = pa.concat_tables(tables)
+        key, cols = str(path), tuple(columns)
+        state = self._state.get(key)
+        held: list[pa.RecordBatch]
+        if (
+            state is None
+            or state[0] != cols
+            or (lo is not None and state[2] and _first_t(state[2][0]) > lo)
+        ):
+            pf = pq.ParquetFile(path)
+            batches = pf.iter_batches(batch_size=self.BATCH_ROWS, columns=list(cols))
+            held, done, schema = [], False, pf.schema_arrow
+            self._dropped[key] = -math.inf
+        else:
+            _, batches, held, done = state
+            schema = None
+        if lo is not None:  # drop the batches that end before the window
+            while held and _last_t(held[0]) < lo:
+                self._dropped[key] = _last_t(held.pop(0))
+        while not done and (hi is None or not held or _last_t(held[-1]) <= hi):
+            batch = next(batches, None)
+            if batch is None:
+                done = True
+                break
+            if not batch.num_rows:
+                continue
+            if lo is None or _last_t(batch) >= lo:
+                held.append(batch)
+            else:
+                self._dropped[key] = _last_t(batch)
+        self._state[key] = (cols, batches, held, done)
+        if not held:
+            if schema is None:
+                schema = pq.ParquetFile(path).schema_arrow
+            return schema.empty_table().select(list(cols))
+        table = pa.Table.from_batches(held)
         t = table.column("t")
         mask = None
         if lo is not None:
@@ -101,6 +111,14 @@ class RowGroupCache:
             upper = pc.less_equal(t, hi)
             mask = upper if mask is None else pc.and_(mask, upper)
         return table if mask is None else table.filter(mask)
+
+
+def _first_t(batch: pa.RecordBatch) -> float:
+    return float(batch.column(0)[0].as_py())
+
+
+def _last_t(batch: pa.RecordBatch) -> float:
+    return float(batch.column(0)[batch.num_rows - 1].as_py())
 
 
 class FrameWriter:

@@ -232,3 +232,24 @@ def test_roll_lag_in_chunks_equals_one_pass(jitter):
     assert part.lag_s == pytest.approx(whole.lag_s, rel=KPI_REL)
     assert part.correlation == pytest.approx(whole.correlation, rel=KPI_REL)
     assert part.at_bound == whole.at_bound
+
+
+def test_row_group_cache_reads_as_read_table(tmp_path):
+    # Reference: pyarrow.parquet.read_table with the same t filters.
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from analysis.archive.files import RowGroupCache
+
+    n = 300_000
+    t = np.arange(n) * 0.0025
+    path = tmp_path / "s.parquet"
+    pq.write_table(pa.table({"t": t, "x": np.sin(t)}), path, row_group_size=70_000)
+    cache = RowGroupCache()
+    # forward windows, a grown window, one going back, open bounds
+    for lo, hi in [(10.0, 100.0), (90.0, 250.0), (90.0, 400.0), (380.0, 749.0), (5.0, 20.0),
+                   (None, 3.0), (700.0, None)]:  # fmt: skip
+        filters = [f for f in (("t", ">=", lo), ("t", "<=", hi)) if f[2] is not None]
+        ref = pq.read_table(path, filters=filters or None)
+        got = cache.read(path, ["t", "x"], lo, hi)
+        assert got.equals(ref.select(["t", "x"])), (lo, hi)
