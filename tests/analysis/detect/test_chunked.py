@@ -253,3 +253,15 @@ def test_row_group_cache_reads_as_read_table(tmp_path):
         ref = pq.read_table(path, filters=filters or None)
         got = cache.read(path, ["t", "x"], lo, hi)
         assert got.equals(ref.select(["t", "x"])), (lo, hi)
+
+
+def test_a_chunk_that_runs_other_detectors_is_refused(demo_frames):
+    # The roll reference missing for a whole chunk: the roll detector is "not run"
+    # there but runs elsewhere, which no chunked pass can stitch into a whole-run one.
+    profile, cases = demo_frames
+    frame = cases[1][0].copy()
+    t = frame[cat.T].to_numpy()
+    assert t[-1] > 80.0  # room for a whole chunk window (17.3 s + 2 margins) inside the hole
+    frame.loc[(t > 12.0) & (t < t[-1] - 12.0), cat.ROLL_REF] = np.nan
+    with pytest.raises(chunked.NotChunkableError, match="other detectors or methods"):
+        _chunked(frame, profile, 17.3)
