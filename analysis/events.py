@@ -13,6 +13,9 @@ The work is vectorised: loops run over intervals, never over samples.
 from __future__ import annotations
 
 import json
+from collections.abc import Iterator
+from contextlib import contextmanager
+from contextvars import ContextVar
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -97,6 +100,40 @@ class DetectorResult:
     skipped: str | None = None
 
 
+#: The run's median sample interval while a part of the run is analysed on its own
+#: (see :func:`run_median_period`); None outside such an analysis.
+_RUN_MEDIAN_PERIOD: ContextVar[float | None] = ContextVar("run_median_period", default=None)
+
+
+@contextmanager
+def run_median_period(period_s: float) -> Iterator[None]:
+    """Within the block, :func:`median_period` returns ``period_s`` for any time axis.
+
+    An analysis in time chunks (:mod:`analysis.detect.chunked`) sets the median
+    sample interval of the whole run here, so that every gap rule and filter
+    sample rate in a chunk is the one a whole-run pass uses. [s]
+    """
+    token = _RUN_MEDIAN_PERIOD.set(float(period_s))
+    try:
+        yield
+    finally:
+        _RUN_MEDIAN_PERIOD.reset(token)
+
+
+def median_period(t: np.ndarray) -> float:
+    """Median sample interval of ``t`` (the run's, inside :func:`run_median_period`). [s]
+
+    NaN for fewer than two samples.
+    """
+    fixed = _RUN_MEDIAN_PERIOD.get()
+    if fixed is not None:
+        return fixed
+    t = np.asarray(t, dtype=float)
+    if t.size < 2:
+        return float("nan")
+    return float(np.median(np.diff(t)))
+
+
 def data_gaps(t: np.ndarray, factor: float = GAP_FACTOR) -> np.ndarray:
     """Mark sample intervals that are data gaps.
 
@@ -116,8 +153,8 @@ def data_gaps(t: np.ndarray, factor: float = GAP_FACTOR) -> np.ndarray:
     if t.size < 2:
         return np.zeros(0, dtype=bool)
     dt = np.diff(t)
-    med = float(np.median(dt))
-    if med <= 0:
+    med = median_period(t)
+    if not med > 0:
         return np.zeros(dt.size, dtype=bool)
     return dt > factor * med
 

@@ -23,7 +23,7 @@ import numpy as np
 from scipy import fft as sp_fft
 from scipy import signal as sps
 
-from analysis.events import GAP_FACTOR, data_gaps
+from analysis.events import GAP_FACTOR, data_gaps, median_period
 
 #: Order of each pass of the Butterworth low-pass; run forward and backward the
 #: magnitude is |H|^2, i.e. -6 dB at the cut-off (scipy.signal.sosfiltfilt).
@@ -280,7 +280,7 @@ def _uniform(t: np.ndarray, x: np.ndarray, grid: np.ndarray) -> tuple[np.ndarray
         return np.zeros(grid.size), np.zeros(grid.size, dtype=bool)
     values = np.interp(grid, tv, xv)
     # Intervals between valid samples longer than GAP_FACTOR median periods are holes.
-    med = float(np.median(np.diff(t)))
+    med = median_period(t)
     hole = np.diff(tv) > GAP_FACTOR * med
     inside = (grid >= tv[0]) & (grid <= tv[-1])
     if hole.any():
@@ -340,7 +340,7 @@ def lag_by_xcorr(t: np.ndarray, ref: np.ndarray, y: np.ndarray, max_lag_s: float
     y = np.asarray(y, dtype=float)
     if t.size < 4:
         return LagEstimate(float("nan"), float("nan"), False, f"only {t.size} samples")
-    dt = float(np.median(np.diff(t)))
+    dt = median_period(t)
     if not dt > 0:
         return LagEstimate(float("nan"), float("nan"), False, "time base does not increase")
     steps = np.diff(t)
@@ -447,7 +447,8 @@ def lowpass_zero_phase(
     Stretches are split at data gaps and at NaN runs longer than
     ``GAP_FACTOR`` median sample periods; shorter NaN runs are bridged by
     linear interpolation for the filter only. Each stretch is filtered with
-    ``scipy.signal.butter(order, cutoff, fs=1/median(dt), output="sos")`` and
+    ``scipy.signal.butter(order, cutoff, fs=1/median(dt), output="sos")`` (the
+    median period of the whole of ``t``, the same for every stretch) and
     ``sosfiltfilt`` ([1]: forward-backward filtering cancels the phase, the
     magnitude becomes ``|H(f)|^2``). A stretch not longer than the default edge
     padding is filtered with padding ``n - 1``; a stretch whose Nyquist
@@ -469,7 +470,7 @@ def lowpass_zero_phase(
     if cutoff_hz <= 0 or t.size < 2:
         out[idx] = x[idx]
         return out
-    med = float(np.median(np.diff(t)))
+    med = median_period(t)
     brk = np.flatnonzero(np.diff(t[idx]) > GAP_FACTOR * med)
     firsts = np.concatenate(([0], brk + 1))
     lasts = np.concatenate((brk, [idx.size - 1]))
@@ -478,7 +479,9 @@ def lowpass_zero_phase(
         ts, xs = t[a : b + 1], x[a : b + 1]
         ok = np.isfinite(xs)
         n = xs.size
-        fs = 1.0 / float(np.median(np.diff(ts))) if n > 1 else 0.0
+        # One sample rate for the whole run (its median period), so that a run
+        # analysed in time chunks filters exactly as in one pass.
+        fs = 1.0 / med if n > 1 else 0.0
         if n < 2 or cutoff_hz >= 0.5 * fs:
             rep.unfiltered_segments += 1
             out[a : b + 1] = xs

@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from analysis.profile import Actuator, ComModel, MotorConstants, RobotProfile, Thresholds
@@ -44,6 +45,116 @@ def write_json(path: Path, data: dict[str, Any]) -> None:
     tmp = path.with_name(path.name + f".{secrets.token_hex(3)}.tmp")
     tmp.write_text(json.dumps(json_safe(data), indent=1, allow_nan=False), encoding="utf-8")
     os.replace(tmp, path)
+
+
+class RowGroupCache:
+    """Forward reader of Parquet files for successive time windows of a run.
+
+    A chunked analysis reads a run window after window, each starting later than
+    the one before. Reading each window with ``pyarrow.parquet.read_table`` decodes
+    whole row groups (about 1M rows) again and again, and holds them; this reads
+    each file once, in batches, and holds only the batches of the current window.
+    A window that starts before the batches held (or other columns) starts the
+    file over. Rows come out exactly as ``read_table`` with the same ``t`` filters
+    gives them.
+    """
+
+    #: Rows per decoded batch. [-]
+    BATCH_ROWS = 1 << 16
+
+    def __init__(self) -> None:
+        self._state: dict[str, tuple[tuple[str, ...], Any, list[pa.RecordBatch], bool]] = {}
+        self._dropped: dict[str, float] = {}  # last time of the batches let go, per file [s]
+
+    def read(self, path: Path, columns: list[str], lo: float | None, hi: float | None) -> pa.Table:
+        """Rows of ``path`` with ``lo <= t <= hi`` (either bound optional), given columns."""
+        key, cols = str(path), tuple(columns)
+        state = self._state.get(key)
+        held: list[pa.RecordBatch]
+        if (
+            state is None
+            or state[0] != cols
+            or (lo is not None and state[2] and _first_t(state[2][0]) > lo)
+        ):
+            pf = pq.ParquetFile(path)
+            batches = pf.iter_batches(batch_size=self.BATCH_ROWS, columns=list(cols))
+            held, done, schema = [], False, pf.schema_arrow
+            self._dropped[key] = -math.inf
+        else:
+            _, batches, held, done = state
+            schema = None
+        if lo is not None:  # drop the batches that end before the window
+            while held and _last_t(held[0]) < lo:
+                self._dropped[key] = _last_t(held.pop(0))
+        while not done and (hi is None or not held or _last_t(held[-1]) <= hi):
+            batch = next(batches, None)
+            if batch is None:
+                done = True
+                break
+            if not batch.num_rows:
+                continue
+            if lo is None or _last_t(batch) >= lo:
+                held.append(batch)
+            else:
+                self._dropped[key] = _last_t(batch)
+        self._state[key] = (cols, batches, held, done)
+        if not held:
+            if schema is None:
+                schema = pq.ParquetFile(path).schema_arrow
+            return schema.empty_table().select(list(cols))
+        table = pa.Table.from_batches(held)
+        t = table.column("t")
+        mask = None
+        if lo is not None:
+            mask = pc.greater_equal(t, lo)
+        if hi is not None:
+            upper = pc.less_equal(t, hi)
+            mask = upper if mask is None else pc.and_(mask, upper)
+        return table if mask is None else table.filter(mask)
+
+
+def _first_t(batch: pa.RecordBatch) -> float:
+    return float(batch.column(0)[0].as_py())
+
+
+def _last_t(batch: pa.RecordBatch) -> float:
+    return float(batch.column(0)[batch.num_rows - 1].as_py())
+
+
+class FrameWriter:
+    """Write a frame to Parquet in parts, as :func:`write_frame` would write it whole.
+
+    For frames of plain columns (numbers, bool, text; no dict/list cells). Each
+    part becomes a row group; every part must have the first part's columns.
+    """
+
+    def __init__(self, path: Path) -> None:
+        self.path = path
+        self._writer: pq.ParquetWriter | None = None
+        self.rows = 0
+
+    def write(self, frame: pd.DataFrame) -> None:
+        """Append the rows of ``frame``."""
+        table = pa.Table.from_pandas(frame, preserve_index=False)
+        if self._writer is None:
+            schema = table.schema.with_metadata(
+                {**(table.schema.metadata or {}), _JSON_COLUMNS_KEY: b"[]"}
+            )
+            # derived series are noisy floats: a dictionary would cost time for nothing
+            dictionary = [f.name for f in schema if not pa.types.is_floating(f.type)]
+            self._writer = pq.ParquetWriter(
+                self.path, schema, compression="zstd", use_dictionary=dictionary
+            )
+        table = table.cast(self._writer.schema)
+        self._writer.write_table(table)
+        self.rows += table.num_rows
+
+    def close(self) -> None:
+        """Finish the file (an empty frame's file if nothing was written)."""
+        if self._writer is None:
+            write_frame(pd.DataFrame(), self.path)
+            return
+        self._writer.close()
 
 
 def write_frame(frame: pd.DataFrame, path: Path) -> None:

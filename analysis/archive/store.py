@@ -44,6 +44,7 @@ import pyarrow.parquet as pq
 
 from analysis import catalogue
 from analysis.archive.files import (
+    RowGroupCache,
     asof_indices,
     profile_from_si,
     read_frame,
@@ -479,6 +480,7 @@ class Archive:
         columns: list[str] | None = None,
         t0: float | None = None,
         t1: float | None = None,
+        cache: RowGroupCache | None = None,
     ) -> pd.DataFrame:
         """The run as one frame on the time base of its fastest state stream.
 
@@ -491,6 +493,8 @@ class Archive:
             Names the run does not hold are left out, so check ``in frame``.
         t0, t1 : float, optional
             Time window, inclusive. [s]
+        cache : RowGroupCache, optional
+            Keeps decoded row groups between calls that read successive windows.
 
         Returns
         -------
@@ -515,6 +519,9 @@ class Archive:
                 filters.append((catalogue.T, ">=", lo))
             if t1 is not None:
                 filters.append((catalogue.T, "<=", t1))
+            if cache is not None:
+                path = run_dir / info[stream]["path"]
+                return cache.read(path, [catalogue.T, *dict.fromkeys(cols)], lo, t1)
             return pq.read_table(
                 run_dir / info[stream]["path"],
                 columns=[catalogue.T, *dict.fromkeys(cols)],
@@ -545,11 +552,14 @@ class Archive:
         self,
         run_id: str,
         events: pd.DataFrame,
-        series: pd.DataFrame,
+        series: pd.DataFrame | Path,
         summary: dict[str, Any],
         overview: RunOverview | None = None,
     ) -> None:
         """Store analysis results, replacing the previous ones atomically.
+
+        ``series`` is the derived-series frame, or the path of a Parquet file of it
+        already written (see ``analysis.archive.files.FrameWriter``), moved in.
 
         ``overview`` (the whole-run chart overview built from the run's frame and
         these ``series``) replaces the stored one right after the results; when
@@ -561,7 +571,10 @@ class Archive:
             new = staging / "results"
             new.mkdir()
             write_frame(events, new / "events.parquet")
-            write_frame(series, new / "series.parquet")
+            if isinstance(series, Path):  # written in parts beforehand (a chunked analysis)
+                shutil.move(series, new / "series.parquet")
+            else:
+                write_frame(series, new / "series.parquet")
             write_json(new / "summary.json", summary)
             if overview is not None:
                 stamp = overview_fingerprint(self, run_id, series_path=new / "series.parquet")

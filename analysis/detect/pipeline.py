@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from analysis import __version__, catalogue
+from analysis.archive.files import FrameWriter, RowGroupCache
 from analysis.archive.fleet import (
     delete_fleet_rows,
     fleet_run_ids,
@@ -28,6 +29,7 @@ from analysis.archive.fleet import (
     write_fleet_rows,
 )
 from analysis.detect.balance import detect_balance
+from analysis.detect.chunked import CHUNK_S, NotChunkableError, analyse_in_chunks
 from analysis.detect.limits import headline_kpis
 from analysis.detect.roll import detect_roll_tracking
 from analysis.detect.saturation import detect_saturation
@@ -211,8 +213,14 @@ def analyse_run(
     run_id: str,
     thresholds: Thresholds | None = None,
     progress: Progress | None = None,
+    *,
+    chunk_s: float | None = None,
 ) -> AnalysisResult:
     """Analyse a stored run and replace its stored results atomically.
+
+    A run longer than two chunks (:data:`analysis.detect.chunked.CHUNK_S`) is read
+    and analysed in time chunks, in memory that does not grow with its length; the
+    results are those of one whole-run pass (see :mod:`analysis.detect.chunked`).
 
     Parameters
     ----------
@@ -224,14 +232,88 @@ def analyse_run(
         Overrides the thresholds of the profile stored with the run.
     progress : callable, optional
         Called with (fraction done [-], message).
+    chunk_s : float, optional
+        Core length of a chunk; :data:`~analysis.detect.chunked.CHUNK_S` when None. [s]
+
+    Returns
+    -------
+    AnalysisResult
+        After a chunked analysis ``series`` holds the column names only (no rows):
+        the series went to the archive chunk by chunk.
     """
     profile = archive.load_profile(run_id)
+    size = CHUNK_S if chunk_s is None else float(chunk_s)
+    t_all = archive.load_frame(run_id, columns=[])[catalogue.T].to_numpy(dtype=float)
+    span = float(t_all[-1] - t_all[0]) if t_all.size else 0.0
+    fallback = None
+    if span > 2.0 * size:
+        try:
+            return _analyse_run_chunked(archive, run_id, profile, thresholds, progress, t_all, size)
+        except NotChunkableError as why:
+            fallback = (
+                f"Analysed as one whole-run pass instead of in time chunks: {why}. This needs "
+                f"memory in proportion to the run's length."
+            )
+    del t_all
     frame = archive.load_frame(run_id)
     result = analyse_frame(frame, profile, thresholds, progress)
+    if fallback:
+        result.notes.setdefault("pipeline", []).append(fallback)
     events = events_frame(result.events)
     overview = build_overview(frame, result.series)  # the Run page's first draw
     summary = result.summary(run_id)
     archive.write_results(run_id, events, result.series, summary, overview)
+    write_fleet_rows(
+        archive.root, run_id, archive.get_meta(run_id), events, result.kpis, results_stamp(summary)
+    )
+    return result
+
+
+def _analyse_run_chunked(
+    archive: Archive,
+    run_id: str,
+    profile: RobotProfile,
+    thresholds: Thresholds | None,
+    progress: Progress | None,
+    t_all: np.ndarray,
+    chunk_s: float,
+) -> AnalysisResult:
+    """:func:`analyse_run` in time chunks (see :mod:`analysis.detect.chunked`)."""
+    th = thresholds or profile.thresholds
+    staging = archive.new_staging()
+    try:
+        path = staging / "series.parquet"
+        writer = FrameWriter(path)
+        cache = RowGroupCache()  # each row group decoded once as the chunks move on
+        done = analyse_in_chunks(
+            lambda t0, t1: archive.load_frame(run_id, t0=t0, t1=t1, cache=cache),
+            t_all,
+            profile,
+            th,
+            lambda frame: analyse_frame(frame, profile, th),
+            writer.write,
+            load_columns=lambda names, t0, t1: archive.load_frame(
+                run_id, columns=names, t0=t0, t1=t1
+            ),
+            chunk_s=chunk_s,
+            progress=progress,
+        )
+        writer.close()
+        if progress:
+            progress(1.0, "analysis done")
+        result = AnalysisResult(
+            events=done.events,
+            kpis=done.kpis,
+            series=pd.DataFrame(columns=done.series_columns),
+            skipped=done.skipped,
+            notes=done.notes,
+            thresholds=th.to_file_dict(),
+        )
+        events = events_frame(result.events)
+        summary = result.summary(run_id)
+        archive.write_results(run_id, events, path, summary, done.overview)
+    finally:
+        archive.discard_staging(staging)
     write_fleet_rows(
         archive.root, run_id, archive.get_meta(run_id), events, result.kpis, results_stamp(summary)
     )

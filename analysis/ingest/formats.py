@@ -9,6 +9,7 @@ from __future__ import annotations
 import io
 import json
 from collections.abc import Callable, Iterator
+from typing import Any
 
 import numpy as np
 import pyarrow as pa
@@ -142,7 +143,21 @@ def iter_file(
     required: str,
     bad: BadLines,
     tick: Callable[[int], None] | None = None,
+    hasher: Any = None,
 ) -> Iterator[pa.Table]:
-    """Yield the rows of any supported file (dispatch on ``info.fmt``)."""
+    """Yield the rows of any supported file (dispatch on ``info.fmt``).
+
+    ``hasher`` (a ``hashlib`` object) is fed the file's bytes as they are read;
+    only for files where :func:`hashed_while_read` is True.
+    """
+    if hasher is not None:
+        if not hashed_while_read(info):
+            raise ValueError(f"{info.path.name} cannot be hashed while it is read")
+        return iter_csv(info, types, required, bad, tick, hasher)
     reader = {"csv": iter_csv, "jsonl": iter_jsonl, "parquet": iter_parquet}[info.fmt]
     return reader(info, types, required, bad, tick)
+
+
+def hashed_while_read(info: FileInfo) -> bool:
+    """Whether the file's SHA-256 can be taken in the reading pass (uncompressed CSV)."""
+    return info.fmt == "csv" and not info.compression

@@ -43,6 +43,8 @@ from analysis.errors import IngestError
 
 #: Bytes of text parsed at once (before decompression for gzip this is the text size).
 BLOCK_BYTES = 32 << 20
+#: Block size of pyarrow's CSV parser inside one of those blocks (parsed in parallel). [B]
+PARSE_BLOCK = 8 << 20
 #: Longest line of a CSV or JSON Lines log; a longer one refuses the file. Bounds the
 #: memory a line can take whatever the input (a gzip "bomb" of one endless line). [bytes]
 MAX_LINE_BYTES = 1 << 20
@@ -159,21 +161,24 @@ def _line_too_long(name: str, line_no: int, length: int | None = None) -> Ingest
     )
 
 
-def _check_lines(name: str, block: bytes, first: int) -> None:
+def _check_lines(name: str, block: bytes, first: int, lo: int = 0, hi: int | None = None) -> None:
     """Refuse a block holding a line longer than :data:`MAX_LINE_BYTES`.
 
     Cheap: a line that long fully covers one of the half-limit windows of the
-    block, so only windows without a line break are looked at closely.
+    block, so only windows without a line break are looked at closely. ``lo`` and
+    ``hi`` bound the lines looked at inside ``block`` (``first`` is the line number
+    at ``lo``), so a block needs no copy.
     """
+    hi = len(block) if hi is None else hi
     half = MAX_LINE_BYTES // 2
-    for pos in range(0, len(block), half):
-        if block.find(b"\n", pos, pos + half) >= 0:
+    for pos in range(lo, hi, half):
+        if block.find(b"\n", pos, min(pos + half, hi)) >= 0:
             continue
-        start = block.rfind(b"\n", 0, pos) + 1
-        end = block.find(b"\n", pos)
-        end = len(block) if end < 0 else end
+        start = max(block.rfind(b"\n", lo, pos) + 1, lo)
+        end = block.find(b"\n", pos, hi)
+        end = hi if end < 0 else end
         if end - start > MAX_LINE_BYTES:
-            raise _line_too_long(name, first + block.count(b"\n", 0, start), end - start)
+            raise _line_too_long(name, first + block.count(b"\n", lo, start), end - start)
 
 
 @dataclass
@@ -423,10 +428,29 @@ def _iter_text_blocks(
     info: FileInfo, tick: Callable[[int], None] | None
 ) -> Iterator[tuple[bytes, int]]:
     """Yield (block of whole lines, 1-based line number of its first line)."""
+    for block, first, _ in _iter_counted_blocks(info, tick):
+        yield bytes(block), first
+
+
+def _iter_counted_blocks(
+    info: FileInfo, tick: Callable[[int], None] | None, hasher: Any = None
+) -> Iterator[tuple[bytes | memoryview, int, int]]:
+    """Yield (block of whole lines, line number of its first line, newlines in it).
+
+    One pass over the bytes: the newlines of each block are counted once, here;
+    a block is a view into the bytes read (no copy), except for the one line
+    that straddles two reads, which comes as a block of its own. With ``hasher``
+    (a ``hashlib`` object, uncompressed files only) every byte of the file is
+    fed to it as it is read.
+    """
+    if hasher is not None and info.compression:
+        raise ValueError("hash while reading applies to uncompressed files only")
     raw, stream = _open_text(info.path, info.compression)
     name = info.path.name
     try:
         skipped = stream.read(info.data_offset)
+        if hasher is not None:
+            hasher.update(skipped)
         budget = info.text_budget
         if budget is not None:
             budget.spend(name, len(skipped))
@@ -434,27 +458,38 @@ def _iter_text_blocks(
         carry = b""
         while True:
             chunk = stream.read(BLOCK_BYTES)
+            if hasher is not None:
+                hasher.update(chunk)
             if budget is not None:
                 budget.spend(name, len(chunk))
             if tick is not None:
                 tick(raw.tell())
             if not chunk:
                 if carry:
-                    yield carry, line_no
+                    yield carry, line_no, carry.count(b"\n")
                 return
-            data = carry + chunk
-            end = data.rfind(b"\n")
-            if end < 0:
-                if len(data) > MAX_LINE_BYTES:
+            first = chunk.find(b"\n")
+            if first < 0:
+                carry += chunk
+                if len(carry) > MAX_LINE_BYTES:
                     raise _line_too_long(name, line_no)
-                carry = data
                 continue
-            block, carry = data[: end + 1], data[end + 1 :]
+            last = chunk.rfind(b"\n")
+            if carry:  # the line begun in the previous read
+                head = carry + chunk[: first + 1]
+                _check_lines(name, head, line_no)
+                yield head, line_no, 1
+                line_no += 1
+            else:
+                first = -1
+            newlines = chunk.count(b"\n", first + 1, last + 1)
+            if newlines:
+                _check_lines(name, chunk, line_no, first + 1, last + 1)
+                yield memoryview(chunk)[first + 1 : last + 1], line_no, newlines
+                line_no += newlines
+            carry = chunk[last + 1 :]
             if len(carry) > MAX_LINE_BYTES:
-                raise _line_too_long(name, line_no + block.count(b"\n"))
-            _check_lines(name, block, line_no)
-            yield block, line_no
-            line_no += block.count(b"\n")
+                raise _line_too_long(name, line_no)
     finally:
         stream.close()
         raw.close()
@@ -503,6 +538,7 @@ def iter_csv(
     required: str,
     bad: BadLines,
     tick: Callable[[int], None] | None = None,
+    hasher: Any = None,
 ) -> Iterator[pa.Table]:
     """Yield the rows of a CSV file as tables with ``types``, skipping bad lines.
 
@@ -518,9 +554,11 @@ def iter_csv(
         Receives the skipped lines and the count of data lines.
     tick : callable, optional
         Called with the bytes of the file read so far.
+    hasher : hashlib object, optional
+        Fed every byte of the file as it is read (uncompressed files only).
     """
     ncols = len(info.columns)
-    read_opts = pacsv.ReadOptions(column_names=info.columns, block_size=8 << 20)
+    read_opts = pacsv.ReadOptions(column_names=info.columns, block_size=PARSE_BLOCK)
     parse_opts = pacsv.ParseOptions(delimiter=info.delimiter)
     typed_opts = pacsv.ConvertOptions(column_types=types, include_columns=list(types))
     text_opts = pacsv.ConvertOptions(
@@ -528,12 +566,12 @@ def iter_csv(
         include_columns=list(types),
         strings_can_be_null=True,
     )
-    for block, first in _iter_text_blocks(info, tick):
-        n_lines = block.count(b"\n") + (0 if block.endswith(b"\n") else 1)
+    for view, first, newlines in _iter_counted_blocks(info, tick, hasher):
+        n_lines = newlines + (0 if view[-1:] == b"\n" else 1)
         try:
             table = pacsv.read_csv(
-                io.BytesIO(block), read_options=read_opts, parse_options=parse_opts,
-                convert_options=typed_opts,
+                pa.BufferReader(pa.py_buffer(view)), read_options=read_opts,
+                parse_options=parse_opts, convert_options=typed_opts,
             )  # fmt: skip
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
             table = None
@@ -546,6 +584,7 @@ def iter_csv(
                 if table.num_rows:
                     yield table
                 continue
+        block = bytes(view)  # the slow path: bad lines to find
         buf, starts, ends, valid, ignorable, fields, numbers = _line_table(
             block, info.delimiter, ncols, first
         )

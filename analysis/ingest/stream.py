@@ -48,9 +48,10 @@ from analysis.ingest.channel_map import (
     check_headers,
     load_channel_map,
 )
-from analysis.ingest.formats import iter_file
+from analysis.ingest.formats import hashed_while_read, iter_file
 from analysis.ingest.order import (
     ROW_GROUP_ROWS,
+    dictionary_columns,
     distance,
     duplicate_masks,
     late_rows,
@@ -141,6 +142,13 @@ def combined_hash(hashes: Iterable[str]) -> str:
 # --- streaming writer ------------------------------------------------------------------
 
 
+def _has_equal_neighbours(prev_t: np.ndarray, t: np.ndarray) -> bool:
+    """True when some row's time stamp equals the one before it (``prev_t``: last row)."""
+    if t.size and prev_t.size and prev_t[-1] == t[0]:
+        return True
+    return bool(np.any(t[1:] == t[:-1]))
+
+
 class _StreamWriter:
     """Convert tables of one source and write them to Parquet in ~1M-row row groups."""
 
@@ -183,9 +191,21 @@ class _StreamWriter:
             self.sorted = False
         self.prev_max = max(self.prev_max, float(t.max()))
         self.t_min = min(self.t_min, float(t.min()))
+        prev_t = self.last.column(0).to_numpy() if self.last is not None else t[:0]
+        if not _has_equal_neighbours(prev_t, t):
+            # The usual case: no two rows share a time stamp; keep the block as read
+            # (no concatenation with the previous row, no filtered copy).
+            self.last = table.slice(table.num_rows - 1)
+            self.t_parts.append(t)
+            self._count_non_finite(table)
+            self.pending.append(table)
+            self.pending_rows += table.num_rows
+            if self.pending_rows >= ROW_GROUP_ROWS:
+                self._flush()
+            return
         if self.last is not None:
             table = pa.concat_tables([self.last, table])
-            t = np.concatenate((self.last.column(0).to_numpy(), t))
+            t = np.concatenate((prev_t, t))
         exact, conflicting = duplicate_masks(t, table)
         self.exact += int(exact.sum())
         self.conflicting += int(conflicting.sum())
@@ -214,8 +234,10 @@ class _StreamWriter:
         for c in self.source.columns:
             col = table.column(c.signal)
             missing = col.null_count
-            nan = int(pc.sum(pc.is_nan(col)).as_py() or 0)
-            inf = int(pc.sum(pc.is_inf(col)).as_py() or 0)
+            # one pass in the usual case (all finite); NaN and inf apart only if any
+            odd = int(pc.sum(pc.invert(pc.is_finite(col))).as_py() or 0)
+            nan = int(pc.sum(pc.is_nan(col)).as_py() or 0) if odd else 0
+            inf = odd - nan
             if missing or nan or inf:
                 seen = self.non_finite.setdefault(c.signal, {"missing": 0, "nan": 0, "inf": 0})
                 seen["missing"] += missing
@@ -226,7 +248,8 @@ class _StreamWriter:
         if not self.pending:
             return
         if self.writer is None:
-            self.writer = open_writer(self.path, self.schema)
+            dictionary = dictionary_columns(self.pending[0])
+            self.writer = open_writer(self.path, self.schema, dictionary)
         self.writer.write_table(pa.concat_tables(self.pending), row_group_size=ROW_GROUP_ROWS)
         self.pending, self.pending_rows = [], 0
 
@@ -258,6 +281,17 @@ def _resolve(
     else:
         cmap = load_channel_map(channel_map, prof)
     return cmap, prof, profile_text
+
+
+def _duplicate(
+    archive: RunWriter, hashes: dict[str, str], paths: list[Path]
+) -> IngestOutcome | None:
+    """The outcome for files already stored as a run (same source hash), or None."""
+    existing = archive.find_by_hash(combined_hash(hashes[p.name] for p in paths))
+    if existing is None:
+        return None
+    meta = archive.get_meta(existing)
+    return IngestOutcome(existing, meta.get("ingest_report", {}), duplicate_of=existing)
 
 
 def _refuse_bad(info: FileInfo, bad: BadLines) -> None:
@@ -369,13 +403,14 @@ def ingest_files(
                     f"{other.name} and {files_of[0].name} match the same source but have "
                     f"different columns; files of one source must share their header."
                 )
+    # Uncompressed CSV files are hashed in the reading pass; the others here, first.
+    late = {p for p in paths if hashed_while_read(infos[p])}
     say(0.0, "hashing source files")
-    hashes = {p.name: sha256_file(p) for p in paths}
-    run_hash = combined_hash(hashes.values())
-    existing = archive.find_by_hash(run_hash)
-    if existing is not None:
-        meta = archive.get_meta(existing)
-        return IngestOutcome(existing, meta.get("ingest_report", {}), duplicate_of=existing)
+    early = {p.name: sha256_file(p) for p in paths if p not in late}
+    if not late:
+        duplicate = _duplicate(archive, early, paths)
+        if duplicate is not None:
+            return duplicate
 
     sources = {s.name: s for s in cmap.sources}
     types: dict[str, dict[str, pa.DataType]] = {}
@@ -421,12 +456,22 @@ def ingest_files(
                 def tick(pos: int, base: int = done_bytes, fname: str = p.name) -> None:
                     say(0.9 * (base + pos) / total_bytes, f"reading {fname}")
 
-                for table in iter_file(info, types[sname], src.time_column, bad, tick):
+                hasher = hashlib.sha256() if p in late else None
+                for table in iter_file(info, types[sname], src.time_column, bad, tick, hasher):
                     w.add(table)
+                if hasher is not None:
+                    early[p.name] = hasher.hexdigest()
                 _refuse_bad(info, bad)
                 bad_of.setdefault(sname, []).append((p.name, bad))
                 done_bytes += info.size
             t_of[sname] = w.close()
+        hashes = {p.name: early[p.name] for p in paths}
+        run_hash = combined_hash(hashes.values())
+        if late:
+            duplicate = _duplicate(archive, hashes, paths)
+            if duplicate is not None:
+                archive.discard_staging(staging)
+                return duplicate
         say(0.9, "checking time order")
         t_min = min((w.t_min for w in writers.values()), default=0.0)
         # t must start at 0: the origin from the first rows can miss an earlier late row,
@@ -502,10 +547,31 @@ def _plausibility(
     wanted += [c.signal for c in source.columns if c.signal.endswith(f".{catalogue.VEL}")]
     wanted += [c.signal for c in source.columns if c.signal.endswith(f".{catalogue.POS}")]
     if wanted:
-        tab = pq.read_table(path, columns=[catalogue.T, *dict.fromkeys(wanted)])
-        cols = {n: tab.column(n).to_numpy(zero_copy_only=False) for n in tab.column_names}
+        cols = _every_kth_row(path, [catalogue.T, *dict.fromkeys(wanted)])
         warnings += check_values(source, cols.pop(catalogue.T), cols, prof)
     return warnings
+
+
+#: Rows the plausibility checks look at, at most: a longer stream is read one row
+#: group at a time and every k-th row kept, so that an 8-hour log needs no more memory
+#: than a 90-minute one (unit and sign heuristics do not need every sample). [-]
+PLAUSIBILITY_MAX_ROWS = 1 << 21
+
+
+def _every_kth_row(path: Path, columns: list[str]) -> dict[str, np.ndarray]:
+    """Columns of a stored stream, every k-th row when it has more than the cap."""
+    pf = pq.ParquetFile(path)
+    k = max(1, -(-pf.metadata.num_rows // PLAUSIBILITY_MAX_ROWS))
+    parts: dict[str, list[np.ndarray]] = {c: [] for c in columns}
+    start = 0  # row index of the group's first row, so that the rows kept are 0, k, 2k, ...
+    for i in range(pf.num_row_groups):
+        tab = pf.read_row_group(i, columns=columns)
+        first = (-start) % k
+        for c in columns:
+            parts[c].append(tab.column(c).to_numpy(zero_copy_only=False)[first::k])
+        start += tab.num_rows
+        del tab
+    return {c: np.concatenate(p) if p else np.zeros(0) for c, p in parts.items()}
 
 
 _PLAUSIBILITY_SIGNALS = {

@@ -48,11 +48,11 @@ def test_failure_half_way_leaves_archive_as_before(tmp_path, monkeypatch):
     real = ingest_mod.open_writer
     calls = []
 
-    def failing(path, schema):
+    def failing(path, schema, *rest):
         calls.append(path)
         if len(calls) == 2:  # the second stream's writer: the first stream is written
             raise OSError("disk full (simulated)")
-        return real(path, schema)
+        return real(path, schema, *rest)
 
     monkeypatch.setattr(ingest_mod, "open_writer", failing)
     with pytest.raises(OSError, match="simulated"):

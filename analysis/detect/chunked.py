@@ -1,0 +1,553 @@
+"""Analysis of a long run in time chunks, with results identical to one whole-run pass.
+
+A whole-run pass holds the run's frame and every derived series at once: about
+1.6 GiB per hour of 400 Hz logs. Here the run is read and analysed one time
+chunk at a time (:data:`CHUNK_S` of core plus a margin either side), every
+detector runs unchanged on each chunk, and the results are stitched:
+
+* **Series.** Each chunk keeps the derived series of its core only; the margin
+  is there so that every filter and window has settled at the core's edges.
+  The margin (:func:`chunk_margin_s`) is the longest of: 40 time constants of
+  the slowest pole of the zero-phase low-pass (a Butterworth filter of order n
+  and cut-off f_c has its slowest pole at ``2 pi f_c sin(pi / (2 n))`` rad/s,
+  e.g. scipy.signal.buttap; after 40 time constants a start-up transient has
+  decayed by ``exp(-40) = 4e-18``, below the 2.2e-16 resolution of a double),
+  the RMS torque window, and the "ended tilted" window of the balance
+  detector; plus the merge gap and the minimum event duration.
+* **Gaps and sample rate.** Every gap rule and filter sample rate uses the
+  whole run's median sample interval (:func:`analysis.events.run_median_period`),
+  not the chunk's.
+* **Events.** A chunk ends at a *quiet* time: no event of any detector in the
+  chunk lies within the merge gap of it, and it is at least one margin before
+  the end of the chunk's window. Events starting in a core are taken from that
+  chunk. If a chunk has no quiet time (one long event), the chunk grows. An
+  event that would cross a cut in a whole-run pass would have been seen by the
+  chunk on one side of it, unless it is a chain of above-threshold stretches
+  longer than the margin whose every triggering sample lies beyond both chunks'
+  settled parts; the next chunk checks that it too is quiet at the cut, and a
+  disagreement makes the analysis fall back to one whole-run pass.
+* **KPIs** are rebuilt from sums over the cores (:mod:`analysis.detect.chunk_kpis`);
+  the roll lag (a cross-correlation over the whole run) from sums over chunks of
+  roll and its reference (:mod:`analysis.detect.chunk_lag`); the 1st percentile of
+  the tip margin keeps the margin's logged values (8 bytes per sample).
+* **Overview.** The chart overview's per-bucket extremes and break points are
+  gathered chunk by chunk (:class:`OverviewBuilder`), the same as
+  :func:`analysis.overview.build_overview` on the whole run.
+
+Where a chunk's detectors disagree with the first chunk on what could run (a
+signal missing for a whole chunk, another fallback method), the chunked pass
+cannot be the whole-run pass, so the run is analysed whole instead and a note
+says so.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from analysis import catalogue as cat
+from analysis.detect.chunk_kpis import KNOWN, ChunkKpis
+from analysis.detect.chunk_lag import lag_in_chunks
+from analysis.detect.tipover import F_Z_MIN
+from analysis.events import GAP_FACTOR, Event, run_median_period
+from analysis.metrics import FILTER_ORDER
+from analysis.overview import OVERVIEW_BUCKETS, RunOverview, SignalOverview, _as_float
+from analysis.profile import RobotProfile, Thresholds
+
+#: Core length of one chunk: 10 minutes of 400 Hz logs is about 0.15 GB of
+#: frame and derived series. [s]
+CHUNK_S = 600.0
+#: Time constants of the slowest filter pole in the margin (exp(-40) = 4e-18). [-]
+SETTLE_TIME_CONSTANTS = 40.0
+
+#: Loads the run's frame between two times (inclusive). [s]
+FrameLoader = Callable[[float, float], pd.DataFrame]
+#: Receives each chunk core's derived series, in time order.
+SeriesSink = Callable[[pd.DataFrame], None]
+
+
+class NotChunkableError(Exception):
+    """The chunks disagree on what can run; analyse the run whole. Says why."""
+
+
+def filter_settle_s(cutoff_hz: float, order: int = FILTER_ORDER) -> float:
+    """Time after which a start-up transient of the low-pass is below double resolution.
+
+    Parameters
+    ----------
+    cutoff_hz : float
+        Cut-off of the Butterworth low-pass; 0 means no filter. [Hz]
+    order : int
+        Order of each pass. [-]
+
+    Returns
+    -------
+    float
+        ``SETTLE_TIME_CONSTANTS / (2 pi f_c sin(pi / (2 n)))``: the slowest pole
+        of an order-n Butterworth filter has real part ``-2 pi f_c sin(pi/(2n))``
+        (poles evenly spaced on a half circle; scipy.signal.buttap). [s]
+    """
+    if cutoff_hz <= 0:
+        return 0.0
+    slowest = 2.0 * math.pi * cutoff_hz * math.sin(math.pi / (2 * order))
+    return SETTLE_TIME_CONSTANTS / slowest
+
+
+def chunk_margin_s(th: Thresholds) -> float:
+    """Margin read on each side of a chunk's core. [s]
+
+    The longest reach of any filter or window (low-pass settling, the RMS torque
+    window, the balance detector's end window), plus the merge gap and the
+    minimum duration of an event, plus one second of slack for sample jitter.
+    """
+    reach = max(filter_settle_s(th.accel_cutoff), th.thermal_window_s, th.fall_end_window_s)
+    return reach + th.merge_gap_s + th.min_duration_s + 1.0
+
+
+def _quiet_time(
+    events: list[Event], lower: float, upper: float, guard: float, step: float
+) -> float | None:
+    """Latest time in [lower, upper] farther than ``guard`` from every event, or None.
+
+    ``step`` (half a sample interval) moves a cut just before a guarded span. [s]
+    """
+    spans = sorted((e.start_s - guard, e.end_s + guard) for e in events)
+    union: list[list[float]] = []
+    for a, b in spans:  # loop over events
+        if union and a <= union[-1][1]:
+            union[-1][1] = max(union[-1][1], b)
+        else:
+            union.append([a, b])
+    cut = upper
+    for a, b in reversed(union):
+        if cut > b:
+            break
+        if cut >= a:
+            cut = a - step
+    return cut if cut >= lower else None
+
+
+# --- the overview, chunk by chunk -----------------------------------------------------
+
+
+@dataclass
+class _SignalAcc:
+    """Kept samples and break points of one signal so far."""
+
+    source: str
+    t: list[np.ndarray] = field(default_factory=list)
+    y: list[np.ndarray] = field(default_factory=list)
+    bucket: list[np.ndarray] = field(default_factory=list)
+    all_t: list[np.ndarray] = field(default_factory=list)
+    all_y: list[np.ndarray] = field(default_factory=list)
+    breaks: list[np.ndarray] = field(default_factory=list)
+    samples: int = 0
+    seen: int = 0
+    any_nan: bool = False
+    last_valid_t: float = float("nan")
+    last_valid_i: int = -1
+
+
+class OverviewBuilder:
+    """:func:`analysis.overview.build_overview` of a whole run, fed in time order.
+
+    Parameters
+    ----------
+    t_first, t_last : float
+        First and last sample time of the run. [s]
+    median_dt : float
+        The run's median sample interval. [s]
+    buckets : int, optional
+        Time buckets; :data:`analysis.overview.OVERVIEW_BUCKETS` when None. [-]
+    """
+
+    def __init__(self, t_first: float, t_last: float, median_dt: float, buckets: int | None = None):
+        self.buckets = int(OVERVIEW_BUCKETS if buckets is None else buckets)
+        self.t_first, self.t_last, self.median_dt = t_first, t_last, median_dt
+        span = t_last - t_first
+        self.scale = self.buckets / span if span > 0 else 0.0
+        self.signals: dict[str, _SignalAcc] = {}
+        self.gap_breaks: list[np.ndarray] = []
+        self.prev_t = float("nan")
+        self.rows = 0
+
+    def _bucket(self, t: np.ndarray) -> np.ndarray:
+        return np.minimum(((t - self.t_first) * self.scale).astype(np.int64), self.buckets - 1)
+
+    def add(self, table: pd.DataFrame, source: str) -> None:
+        """Add the next rows of a source (column ``t`` first); frame rows before series."""
+        t = np.ascontiguousarray(table[cat.T].to_numpy(dtype=np.float64))
+        if not t.size:
+            return
+        if source == "frame":
+            # time gaps: including the step from the previous chunk's last sample
+            tt = t if np.isnan(self.prev_t) else np.concatenate(([self.prev_t], t))
+            if self.rows + t.size >= 3 and np.isfinite(self.median_dt) and self.median_dt > 0:
+                dt = np.diff(tt)
+                g = np.flatnonzero(dt > GAP_FACTOR * self.median_dt)
+                self.gap_breaks.append(0.5 * (tt[g] + tt[g + 1]))
+        bucket = self._bucket(t)
+        for name in table.columns:
+            if name == cat.T:
+                continue
+            acc = self.signals.get(str(name))
+            if acc is None:
+                if self._frozen and (source == "frame" or self._series_rows):
+                    continue  # signals are those of the first chunk, as in one pass
+                if source == "derived" and str(name) in self._frame_names:
+                    continue
+                y = _as_float(table[name])
+                if y is None:
+                    continue
+                acc = self.signals[str(name)] = _SignalAcc(source)
+                acc.seen = self.rows if source == "frame" else self._series_rows
+            elif acc.source != source:
+                continue
+            else:
+                y = _as_float(table[name])
+                if y is None:
+                    continue
+            self._add_signal(acc, t, y, bucket)
+        if source == "frame":
+            self.prev_t = float(t[-1])
+            self.rows += t.size
+        else:
+            self._series_rows += t.size
+
+    _frame_names: frozenset[str] = frozenset()
+    _series_rows: int = 0
+    _frozen: bool = False
+
+    def freeze_frame_names(self) -> None:
+        """Called once the frame's columns are known (derived columns in it are left out)."""
+        self._frame_names = frozenset(n for n, a in self.signals.items() if a.source == "frame")
+        self._frozen = True
+
+    def _add_signal(self, acc: _SignalAcc, t: np.ndarray, y: np.ndarray, bucket: np.ndarray):
+        nan = np.isnan(y)
+        valid_idx = np.flatnonzero(~nan)
+        acc.samples += int(valid_idx.size)
+        if nan.any():
+            acc.any_nan = True
+        # Interior NaN runs (as overview.nan_run_breaks): between consecutive valid samples
+        # with at least one NaN between them, break if the span is longer than a gap.
+        if valid_idx.size:
+            gi = valid_idx + acc.seen
+            prev_i = np.concatenate(([acc.last_valid_i], gi[:-1]))
+            prev_t = np.concatenate(([acc.last_valid_t], t[valid_idx[:-1]]))
+            after_t = t[valid_idx]
+            has_nan = (gi - prev_i > 1) & (prev_i >= 0)
+            long = has_nan & ((after_t - prev_t) > GAP_FACTOR * self.median_dt)
+            if long.any():
+                acc.breaks.append(0.5 * (prev_t[long] + after_t[long]))
+            acc.last_valid_i = int(gi[-1])
+            acc.last_valid_t = float(t[valid_idx[-1]])
+        acc.seen += t.size
+        if acc.samples <= 2 * self.buckets:
+            acc.all_t.append(t[valid_idx])
+            acc.all_y.append(y[valid_idx])
+        elif acc.all_t:
+            acc.all_t, acc.all_y = [], []
+        if valid_idx.size:
+            tv, yv, bv = t[valid_idx], y[valid_idx], bucket[valid_idx]
+            keep = _first_extremes(yv, bv)
+            acc.t.append(tv[keep])
+            acc.y.append(yv[keep])
+            acc.bucket.append(bv[keep])
+
+    def finish(self) -> RunOverview:
+        """The overview, as :func:`analysis.overview.build_overview` gives it."""
+        out = RunOverview(buckets=self.buckets, spans={})
+        if self.rows:
+            out.spans["frame"] = (self.t_first, self.t_last)
+            if any(a.source == "derived" for a in self.signals.values()) or self._series_rows:
+                out.spans["derived"] = (self.t_first, self.t_last)
+        gaps = np.concatenate(self.gap_breaks) if self.gap_breaks else np.empty(0)
+        for name, acc in self.signals.items():
+            if acc.samples <= 2 * self.buckets:
+                tk = np.concatenate(acc.all_t) if acc.all_t else np.empty(0)
+                yk = np.concatenate(acc.all_y) if acc.all_y else np.empty(0)
+            else:
+                tc, yc, bc = (np.concatenate(x) for x in (acc.t, acc.y, acc.bucket))
+                keep = _first_extremes(yc, bc)
+                tk, yk = tc[keep], yc[keep]
+            breaks = gaps
+            if acc.any_nan and acc.breaks:
+                breaks = np.concatenate([gaps, *acc.breaks])
+            if breaks.size:
+                tk = np.concatenate([tk, breaks])
+                yk = np.concatenate([yk, np.full(breaks.size, np.nan)])
+                order = np.argsort(tk, kind="stable")
+                tk, yk = tk[order], yk[order]
+            out.signals[name] = SignalOverview(
+                acc.source, np.ascontiguousarray(tk), np.ascontiguousarray(yk), acc.samples
+            )
+        return out
+
+
+def _first_extremes(y: np.ndarray, bucket: np.ndarray) -> np.ndarray:
+    """Sorted positions of the first minimum and first maximum of each bucket (no NaN)."""
+    if not y.size:
+        return np.empty(0, dtype=np.int64)
+    starts = np.flatnonzero(np.r_[True, bucket[1:] != bucket[:-1]])
+    counts = np.diff(np.r_[starts, y.size])
+    lo = np.repeat(np.minimum.reduceat(y, starts), counts)
+    hi = np.repeat(np.maximum.reduceat(y, starts), counts)
+
+    def first(pos: np.ndarray) -> np.ndarray:
+        if not pos.size:
+            return pos
+        seg = bucket[pos]
+        keep = np.empty(pos.size, dtype=bool)
+        keep[0] = True
+        np.not_equal(seg[1:], seg[:-1], out=keep[1:])
+        return pos[keep]
+
+    keep = np.zeros(y.size, dtype=bool)  # the union of two sorted index sets, in order
+    keep[first(np.flatnonzero(y == lo))] = True
+    keep[first(np.flatnonzero(y == hi))] = True
+    return np.flatnonzero(keep)
+
+
+# --- the chunked pass -----------------------------------------------------------------
+
+
+@dataclass
+class ChunkedAnalysis:
+    """What :func:`analyse_in_chunks` produced (series went to the sink)."""
+
+    events: list[Event]
+    kpis: dict[str, Any]
+    skipped: list[dict[str, str]]
+    notes: dict[str, list[str]]
+    overview: RunOverview
+    chunks: int
+    series_columns: list[str]
+    windows: list[tuple[float, float, float]] = field(default_factory=list)
+    """(first, last time read, cut) of each chunk. [s]"""
+
+
+_COUNT_NOTE = re.compile(r"^\d+ sample\(s\) with vertical specific force below")
+_STRETCH_NOTE = re.compile(r"\(order \d+ each way, cut-off [^,]+, \d+ gap-free stretch\(es\)\)")
+_LAG_NOTE = ("Roll lag not estimated", "The roll lag peaks at the search bound")
+
+
+def analyse_in_chunks(
+    load: FrameLoader,
+    t_all: np.ndarray,
+    profile: RobotProfile,
+    th: Thresholds,
+    analyse: Callable[[pd.DataFrame], Any],
+    sink: SeriesSink,
+    *,
+    load_columns: Callable[[list[str], float, float], pd.DataFrame],
+    chunk_s: float = CHUNK_S,
+    progress: Callable[[float, str], None] | None = None,
+) -> ChunkedAnalysis:
+    """Analyse a run chunk by chunk; see the module docstring.
+
+    Parameters
+    ----------
+    load : callable
+        ``load(t0, t1)``: the run's frame between two times, inclusive. [s]
+    t_all : ndarray
+        The run's time axis (the frame's ``t``). [s]
+    profile : RobotProfile
+    th : Thresholds
+    analyse : callable
+        ``analyse(frame)`` -> an ``AnalysisResult`` (every detector on a frame).
+    sink : callable
+        Receives each core's derived series (column ``t`` first), in time order.
+    load_columns : callable
+        ``load_columns(names, t0, t1)``: column ``t`` and those columns between two
+        times, inclusive (for the roll lag, :mod:`analysis.detect.chunk_lag`). [s]
+    chunk_s : float
+        Core length of a chunk. [s]
+
+    Raises
+    ------
+    NotChunkableError
+        When chunks disagree on which detectors or methods could run.
+    """
+    t_first, t_last = float(t_all[0]), float(t_all[-1])
+    # np.median(np.diff(t)) as in analysis.events.median_period, without a third copy
+    median_dt = (
+        float(np.median(np.diff(t_all), overwrite_input=True)) if t_all.size > 1 else float("nan")
+    )
+    margin = chunk_margin_s(th)
+    guard = th.merge_gap_s + 2.0 * (median_dt if np.isfinite(median_dt) else 0.0)
+    overview = OverviewBuilder(t_first, t_last, median_dt)
+    events: list[Event] = []
+    kpis_acc: ChunkKpis | None = None
+    first_sig: tuple[Any, ...] | None = None
+    notes: dict[str, list[str]] = {}
+    skipped: list[dict[str, str]] = []
+    columns: list[str] = []
+    core_lo = t_first
+    prev_cut_seen: float | None = None
+    chunks = 0
+    windows: list[tuple[float, float, float]] = []
+    spans: dict[str, tuple[float, float]] = {}  # first and last logged time of ref and roll
+    grow = 1.0
+    while True:
+        nominal = core_lo + chunk_s * grow
+        last = nominal + 2.0 * margin >= t_last
+        lo, hi = core_lo - margin, (t_last if last else nominal + margin)
+        frame = load(lo, hi)
+        with run_median_period(median_dt):
+            res = analyse(frame)
+        if last:
+            cut = math.inf
+        else:
+            found = _quiet_time(
+                res.events, core_lo + 0.5 * chunk_s, hi - margin, guard, 0.5 * median_dt
+            )
+            if found is None:
+                grow += 1.0
+                continue
+            cut = found
+        if prev_cut_seen is not None and any(
+            e.start_s - guard <= prev_cut_seen <= e.end_s + guard for e in res.events
+        ):
+            raise NotChunkableError(
+                f"an event crosses the chunk boundary at t = {prev_cut_seen:.2f} s in one chunk "
+                f"but not in the other"
+            )
+        sig = (
+            tuple(sorted((s["detector"], s["reason"]) for s in res.skipped)),
+            tuple(res.series.columns),
+            tuple(
+                (name, k.get("method") if isinstance(k, dict) else None)
+                for name, k in sorted(res.kpis.items())
+            ),
+        )
+        if first_sig is None:
+            first_sig, skipped, columns = sig, list(res.skipped), list(res.series.columns)
+            unknown = set(res.kpis) - KNOWN
+            if unknown:
+                raise NotChunkableError(
+                    f"no chunked KPIs for detector(s) {', '.join(sorted(unknown))}"
+                )
+            kpis_acc = ChunkKpis(profile, th, t_first, res.kpis)
+        elif sig[:2] != first_sig[:2] or _methods(res.kpis) != _methods(kpis_acc.first_kpis):  # type: ignore[union-attr]
+            raise NotChunkableError(
+                f"the chunk from t = {core_lo:.1f} s ran other detectors or methods than the first"
+            )
+        for name, lines in res.notes.items():
+            have = notes.setdefault(name, [])
+            have.extend(n for n in lines if n not in have)
+        t = frame[cat.T].to_numpy(dtype=float)
+        a = int(np.searchsorted(t, core_lo, side="left"))
+        b = int(np.searchsorted(t, cut, side="left")) if not last else t.size
+        mine = [e for e in res.events if core_lo <= e.start_s < cut]
+        events.extend(mine)
+        closing = (not last) and b < t.size
+        stop = b + 1 if closing else b
+        core_frame = frame.iloc[a:stop].reset_index(drop=True)
+        core_series = res.series.iloc[a:stop].reset_index(drop=True)
+        kpis_acc.add(core_frame, core_series, events, closing)  # type: ignore[union-attr]
+        own_frame, own_series = core_frame.iloc[: b - a], core_series.iloc[: b - a]
+        for name in (cat.ROLL_REF, cat.ROLL):
+            if name in own_frame:
+                ok = own_frame[name].notna().to_numpy()
+                if ok.any():
+                    tt = own_frame[cat.T].to_numpy(dtype=float)[ok]
+                    lo_v, hi_v = spans.get(name, (float(tt[0]), float(tt[-1])))
+                    spans[name] = (min(lo_v, float(tt[0])), max(hi_v, float(tt[-1])))
+        sink(own_series)
+        overview.add(own_frame, "frame")
+        if chunks == 0:
+            overview.freeze_frame_names()
+        overview.add(own_series, "derived")
+        chunks += 1
+        windows.append((lo, hi, cut))
+        if progress:
+            progress(min(1.0, (min(cut, t_last) - t_first) / max(t_last - t_first, 1e-9)), "chunk")
+        del frame, res, core_frame, core_series, own_frame, own_series
+        if last:
+            break
+        prev_cut_seen, core_lo, grow = cut, cut, 1.0
+    assert kpis_acc is not None
+    events.sort(key=lambda e: (e.start_s, e.kind, e.channel or ""))
+    kpis = kpis_acc.finish(events)
+    _whole_run_notes(notes, kpis_acc, kpis, th)
+    if "roll" in kpis and kpis["roll"].get("rms") is not None:
+
+        def read(t0: float, t1: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+            cols = load_columns([cat.ROLL_REF, cat.ROLL], t0, t1)
+            return tuple(cols[n].to_numpy(dtype=float) for n in (cat.T, cat.ROLL_REF, cat.ROLL))  # type: ignore[return-value]
+
+        nan = (float("nan"), float("nan"))
+        span = (*spans.get(cat.ROLL_REF, nan), *spans.get(cat.ROLL, nan))
+        lag = lag_in_chunks(read, t_all, lambda: span, th.roll_lag_max_s, 4 * chunk_s, median_dt)
+        _roll_lag(notes, kpis["roll"], lag, th)
+    return ChunkedAnalysis(
+        events,
+        kpis,
+        skipped,
+        notes,
+        overview.finish(),
+        chunks,
+        [str(c) for c in columns],
+        windows,
+    )
+
+
+def _methods(kpis: dict[str, Any]) -> tuple[Any, ...]:
+    """The method each detector (and actuator) used, to compare chunks."""
+    out: list[tuple[Any, ...]] = []
+    for name, k in sorted(kpis.items()):
+        if not isinstance(k, dict):
+            continue
+        out.append((name, k.get("method")))
+        out.extend((name, ch, v.get("method")) for ch, v in k.items() if isinstance(v, dict))
+    return tuple(out)
+
+
+def _whole_run_notes(
+    notes: dict[str, list[str]], acc: ChunkKpis, kpis: dict[str, Any], th: Thresholds
+) -> None:
+    """Notes whose counts a chunk cannot give."""
+    if "tip" in notes:
+        lines = [n for n in notes["tip"] if not _COUNT_NOTE.match(n)]
+        if acc.unsupported_samples:
+            lines.append(
+                f"{acc.unsupported_samples} sample(s) with vertical specific force below "
+                f"{F_Z_MIN:.2f} m/s² (near free fall, no wheel loaded): the ZMP is undefined "
+                f"there and the margin is reported as 0."
+            )
+        notes["tip"] = lines
+    for name in ("tip", "roll"):
+        if name in notes:
+            seen_filter = False
+            kept = []
+            for n in notes[name]:
+                if _STRETCH_NOTE.search(n):
+                    if seen_filter:
+                        continue
+                    seen_filter = True
+                kept.append(n)
+            notes[name] = kept
+
+
+def _roll_lag(notes: dict[str, list[str]], roll: dict[str, Any], lag: Any, th: Thresholds) -> None:
+    """Put the whole run's roll lag in the roll KPIs and notes, as the detector words it."""
+    lines = [n for n in notes.get("roll", []) if not n.startswith(_LAG_NOTE)]
+    if lag.reason:
+        lines.append(f"Roll lag not estimated: {lag.reason}.")
+    elif lag.at_bound:
+        lines.append(
+            f"The roll lag peaks at the search bound ({th.roll_lag_max_s:g} s): the true lag may "
+            f"be larger; raise roll_lag_max_s to search further."
+        )
+    notes["roll"] = lines
+    roll["lag_s"] = None if not np.isfinite(lag.lag_s) else lag.lag_s
+    roll["lag_correlation"] = None if not np.isfinite(lag.correlation) else lag.correlation
+    roll["lag_at_bound"] = lag.at_bound
+    roll["event_count"] = roll.pop("event_count")  # the detector's key order
