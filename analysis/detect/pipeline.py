@@ -34,6 +34,8 @@ from analysis.detect.saturation import detect_saturation
 from analysis.detect.slip import detect_slip
 from analysis.detect.tipover import detect_tip_margin
 from analysis.events import DetectorResult, Event, events_frame
+from analysis.lap_kpis import lap_report
+from analysis.laps import detect_laps
 from analysis.overview import build_overview
 from analysis.profile import RobotProfile, Thresholds
 
@@ -51,7 +53,7 @@ if TYPE_CHECKING:
     from analysis.archive.store import Archive
 
 #: Bumped whenever a detector's definition changes, so stored results say what made them.
-ANALYSIS_VERSION = f"{__version__}+detectors.2"
+ANALYSIS_VERSION = f"{__version__}+detectors.2+laps.1"
 
 Detector = Callable[[pd.DataFrame, RobotProfile, Thresholds | None], DetectorResult]
 
@@ -95,6 +97,7 @@ class AnalysisResult:
     skipped: list[dict[str, str]]
     notes: dict[str, list[str]]
     thresholds: dict[str, float]
+    laps: dict[str, Any] = field(default_factory=dict)
     version: str = ANALYSIS_VERSION
     analysed_at: str = field(
         default_factory=lambda: datetime.now(UTC).isoformat(timespec="seconds")
@@ -112,6 +115,7 @@ class AnalysisResult:
                 "analysis_version": self.version,
                 "analysed_at": self.analysed_at,
                 "event_counts": _count_events(self.events),
+                "laps": self.laps,
             }
         )
 
@@ -193,9 +197,19 @@ def analyse_frame(
                 )
             extra = extra.loc[:, [c for c in extra.columns if c not in series.columns]]
             series = pd.concat([series, extra.reset_index(drop=True)], axis=1)
+    events.sort(key=lambda e: (e.start_s, e.kind, e.channel or ""))
+    if progress:
+        progress(0.98, "finding laps")
+    laps = lap_report(
+        frame,
+        series,
+        events,
+        profile,
+        detect_laps(frame, profile),
+        [s["detector"] for s in skipped],
+    )
     if progress:
         progress(1.0, "analysis done")
-    events.sort(key=lambda e: (e.start_s, e.kind, e.channel or ""))
     return AnalysisResult(
         events=events,
         kpis=kpis,
@@ -203,6 +217,7 @@ def analyse_frame(
         skipped=skipped,
         notes=notes,
         thresholds=th.to_file_dict(),
+        laps=laps,
     )
 
 
