@@ -23,6 +23,7 @@ import numpy as np
 import pandas as pd
 
 from analysis import catalogue as cat
+from analysis.display import display_unit, scalar_to_display
 from analysis.events import Event
 from analysis.laps import Lap, LapSet, lap_of_samples
 from analysis.metrics import sample_durations
@@ -278,4 +279,48 @@ def lap_report(
     out["kpi_defs"] = [
         {"key": k.key, "label": k.label, "unit": k.unit, "better": k.better} for k in LAP_KPIS
     ]
+    return out
+
+
+def display_laps(report: dict[str, Any] | None) -> dict[str, Any] | None:
+    """A stored lap report with every value in the unit shown to people.
+
+    Parameters
+    ----------
+    report : dict or None
+        From :func:`lap_report` (SI; roll error in rad), as stored with the analysis.
+
+    Returns
+    -------
+    dict or None
+        The report with ``kpi_defs[*].unit`` the shown unit, every per-lap value and
+        each drift's ``slope_per_lap`` and ``change`` converted (rad becomes deg by
+        :func:`analysis.display.scalar_to_display`); None when there is no report.
+    """
+    if report is None:
+        return None
+    si = {k.key: k.unit for k in LAP_KPIS}
+    out = dict(report)
+    out["kpi_defs"] = [
+        {**d, "unit": display_unit(si.get(d["key"], d["unit"]))[0]}
+        for d in report.get("kpi_defs", [])
+    ]
+    rows = []
+    for row in report.get("kpis", []):
+        shown = dict(row)
+        for key, unit in si.items():
+            if key in shown:
+                shown[key] = scalar_to_display(shown[key], unit)[0]
+        rows.append(shown)
+    out["kpis"] = rows
+    drift = {}
+    for key, d in report.get("drift", {}).items():
+        shown = dict(d)
+        unit = si.get(key, d.get("unit", ""))
+        for field_name in ("slope_per_lap", "change"):
+            if field_name in shown:
+                shown[field_name] = scalar_to_display(shown[field_name], unit)[0]
+        shown["unit"] = display_unit(unit)[0]
+        drift[key] = shown
+    out["drift"] = drift
     return out

@@ -52,6 +52,11 @@ PEAK_SHARE = 0.9
 SEARCH_SHARE = 0.15
 #: A match at the end of the trace needs at least this share of the template. [-]
 MIN_OVERLAP_SHARE = 0.5
+#: Largest RMS difference of a lap's curvature from the template, relative to the
+#: template's RMS curvature. [-] (common practice, no source: laps driven on one line
+#: repeat their curvature within a few percent; a course whose two halves merely look
+#: alike, with curves of other radii, differs by half or more)
+MAX_LAP_RESIDUAL = 0.3
 #: A first boundary closer than this to the run's start is the start itself. [m]
 #: (common practice, no source: twice the curvature smoothing width)
 START_SNAP_M = 2.0
@@ -243,6 +248,20 @@ def _best_near(match: np.ndarray, centre: float, half: float) -> tuple[float, fl
     return _refine(filled, j), float(match[j])
 
 
+def _median_residual(trace: CourseTrace, template: np.ndarray, starts_g: list[float]) -> float:
+    """Median over laps of RMS(lap curvature - template) / RMS(template). [-]"""
+    scale = float(np.sqrt(np.mean(template**2))) if template.size else 0.0
+    if not starts_g or scale == 0.0:
+        return float("inf") if starts_g else 0.0
+    out = []
+    for g in starts_g:
+        part = trace.curvature[int(round(g)) : int(round(g)) + template.size]
+        m = part.size
+        if m:
+            out.append(float(np.sqrt(np.mean((part - template[:m]) ** 2))) / scale)
+    return float(np.median(out)) if out else 0.0
+
+
 def _matches_start(trace: CourseTrace, template: np.ndarray, g: float) -> bool:
     """Whether the trace from grid point ``g`` on looks like the template's start."""
     part = trace.curvature[int(round(g)) : int(round(g)) + template.size]
@@ -400,6 +419,15 @@ def laps_from_trace(
         laps.append(Lap(len(laps) + 1, float(times[-1]), t_end, bounds[-1], total, True,
                         matches[-1]))  # fmt: skip
     complete = [lap.length_m for lap in laps if not lap.partial]
+    residual = _median_residual(trace, tmpl, [lap.start_m / dx for lap in laps if not lap.partial])
+    if complete and residual > MAX_LAP_RESIDUAL:
+        return LapSet(
+            [], float("nan"), method,
+            f"No laps: the course shape repeats every {lap:.0f} m in form only; its curves "
+            f"differ from lap to lap by {100 * residual:.0f}% (RMS) of the curvature, more "
+            f"than the {100 * MAX_LAP_RESIDUAL:.0f}% of one loop driven again.",
+            grid_m=dx,
+        )  # fmt: skip
     if not complete:
         return LapSet(
             [], float("nan"), method,
