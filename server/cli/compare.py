@@ -25,6 +25,7 @@ from analysis.compare.gate import GateCheck, check_gate, gate_from_mapping
 from analysis.compare.segments import BLOCK_M
 from analysis.compare.view import overlay
 from analysis.errors import CompareError
+from server.cli.laps_text import compare_lap_lines
 from server.cli.main import add_data_option, data_dir
 from server.report import build_report
 
@@ -58,6 +59,11 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         type=float,
         default=BLOCK_M,
         help=f"bootstrap block length in metres ({BLOCK_M})",
+    )
+    p.add_argument(
+        "--whole-runs",
+        action="store_true",
+        help="compare multi-lap runs whole instead of lap by lap",
     )
     p.add_argument("--n-boot", type=int, default=2000, help="bootstrap replicates (2000)")
     p.add_argument("--seed", type=int, default=0, help="random seed of the bootstrap (0)")
@@ -174,6 +180,9 @@ def _print_text(comp: Comparison, checks: list[GateCheck] | None) -> None:
         for seg in comp.segments:
             print(f"\nSegment {seg.name} ({seg.kind}, {seg.start_m:.1f}-{seg.end_m:.1f} m)")
             print(_table(comp.segment_kpis[seg.name]))
+    if comp.laps:
+        print()
+        print("\n".join(compare_lap_lines(comp.laps)))
     for note in comp.notes:
         print(f"\nNote: {note}")
     if checks is not None:
@@ -193,7 +202,7 @@ def run_compare(args: argparse.Namespace) -> int:
     archive = Archive(data_dir(args))
     comp, runs_a, runs_b = compare_archived(
         archive, ids_a, ids_b, marks_m=_marks(args.marks), block_m=args.block_m,
-        n_boot=args.n_boot, seed=args.seed,
+        n_boot=args.n_boot, seed=args.seed, laps=not args.whole_runs,
     )  # fmt: skip
     checks = check_gate(comp, gate) if gate else None
     if args.report:

@@ -46,9 +46,16 @@ def lap_lines(report: dict[str, Any] | None) -> list[str]:
         lines.append(line)
     if any(r.get("partial") for r in rows):
         lines.append("  * partial lap (before the first or after the last start-line crossing)")
-    lines.append(
-        "drift over the complete laps (Mann-Kendall test, 5 % level; change = Theil-Sen slope x laps):"
-    )
+    lines += drift_lines(shown)
+    return lines
+
+
+def drift_lines(shown: dict[str, Any]) -> list[str]:
+    """The drift section of a lap report already in shown units (see ``display_laps``)."""
+    lines = [
+        "drift over the complete laps (Mann-Kendall test, 5 % level; "
+        "change = Theil-Sen slope x (laps - 1)):"
+    ]
     for key, d in shown.get("drift", {}).items():
         label = d.get("label", key)
         if d.get("verdict") == "not run":
@@ -61,4 +68,30 @@ def lap_lines(report: dict[str, Any] | None) -> list[str]:
         change_s = "n/a" if change is None else f"{change:+.4g}{unit}"
         p_s = "n/a (too few laps)" if p is None else f"{p:.3g}"
         lines.append(f"  {label}: {d['verdict']} (change over the run {change_s}, p = {p_s})")
+    return lines
+
+
+def compare_lap_lines(laps: dict[str, Any] | None) -> list[str]:
+    """Lap-by-lap table of a comparison (means of A and B per lap) and each run's drift."""
+    if not laps:
+        return []
+    lines = [f"Lap by lap (course lap {laps['course_m']:.1f} m; mean of each version's runs):"]
+    keys = ("lap_time", "min_tip_margin", "roll_error_rms", "energy")
+    heads = {"lap_time": "time s", "min_tip_margin": "min tip", "roll_error_rms": "roll RMS deg",
+             "energy": "energy J"}  # fmt: skip
+    lines.append(
+        f"{'lap':>4s} " + " ".join(f"{heads[k] + ' A':>14s} {heads[k] + ' B':>14s}" for k in keys)
+    )
+    for entry in laps.get("by_lap", []):
+        cells = []
+        for k in keys:
+            for side in ("a", "b"):
+                v = entry["kpis"][k][side]
+                shown = display_laps({"kpis": [{k: v}]}) or {}
+                v = shown["kpis"][0][k]
+                cells.append("not run".rjust(14) if v is None else f"{v:14.4g}")
+        lines.append(f"{entry['lap']:>4d} " + " ".join(cells))
+    for rid, report in laps.get("runs", {}).items():
+        lines.append(f"Run {rid}: {report.get('reason', '')}")
+        lines += ["  " + x for x in drift_lines(display_laps(report) or {})]
     return lines
