@@ -18,6 +18,7 @@ from pydantic import BaseModel, Field
 from analysis.archive.store import Archive
 from analysis.detect.pipeline import analyse_run, headline_kpis, load_analysis
 from analysis.display import display_event_peak, display_headline
+from analysis.lap_kpis import display_laps
 from analysis.profile import Thresholds
 from server.deps import ApiError, forget_run, get_archive, get_jobs, require_write
 from server.jobs import JobManager, Progress
@@ -85,6 +86,7 @@ def get_run(run_id: str, archive: ArchiveDep) -> dict[str, Any]:
         "analysis": analysis,
         "headline": headline,
         "headline_shown": display_headline(headline),
+        "laps_shown": display_laps(analysis.get("laps")) if analysis is not None else None,
     }
 
 

@@ -25,7 +25,8 @@ class LapArchive:
     b: str
 
 
-def _store(archive: Archive, folder: Path, controller: str, seed: int, drift: float) -> str:
+def store_lap_run(archive: Archive, folder: Path, controller: str, seed: int, drift: float) -> str:
+    """Simulate 8 laps of the ring, ingest them from the demo's log files and analyse; return the id."""
     folder.mkdir(parents=True, exist_ok=True)
     run = simulate_laps(
         controller, laps=8, seed=seed, drift_per_lap=drift, state_rate_hz=100.0,
@@ -51,6 +52,6 @@ def _store(archive: Archive, folder: Path, controller: str, seed: int, drift: fl
 def stock_laps(root: Path) -> LapArchive:
     """Fill an archive under ``root`` with the two multi-lap runs."""
     archive = Archive(root / "archive")
-    a = _store(archive, root / "in-a", "lean-ctl 1.4", 51, 0.0)
-    b = _store(archive, root / "in-b", "lean-ctl 2.0", 52, 0.015)
+    a = store_lap_run(archive, root / "in-a", "lean-ctl 1.4", 51, 0.0)
+    b = store_lap_run(archive, root / "in-b", "lean-ctl 2.0", 52, 0.015)
     return LapArchive(root / "archive", a, b)
