@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import resource
 import shutil
 import subprocess
@@ -90,13 +91,16 @@ def child(root: str, a: str, b: str) -> None:
     from analysis.compare.compare import compare_archived
 
     t = time.perf_counter()
+    cpu = time.process_time()
     comp, _, _ = compare_archived(Archive(root), [a], [b])
     seconds = time.perf_counter() - t
+    cpu_s = time.process_time() - cpu
+    load = os.getloadavg()[0]
     rss_mib = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024  # KiB on Linux
     rows = [r for rows in comp.segment_kpis.values() for r in rows]
     verdicts = {v: sum(r.verdict == v for r in comp.kpis) for v in ("better", "worse")}
     print(json.dumps({
-        "seconds": seconds, "peak_rss_mib": rss_mib, "same_course": comp.same_course,
+        "seconds": seconds, "cpu_s": cpu_s, "load": load, "peak_rss_mib": rss_mib, "same_course": comp.same_course,
         "resampling": comp.settings["resampling"], "segments": len(comp.segments),
         "segment_rows": len(rows), "laps": {k: len(v["kpis"]) for k, v in (comp.laps or {}).get("runs", {}).items()},
         "overall_verdicts": verdicts, "refusal": comp.refusal,
@@ -120,7 +124,8 @@ def main() -> None:
     cmd = [sys.executable, __file__, "--child", str(OUT / "archive"), a, b]
     done = subprocess.run(cmd, check=True, capture_output=True, text=True)
     r = json.loads(done.stdout.strip().splitlines()[-1])
-    print(f"compare A B (fresh process): {r['seconds']:.2f} s, peak RSS {r['peak_rss_mib']:.0f} MiB; "
+    print(f"compare A B (fresh process): {r['seconds']:.2f} s wall, {r['cpu_s']:.2f} s CPU "
+          f"(load average {r['load']:.1f} on {os.cpu_count()} cores), peak RSS {r['peak_rss_mib']:.0f} MiB; "
           f"{r['resampling']}; {r['segments']} segments ({r['segment_rows']} segment rows); "
           f"laps {r['laps']}; overall verdicts {r['overall_verdicts']}")  # fmt: skip
     if r["refusal"]:

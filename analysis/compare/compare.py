@@ -51,16 +51,24 @@ from analysis.compare.course_kpis import (
 from analysis.compare.lap_compare import (
     LapPlan,
     lap_report_table,
+    lap_units,
     lap_windows,
     pieces_by_lap,
     plan_laps,
 )
-from analysis.compare.segments import BLOCK_M, MIN_BLOCKS_PER_SEGMENT, Segment, block_edges
+from analysis.compare.segments import (
+    BLOCK_M,
+    MIN_BLOCKS_PER_SEGMENT,
+    STRAIGHT,
+    Segment,
+    block_edges,
+)
 from analysis.compare.segments import segment_course as _segment_course
 from analysis.compare.segments import segments_from_marks as _segments_from_marks
 from analysis.errors import CompareError
 from analysis.events import Event
 from analysis.metrics import lag_by_xcorr
+from analysis.profile import RobotProfile
 
 if TYPE_CHECKING:
     from analysis.archive.store import Archive
@@ -370,6 +378,23 @@ def compare_runs(
         return Pieces(data, n_units, int(edges_of[0].size - 1))
 
     pa, pb = stack(pieces[:n_a]), stack(pieces[n_a:])
+    if lap_pieces is not None:
+        # The laps are the replicates: whole laps of each version resampled independently.
+        pa, pb = lap_units(pieces[:n_a], kdefs), lap_units(pieces[n_a:], kdefs)
+
+    seg_cache: dict[int, tuple[Pieces, Pieces]] = {}
+
+    def segment_pieces(i: int) -> tuple[Pieces, Pieces]:
+        if i not in seg_cache:
+            blocks = np.flatnonzero(owner == i)
+            if lap_pieces is not None:
+                seg_cache[i] = (
+                    lap_units(pieces[:n_a], kdefs, blocks),
+                    lap_units(pieces[n_a:], kdefs, blocks),
+                )
+            else:
+                seg_cache[i] = (pa.subset(blocks), pb.subset(blocks))
+        return seg_cache[i]
 
     def lag_values(side: slice, a: float, b: float) -> np.ndarray:
         return np.array([
@@ -389,26 +414,32 @@ def compare_runs(
             rows.append(_row(k, bootstrap_runs(lag_a, lag_b, rng=rng,
                                                n_boot=n_boot, level=level)))  # fmt: skip
         else:
-            d = bootstrap_difference(k.stat, pa, pb, paired=same, rng=rng, n_boot=n_boot,
-                                     level=level)  # fmt: skip
+            d = bootstrap_difference(k.stat, pa, pb, paired=same and lap_pieces is None, rng=rng,
+                                     n_boot=n_boot, level=level)  # fmt: skip
             rows.append(_row(k, d))
         for i, seg in enumerate(segments if same else []):
             if k.stat is None:
-                la = lag_values(side_a, seg.start_m, seg.end_m)
-                lb = lag_values(side_b, seg.start_m, seg.end_m)
+                if lap_pieces is not None and seg.kind == STRAIGHT:
+                    # On a straight the reference barely moves: every lap's lag would be
+                    # NaN (see _lag), and measuring it on every lap costs seconds.
+                    la = lb = np.zeros(0)
+                else:
+                    la = lag_values(side_a, seg.start_m, seg.end_m)
+                    lb = lag_values(side_b, seg.start_m, seg.end_m)
                 d = bootstrap_runs(la, lb, rng=rng, n_boot=n_boot, level=level)
             else:
-                blocks = np.flatnonzero(owner == i)
-                d = bootstrap_difference(k.stat, pa.subset(blocks), pb.subset(blocks),
-                                         paired=True, rng=rng, n_boot=n_boot, level=level)  # fmt: skip
+                seg_a, seg_b = segment_pieces(i)
+                d = bootstrap_difference(k.stat, seg_a, seg_b, paired=lap_pieces is None, rng=rng,
+                                         n_boot=n_boot, level=level)  # fmt: skip
             seg_rows[seg.name].append(_row(k, d))
     lap_mode = same and plan is not None
     if lap_mode:
         notes.append(
             "Laps are the replicates: each lap is aligned on its own on the reference lap and "
-            "resampled as a unit (Hurlbert 1984: the lap, not a 5 m block, varies with the "
-            "battery and the motors' temperature). Totals (time to complete, energy, slip events, "
-            "falls) are per lap."
+            "whole laps of each version are resampled (Hurlbert 1984: the lap, not a 5 m block, "
+            "varies with the battery and the motors' temperature); an interval needs at least 5 "
+            "complete laps per version. Totals (time to complete, energy, slip events, falls) "
+            "are per lap."
         )
     if any(k.stat is None for k in kdefs) and min(len(runs_a), len(runs_b)) < 2 and not lap_mode:
         notes.append(
@@ -448,7 +479,7 @@ def compare_runs(
             "level": level,
             "block_m": block_m,
             "resampling": (
-                "paired course blocks, laps pooled"
+                "whole laps, each version's laps pooled"
                 if lap_mode
                 else "paired course blocks, runs pooled"
                 if same
@@ -489,6 +520,22 @@ def events_from_frame(df: pd.DataFrame) -> list[Event]:
     return out
 
 
+def _frame_columns(profile: RobotProfile) -> list[str]:
+    """Frame signals a comparison reads (distance, course shape, roll lag, energy)."""
+    cols = [cat.VEL_X, cat.YAW_RATE, cat.PITCH_RATE, cat.ROLL, cat.ROLL_REF]
+    for a in profile.actuators:
+        cols += [cat.actuator_signal(a.name, q) for q in (cat.TORQUE, cat.TORQUE_CMD, cat.VEL)]
+    return cols
+
+
+def _series_columns(profile: RobotProfile) -> list[str]:
+    """Derived series a comparison reads."""
+    cols = [cat.ROLL_ERROR, cat.TIP_MARGIN]
+    cols += [f"{a.name}.{cat.SATURATED}" for a in profile.actuators]
+    cols += [f"{w.name}.{cat.SLIP_SPEED}" for w in profile.wheels().values()]
+    return cols
+
+
 def run_data(archive: Archive, run_id: str) -> RunData:
     """Load one stored run with its analysis (analysed in memory if never analysed).
 
@@ -504,14 +551,16 @@ def run_data(archive: Archive, run_id: str) -> RunData:
     from analysis.detect.pipeline import analyse_frame
 
     meta = dict(archive.get_meta(run_id))
-    frame = archive.load_frame(run_id)
     profile = archive.load_profile(run_id)
     stored = archive.read_results(run_id)
     if stored is None:
+        frame = archive.load_frame(run_id)
         result = analyse_frame(frame, profile)
         return RunData(run_id, frame, result.series, result.events, profile, meta)
+    # Only the columns the comparison and its charts read: a one-hour run holds many more.
+    frame = archive.load_frame(run_id, columns=_frame_columns(profile))
     events_df, _summary = stored
-    series = archive.read_result_series(run_id)
+    series = archive.read_result_series(run_id, columns=_series_columns(profile))
     return RunData(run_id, frame, series, events_from_frame(events_df), profile, meta)
 
 

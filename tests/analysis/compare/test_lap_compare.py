@@ -42,7 +42,7 @@ def _true_per_lap(which: str, name: str, how) -> np.ndarray:
 
 def test_multi_lap_runs_are_compared_lap_by_lap(comparison) -> None:
     assert comparison.same_course and comparison.refusal is None
-    assert comparison.settings["resampling"] == "paired course blocks, laps pooled"
+    assert comparison.settings["resampling"] == "whole laps, each version's laps pooled"
     # The course is one lap: segments cover the reference lap from its start line
     assert comparison.segments[0].start_m == 0.0
     assert comparison.segments[-1].end_m == pytest.approx(comparison.laps["course_m"])

@@ -42,7 +42,7 @@ def test_compare_goes_lap_by_lap(laps_archive, capsys) -> None:
     assert "Segment S1" in out
     assert main([*args, "--json"]) == 0
     data = json.loads(capsys.readouterr().out)
-    assert data["settings"]["resampling"] == "paired course blocks, laps pooled"
+    assert data["settings"]["resampling"] == "whole laps, each version's laps pooled"
     assert len(data["laps"]["by_lap"]) == 8
 
 
