@@ -11,6 +11,7 @@ from analysis.demo.laps import ODOMETRY_SCALE, simulate_laps
 from analysis.demo.logs import simulate_run
 from analysis.errors import CompareError
 from analysis.laps import detect_laps, lap_of_samples, lap_units
+from tests.analysis.compare_synth import make_run
 from tests.analysis.lap_runs import RATES, drift_run, steady_run
 
 #: Boundary tolerance along the course: the curvature is smoothed over 1 m and put on
@@ -136,3 +137,12 @@ def test_lap_units_split_the_samples_of_complete_laps() -> None:
         assert np.all(t[unit] >= lap.start_s) and np.all(t[unit] <= lap.end_s)
         assert np.all(np.diff(unit) == 1)
     assert sum(u.size for u in units) + np.count_nonzero(idx == 4) == t.size
+
+
+def test_halves_alike_in_form_only_are_not_laps() -> None:
+    # The invented loop of the compare tests: its second half has curves of the same
+    # sides and rhythm as the first but other radii (0.2 against 0.12 rad/m), so the
+    # shape correlates 0.83 with itself half a course on, in form only.
+    run = make_run("a", seed=1)
+    found = detect_laps(run.frame)
+    assert found.laps == [] and "in form only" in found.reason
