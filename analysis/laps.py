@@ -478,6 +478,24 @@ def detect_laps(
     return laps_from_trace(trace, t, start_m=start_m, lap_length_m=lap_length_m, template=template)
 
 
+def find_laps(
+    frame: pd.DataFrame, profile: RobotProfile | None = None, start_m: float | None = None
+) -> LapSet:
+    """:func:`detect_laps` for the analysis: a start line off the run gives no laps, with why.
+
+    Parameters
+    ----------
+    frame : DataFrame
+    profile : RobotProfile, optional
+    start_m : float, optional
+        Start line stored for the run's course, from the run's start. [m]
+    """
+    try:
+        return detect_laps(frame, profile, start_m=start_m)
+    except CompareError as exc:
+        return LapSet([], float("nan"), "start line", f"No laps: {exc}")
+
+
 def lap_of_samples(t: np.ndarray, laps: list[Lap]) -> np.ndarray:
     """Index into ``laps`` of each sample time, -1 outside every lap.
 

@@ -30,7 +30,7 @@ import numpy as np
 import pandas as pd
 
 from analysis import catalogue as cat
-from analysis.archive.courses import course_marks
+from analysis.archive.courses import course_marks, course_start_line
 from analysis.compare.align import Alignment, CourseTrace, align_traces, course_trace, forward_speed
 from analysis.compare.bootstrap import (
     LEVEL,
@@ -248,6 +248,7 @@ def compare_runs(
     seed: int = 0,
     level: float = LEVEL,
     laps: bool = True,
+    lap_start_m: float | None = None,
 ) -> Comparison:
     """Compare the runs of version A with those of version B.
 
@@ -270,6 +271,9 @@ def compare_runs(
         Compare multi-lap runs lap by lap (:mod:`analysis.compare.lap_compare`)
         when the reference run is at least two laps of a loop; ``marks_m`` are
         then distances from the start line along one lap.
+    lap_start_m : float, optional
+        Start line of the laps, from the reference run's start (stored for the
+        course). [m]
 
     Returns
     -------
@@ -310,7 +314,7 @@ def compare_runs(
             if not al.same_course:
                 refusal = f"Run {rid} against run {ids[0]}: {al.reason}"
                 break
-    plan = plan_laps(runs, traces) if laps and len(names) <= 1 else None
+    plan = plan_laps(runs, traces, lap_start_m) if laps and len(names) <= 1 else None
     if plan is not None:
         refusal = None if plan.same_course else plan.reason
         alignments = [_lap_alignment(plan, i, traces) for i in range(1, len(runs))]
@@ -576,11 +580,15 @@ def compare_archived(
         Run ids of version A and version B.
     **kwargs
         Passed to :func:`compare_runs`. Without ``marks_m``, the distance marks
-        stored for the runs' course (``analysis.archive.courses``) are used, if any.
+        stored for the runs' course (``analysis.archive.courses``) are used, if any, and
+        likewise its start line (``lap_start_m``).
     """
     runs_a = [run_data(archive, i) for i in ids_a]
     runs_b = [run_data(archive, i) for i in ids_b]
     courses = _course_names([*runs_a, *runs_b])
-    if kwargs.get("marks_m") is None and len(courses) == 1:
-        kwargs["marks_m"] = course_marks(archive.root, courses.pop())
+    if len(courses) == 1:
+        course = courses.pop()
+        if kwargs.get("marks_m") is None:
+            kwargs["marks_m"] = course_marks(archive.root, course)
+        kwargs.setdefault("lap_start_m", course_start_line(archive.root, course))
     return compare_runs(runs_a, runs_b, **kwargs), runs_a, runs_b

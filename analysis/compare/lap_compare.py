@@ -32,6 +32,7 @@ from analysis import catalogue as cat
 from analysis.compare.align import MAX_LENGTH_DIFF, MIN_CORRELATION, CourseTrace
 from analysis.compare.bootstrap import Pieces
 from analysis.compare.course_kpis import KpiDef, RunData, block_pieces
+from analysis.errors import CompareError
 from analysis.lap_kpis import LAP_KPIS, lap_report
 from analysis.laps import LapSet, laps_from_trace
 
@@ -74,7 +75,9 @@ class LapPlan:
         return self.grid_m * np.arange(self.curvature.size)
 
 
-def plan_laps(runs: Sequence[RunData], traces: Sequence[CourseTrace]) -> LapPlan | None:
+def plan_laps(
+    runs: Sequence[RunData], traces: Sequence[CourseTrace], start_m: float | None = None
+) -> LapPlan | None:
     """Find the laps of every run on the reference run's first complete lap.
 
     Parameters
@@ -83,6 +86,9 @@ def plan_laps(runs: Sequence[RunData], traces: Sequence[CourseTrace]) -> LapPlan
         All runs, the reference first.
     traces : sequence of CourseTrace
         Their curvature traces (same grid spacing).
+    start_m : float, optional
+        Start line stored for the course, from the reference run's start (a line
+        off that run is ignored: the run's start is used). [m]
 
     Returns
     -------
@@ -91,7 +97,7 @@ def plan_laps(runs: Sequence[RunData], traces: Sequence[CourseTrace]) -> LapPlan
         loop (then the runs are compared whole).
     """
     t0 = runs[0].frame[cat.T].to_numpy(dtype=float)
-    ref = laps_from_trace(traces[0], t0)
+    ref = find_laps_on_trace(traces[0], t0, start_m)
     complete = ref.complete
     if len(complete) < MIN_LAPS:
         return None
@@ -136,6 +142,16 @@ def plan_laps(runs: Sequence[RunData], traces: Sequence[CourseTrace]) -> LapPlan
             f"reference run's lap {first.number} (complete laps: {counts})."
         )
     return LapPlan(lapsets, first.length_m, template, dx, not problems, reason)
+
+
+def find_laps_on_trace(trace: CourseTrace, t: np.ndarray, start_m: float | None) -> LapSet:
+    """The reference run's laps from its start line, or from its start when the line is off it."""
+    if start_m is not None:
+        try:
+            return laps_from_trace(trace, t, start_m=start_m)
+        except CompareError:
+            pass
+    return laps_from_trace(trace, t)
 
 
 def lap_positions(

@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from analysis import __version__, catalogue
+from analysis.archive.courses import course_start_line
 from analysis.archive.fleet import (
     delete_fleet_rows,
     fleet_run_ids,
@@ -35,7 +36,7 @@ from analysis.detect.slip import detect_slip
 from analysis.detect.tipover import detect_tip_margin
 from analysis.events import DetectorResult, Event, events_frame
 from analysis.lap_kpis import lap_report
-from analysis.laps import detect_laps
+from analysis.laps import find_laps
 from analysis.overview import build_overview
 from analysis.profile import RobotProfile, Thresholds
 
@@ -151,6 +152,7 @@ def analyse_frame(
     profile: RobotProfile,
     thresholds: Thresholds | None = None,
     progress: Progress | None = None,
+    lap_start_m: float | None = None,
 ) -> AnalysisResult:
     """Run every detector on one analysis frame.
 
@@ -164,6 +166,8 @@ def analyse_frame(
         Overrides ``profile.thresholds``.
     progress : callable, optional
         Called with (fraction done [-], message).
+    lap_start_m : float, optional
+        Start line of the laps, from the run's start (stored for its course). [m]
 
     Returns
     -------
@@ -205,7 +209,7 @@ def analyse_frame(
         series,
         events,
         profile,
-        detect_laps(frame, profile),
+        find_laps(frame, profile, lap_start_m),
         [s["detector"] for s in skipped],
     )
     if progress:
@@ -242,7 +246,8 @@ def analyse_run(
     """
     profile = archive.load_profile(run_id)
     frame = archive.load_frame(run_id)
-    result = analyse_frame(frame, profile, thresholds, progress)
+    start = course_start_line(archive.root, archive.get_meta(run_id).get("course"))
+    result = analyse_frame(frame, profile, thresholds, progress, lap_start_m=start)
     events = events_frame(result.events)
     overview = build_overview(frame, result.series)  # the Run page's first draw
     summary = result.summary(run_id)

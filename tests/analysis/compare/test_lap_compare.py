@@ -148,3 +148,14 @@ def test_drift_gate_cannot_pass_on_runs_that_are_not_laps() -> None:
 def test_bad_drift_keys_are_refused(table, message) -> None:
     with pytest.raises(CompareError, match=message):
         gate_from_mapping(table)
+
+
+def test_stored_start_line_moves_every_run_s_laps() -> None:
+    a, b = _run_data("baseline"), _run_data("steady")
+    comp = compare_runs([a], [b], n_boot=N_BOOT, lap_start_m=30.0)
+    assert comp.same_course
+    for rid in ("baseline", "steady"):
+        laps = comp.laps["runs"][rid]["laps"]
+        # 30 m (odometry) before the line are a partial first lap in both runs: B's laps
+        # are matched on A's lap that starts at the line
+        assert laps[0]["partial"] and laps[0]["end_m"] == pytest.approx(30.0, abs=1.0)

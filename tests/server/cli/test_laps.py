@@ -62,3 +62,25 @@ def test_drift_gate_exit_code(laps_archive, tmp_path, capsys) -> None:
     # Truth: 1.5 % slower a lap over 8 laps is about 6 s, beyond the 1 s allowed
     assert main(args) == 1
     assert "lap_time_drift_max" in capsys.readouterr().err
+
+
+def test_stored_start_line_places_the_laps(laps_archive, capsys) -> None:
+    data = ["--data", str(laps_archive.root)]
+    assert main(["start-line", "gullhaven-ring", *data]) == 0
+    assert "no start line stored" in capsys.readouterr().out
+    assert main(["start-line", "gullhaven-ring", "-5", *data]) == 2
+    assert "finite distance >= 0 m" in capsys.readouterr().err
+    try:
+        assert main(["start-line", "gullhaven-ring", "30", *data]) == 0
+        assert main(["analyse", laps_archive.a, *data]) == 0
+        capsys.readouterr()
+        assert main(["show", laps_archive.a, "--json", *data]) == 0
+        laps = json.loads(capsys.readouterr().out)["laps"]
+        assert laps["method"] == "start line"
+        first = laps["laps"][0]
+        # The 30 m before the stored line are a partial first lap
+        assert first["partial"] and first["end_m"] == pytest.approx(30.0, abs=0.05)
+        assert sum(not lap["partial"] for lap in laps["laps"]) == 7
+    finally:
+        assert main(["start-line", "gullhaven-ring", "--clear", *data]) == 0
+        assert main(["analyse", laps_archive.a, *data]) == 0
