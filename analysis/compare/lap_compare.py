@@ -32,8 +32,9 @@ from analysis import catalogue as cat
 from analysis.compare.align import MAX_LENGTH_DIFF, MIN_CORRELATION, CourseTrace
 from analysis.compare.bootstrap import Pieces
 from analysis.compare.course_kpis import KpiDef, RunData, block_pieces
+from analysis.display import display_unit, scalar_to_display
 from analysis.errors import CompareError
-from analysis.lap_kpis import LAP_KPIS, lap_report
+from analysis.lap_kpis import LAP_KPIS, display_laps, lap_report
 from analysis.laps import LapSet, laps_from_trace
 
 #: Fewest complete laps every run needs for a lap-by-lap comparison. [-]
@@ -324,3 +325,36 @@ def lap_report_table(
             }
         by_lap.append(entry)
     return {"course_m": round(plan.course_m, 3), "runs": reports, "by_lap": by_lap}
+
+
+def display_lap_table(laps: dict[str, Any] | None) -> dict[str, Any] | None:
+    """The lap-by-lap part of a comparison in the units shown to people (rad -> deg).
+
+    Returns
+    -------
+    dict or None
+        ``course_m``, ``kpi_defs`` (shown units), ``by_lap`` with ``a``, ``b`` and
+        ``diff`` converted, and ``runs`` (each run's report through
+        :func:`analysis.lap_kpis.display_laps`).
+    """
+    if not laps:
+        return None
+    si = {k.key: k.unit for k in LAP_KPIS}
+    by_lap = []
+    for entry in laps.get("by_lap", []):
+        kpis = {}
+        for key, cell in entry["kpis"].items():
+            kpis[key] = {
+                side: scalar_to_display(cell[side], si.get(key, ""))[0]
+                for side in ("a", "b", "diff")
+            }
+        by_lap.append({"lap": entry["lap"], "kpis": kpis})
+    return {
+        "course_m": laps.get("course_m"),
+        "kpi_defs": [
+            {"key": k.key, "label": k.label, "unit": display_unit(k.unit)[0], "better": k.better}
+            for k in LAP_KPIS
+        ],
+        "by_lap": by_lap,
+        "runs": {rid: display_laps(rep) for rid, rep in laps.get("runs", {}).items()},
+    }

@@ -23,17 +23,19 @@ RANGES_JS = "() => [...document.querySelectorAll('.chart')].map(d => d.stripChar
 
 
 @pytest.fixture(scope="module")
-def lap_live(tmp_path_factory: pytest.TempPathFactory) -> Iterator[tuple[LiveServer, str]]:
+def lap_live(tmp_path_factory: pytest.TempPathFactory) -> Iterator[tuple[LiveServer, str, str]]:
     from server.app import create_app
 
     root = tmp_path_factory.mktemp("lap-web")
-    run_id = store_lap_run(Archive(root / "archive"), root / "in", "lean-ctl 2.0", 52, 0.015)
+    archive = Archive(root / "archive")
+    run_id = store_lap_run(archive, root / "in", "lean-ctl 2.0", 52, 0.015)
+    base_id = store_lap_run(archive, root / "in-a", "lean-ctl 1.4", 51, 0.0)
     with LiveServer(create_app(root / "archive")) as server:
-        yield server, run_id
+        yield server, run_id, base_id
 
 
 def test_lap_strip_zooms_to_a_lap_and_the_card_shows_drift(page: Any, lap_live) -> None:
-    live, run_id = lap_live
+    live, run_id, _ = lap_live
     with urllib.request.urlopen(f"{live.url}/api/runs/{run_id}") as resp:
         laps = json.load(resp)["laps_shown"]["laps"]
     page.goto(f"{live.url}/run.html?id={run_id}")
@@ -65,4 +67,16 @@ def test_lap_strip_zooms_to_a_lap_and_the_card_shows_drift(page: Any, lap_live) 
     )
     assert page.locator("#lap-card tr[data-kpi='lap_time'] svg circle").count() == 8
     assert "deg" in card.inner_text()  # roll error shown in degrees
+    assert not page.page_errors
+
+
+def test_compare_page_shows_the_lap_by_lap_table(page: Any, lap_live) -> None:
+    live, run_id, base_id = lap_live
+    page.goto(f"{live.url}/compare.html?a={base_id}&b={run_id}&n_boot=200")
+    page.wait_for_selector("body[data-loaded='1']", timeout=120_000)
+    assert page.locator("#laps-card").is_visible()
+    assert page.locator("#laps-table tbody tr").count() == 8
+    assert "[deg]" in (page.locator("#laps-table thead").text_content() or "")
+    # Truth: the generator slows the candidate's target speeds 1.5 % a lap
+    assert "Lap time: worse" in page.locator("#laps-drift").inner_text()
     assert not page.page_errors
