@@ -32,6 +32,8 @@ from analysis.profile import RobotProfile
 
 #: Spacing of the distance grid the course shape is compared on. [m]
 GRID_M = 0.05
+#: Most grid points per run sample (20 x 5 cm = 1 m per sample: 100 m/s at 100 Hz). [-]
+MAX_GRID_PER_SAMPLE = 20
 #: Width of the moving average that smooths the curvature. [m]
 #: (common practice, no source: wide enough to average gyro noise over a few
 #: wheel turns, narrow against the shortest curve of a test course)
@@ -184,7 +186,15 @@ def course_trace(
     s = course_distance(frame, profile)
     psi = _cumtrapz(t, _filled(frame, cat.YAW_RATE))
     length = float(s[-1]) if s.size else 0.0
-    n = int(np.floor(length / grid_m)) + 1
+    n = int(np.floor(length / grid_m)) + 1 if np.isfinite(length) else -1
+    if not 0 < n <= MAX_GRID_PER_SAMPLE * t.size + 1000:
+        # Memory follows the sample count, never the distance: a far-off time stamp
+        # with motion across it would otherwise ask for a grid of billions of points.
+        raise CompareError(
+            f"The run's distance travelled, {length:.4g} m from {t.size} samples, is more "
+            f"than {MAX_GRID_PER_SAMPLE * grid_m:g} m per sample: its time stamps hold a "
+            f"gap the speed was integrated across. Fix the time stamps of the log."
+        )
     grid = grid_m * np.arange(n)
     # Keep the first sample at each distance so np.interp sees increasing abscissae.
     _, first = np.unique(s, return_index=True)

@@ -128,6 +128,9 @@ class Comparison:
     segment_kpis : dict
         Segment name -> list of KpiRow.
     notes : list of str
+    not_run : list of dict
+        ``{"run", "detector", "reason"}`` for each detector a run's analysis
+        skipped; its KPIs are left out of the comparison, never shown as 0.
     settings : dict
         ``n_boot``, ``seed``, ``level``, ``block_m``, resampling scheme.
     """
@@ -145,6 +148,7 @@ class Comparison:
     notes: list[str] = field(default_factory=list)
     settings: dict[str, Any] = field(default_factory=dict)
     laps: dict[str, Any] | None = None
+    not_run: list[dict[str, str]] = field(default_factory=list)
 
     def kpi(self, key: str) -> KpiRow:
         """The overall row of one KPI key."""
@@ -169,6 +173,7 @@ class Comparison:
             "kpis": [r.to_dict() for r in self.kpis],
             "segment_kpis": {k: [r.to_dict() for r in v] for k, v in self.segment_kpis.items()},
             "notes": self.notes,
+            "not_run": self.not_run,
             "settings": self.settings,
             "laps": _json_safe(self.laps),
         }
@@ -477,6 +482,11 @@ def compare_runs(
         kpis=rows,
         segment_kpis=seg_rows,
         notes=notes,
+        not_run=[
+            {"run": r.run_id, "detector": d, "reason": why}
+            for r in runs
+            for d, why in r.skipped.items()
+        ],
         settings={
             "n_boot": n_boot,
             "seed": seed,
@@ -560,12 +570,14 @@ def run_data(archive: Archive, run_id: str) -> RunData:
     if stored is None:
         frame = archive.load_frame(run_id)
         result = analyse_frame(frame, profile)
-        return RunData(run_id, frame, result.series, result.events, profile, meta)
+        skipped = {s["detector"]: s["reason"] for s in result.skipped}
+        return RunData(run_id, frame, result.series, result.events, profile, meta, skipped)
     # Only the columns the comparison and its charts read: a one-hour run holds many more.
     frame = archive.load_frame(run_id, columns=_frame_columns(profile))
-    events_df, _summary = stored
+    events_df, summary = stored
     series = archive.read_result_series(run_id, columns=_series_columns(profile))
-    return RunData(run_id, frame, series, events_from_frame(events_df), profile, meta)
+    skipped = {s["detector"]: s["reason"] for s in summary.get("skipped", [])}
+    return RunData(run_id, frame, series, events_from_frame(events_df), profile, meta, skipped)
 
 
 def compare_archived(

@@ -298,7 +298,7 @@ def lap_report_table(
     """
     runs = list(runs_a) + list(runs_b)
     reports = {
-        r.run_id: lap_report(r.frame, r.series, r.events, r.profile, ls)
+        r.run_id: lap_report(r.frame, r.series, r.events, r.profile, ls, list(r.skipped))
         for r, ls in zip(runs, plan.lapsets, strict=True)
     }
     ids_a = {r.run_id for r in runs_a}

@@ -24,6 +24,8 @@ import numpy as np
 from analysis.demo import course as dc
 from analysis.demo import logs as dl
 from analysis.demo import sim as ds
+from analysis.demo.sensors import SensorModel
+from analysis.demo.truth import planted_truth
 from analysis.errors import OutriggerError
 
 #: One lap of the ring: straights and curves turning +120, -60, +150 and +150 degrees
@@ -155,9 +157,9 @@ def simulate_laps(
     t = st["t"]
     tq_index = np.arange(0, t.size, ratio)
     t_tq = t[tq_index] + dl.TORQUE_STAMP_OFFSET_US * 1e-6
-    truth = ds.planted_truth(t, st, true, t_tq, tq_index)
+    truth = planted_truth(t, st, true, t_tq, tq_index)
     start = start_utc or dl.DEFAULT_START
-    raw = dl._foreign(st, true, seed, dt, tq_index, start)
+    raw = dl._foreign(st, true, seed, dt, tq_index, start, SensorModel())
     raw["state"]["vx_est"] = np.round(raw["state"]["vx_est"] * ODOMETRY_SCALE, 3)
     frame = dl._frame_from_foreign(raw)
     run = dl.DemoRun(

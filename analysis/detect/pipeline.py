@@ -54,7 +54,7 @@ if TYPE_CHECKING:
     from analysis.archive.store import Archive
 
 #: Bumped whenever a detector's definition changes, so stored results say what made them.
-ANALYSIS_VERSION = f"{__version__}+detectors.2+laps.1"
+ANALYSIS_VERSION = f"{__version__}+detectors.3+laps.1"
 
 Detector = Callable[[pd.DataFrame, RobotProfile, Thresholds | None], DetectorResult]
 

@@ -146,3 +146,11 @@ def test_halves_alike_in_form_only_are_not_laps() -> None:
     run = make_run("a", seed=1)
     found = detect_laps(run.frame)
     assert found.laps == [] and "in form only" in found.reason
+
+
+def test_a_far_time_stamp_gives_no_laps_not_a_huge_grid() -> None:
+    t = np.arange(0.0, 30.0, 0.01)
+    t[-1] = 9.8e10  # one far-off stamp: 9.8e10 m of "distance" at 1 m/s
+    frame = pd.DataFrame({cat.T: t, cat.VEL_X: np.ones(t.size), cat.YAW_RATE: np.zeros(t.size)})
+    found = detect_laps(frame)
+    assert found.laps == [] and "time stamps" in found.reason
