@@ -74,3 +74,66 @@ def delete_course_marks(root: str | os.PathLike[str], course: str) -> bool:
         path.unlink()
         return True
     return False
+
+
+# --- the start line of a closed loop --------------------------------------------------
+
+
+def _start_path(root: str | os.PathLike[str], course: str) -> Path:
+    return _path(root, course).with_name(f"{course}.start.toml")
+
+
+def check_start_line(start_m: float) -> float:
+    """Check a start line: a finite distance >= 0 from a run's start. [m]"""
+    value = float(start_m)
+    if not (math.isfinite(value) and value >= 0):
+        raise CompareError(
+            f"The start line must be a finite distance >= 0 m from where runs start, found "
+            f"{start_m}. Give it in metres, such as 12.5."
+        )
+    return value
+
+
+def save_start_line(root: str | os.PathLike[str], course: str, start_m: float) -> Path:
+    """Store (or replace) the start line of a loop course; return the file's path.
+
+    The start line is the distance from where the course's runs start to the line
+    that starts each lap, as odometry measures it. [m]
+    """
+    value = check_start_line(start_m)
+    path = _start_path(root, course)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.stem}.{secrets.token_hex(3)}.tmp")
+    tmp.write_text(
+        f"# start line of course {course}: metres from a run's start [m]\nlap_start_m = {value}\n",
+        "utf-8",
+    )
+    os.replace(tmp, path)
+    return path
+
+
+def course_start_line(root: str | os.PathLike[str], course: str | None) -> float | None:
+    """The stored start line of a course, or None when none is stored (or no course). [m]"""
+    if not course or not COURSE_NAME_RE.match(course):
+        return None
+    path = _start_path(root, course)
+    if not path.is_file():
+        return None
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as exc:
+        raise CompareError(
+            f"{path} is not valid TOML ({exc}); store the start line again."
+        ) from exc
+    if "lap_start_m" not in data:
+        raise CompareError(f"{path} has no lap_start_m; store the start line again.")
+    return check_start_line(data["lap_start_m"])
+
+
+def delete_start_line(root: str | os.PathLike[str], course: str) -> bool:
+    """Forget a course's start line; True if there was one."""
+    path = _start_path(root, course)
+    if path.is_file():
+        path.unlink()
+        return True
+    return False

@@ -30,7 +30,7 @@ import numpy as np
 import pandas as pd
 
 from analysis import catalogue as cat
-from analysis.archive.courses import course_marks
+from analysis.archive.courses import course_marks, course_start_line
 from analysis.compare.align import Alignment, CourseTrace, align_traces, course_trace, forward_speed
 from analysis.compare.bootstrap import (
     LEVEL,
@@ -48,12 +48,27 @@ from analysis.compare.course_kpis import (
     kpi_definitions,
     tip_edges,
 )
-from analysis.compare.segments import BLOCK_M, MIN_BLOCKS_PER_SEGMENT, Segment, block_edges
+from analysis.compare.lap_compare import (
+    LapPlan,
+    lap_report_table,
+    lap_units,
+    lap_windows,
+    pieces_by_lap,
+    plan_laps,
+)
+from analysis.compare.segments import (
+    BLOCK_M,
+    MIN_BLOCKS_PER_SEGMENT,
+    STRAIGHT,
+    Segment,
+    block_edges,
+)
 from analysis.compare.segments import segment_course as _segment_course
 from analysis.compare.segments import segments_from_marks as _segments_from_marks
 from analysis.errors import CompareError
 from analysis.events import Event
 from analysis.metrics import lag_by_xcorr
+from analysis.profile import RobotProfile
 
 if TYPE_CHECKING:
     from analysis.archive.store import Archive
@@ -132,6 +147,7 @@ class Comparison:
     segment_kpis: dict[str, list[KpiRow]]
     notes: list[str] = field(default_factory=list)
     settings: dict[str, Any] = field(default_factory=dict)
+    laps: dict[str, Any] | None = None
     not_run: list[dict[str, str]] = field(default_factory=list)
 
     def kpi(self, key: str) -> KpiRow:
@@ -159,7 +175,20 @@ class Comparison:
             "notes": self.notes,
             "not_run": self.not_run,
             "settings": self.settings,
+            "laps": _json_safe(self.laps),
         }
+
+
+def _json_safe(value: Any) -> Any:
+    if isinstance(value, dict):
+        return {str(k): _json_safe(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_json_safe(v) for v in value]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
 
 
 def _describe(run: RunData) -> dict[str, Any]:
@@ -186,19 +215,22 @@ def _row(k: KpiDef, d: Difference) -> KpiRow:
 MIN_LAG_CORRELATION = 0.5
 
 
-def _lag(run: RunData, position: np.ndarray, lo: float, hi: float) -> float:
+def _lag(
+    run: RunData, position: np.ndarray, lo: float, hi: float, rows: slice = slice(None)
+) -> float:
     """Roll lag of one run over a course stretch, by cross-correlation.
 
-    NaN where undefined: too few samples, the peak at the search bound, or a peak
+    ``rows`` limits the search to a slice of samples (one lap). NaN where
+    undefined: too few samples, the peak at the search bound, or a peak
     correlation below :data:`MIN_LAG_CORRELATION`.
     """
-    sel = (position >= lo) & (position <= hi)
+    sel = (position[rows] >= lo) & (position[rows] <= hi)
     if sel.sum() < 8:
         return float("nan")
     f = run.frame
-    t = f[cat.T].to_numpy(dtype=float)[sel]
-    ref = f[cat.ROLL_REF].to_numpy(dtype=float)[sel]
-    roll = f[cat.ROLL].to_numpy(dtype=float)[sel]
+    t = f[cat.T].to_numpy(dtype=float)[rows][sel]
+    ref = f[cat.ROLL_REF].to_numpy(dtype=float)[rows][sel]
+    roll = f[cat.ROLL].to_numpy(dtype=float)[rows][sel]
     est = lag_by_xcorr(t, ref, roll, run.profile.thresholds.roll_lag_max_s)
     if est.at_bound or not est.correlation >= MIN_LAG_CORRELATION:
         # On a straight the reference barely moves: the peak is noise, not a lag.
@@ -220,6 +252,8 @@ def compare_runs(
     n_boot: int = N_BOOT,
     seed: int = 0,
     level: float = LEVEL,
+    laps: bool = True,
+    lap_start_m: float | None = None,
 ) -> Comparison:
     """Compare the runs of version A with those of version B.
 
@@ -238,6 +272,13 @@ def compare_runs(
         Seed of the numpy Generator (same seed, same intervals). [-]
     level : float
         Confidence level of the intervals. [-]
+    laps : bool
+        Compare multi-lap runs lap by lap (:mod:`analysis.compare.lap_compare`)
+        when the reference run is at least two laps of a loop; ``marks_m`` are
+        then distances from the start line along one lap.
+    lap_start_m : float, optional
+        Start line of the laps, from the reference run's start (stored for the
+        course). [m]
 
     Returns
     -------
@@ -278,13 +319,41 @@ def compare_runs(
             if not al.same_course:
                 refusal = f"Run {rid} against run {ids[0]}: {al.reason}"
                 break
+    plan = plan_laps(runs, traces, lap_start_m) if laps and len(names) <= 1 else None
+    if plan is not None:
+        refusal = None if plan.same_course else plan.reason
+        alignments = [_lap_alignment(plan, i, traces) for i in range(1, len(runs))]
     same = refusal is None
     offsets = [0.0] + [al.offset_m for al in alignments]
+    if same and plan is not None:
+        # Course position 0 is the start line: every run's first complete lap starts there.
+        offsets = [-ls.complete[0].start_m for ls in plan.lapsets]
     speeds = [forward_speed(r.frame, r.profile) for r in runs]
     positions = [tr.distance + off for tr, off in zip(traces, offsets, strict=True)]
     edges_of: list[np.ndarray]
     segments: list[Segment] = []
-    if same:
+    # Where each run's roll lag is measured: (position offset, sample rows) per replicate.
+    lag_windows: list[list[tuple[float, slice]]] = [[(0.0, slice(None))] for _ in runs]
+    lap_pieces: list[dict[str, np.ndarray]] | None = None
+    if same and plan is not None:
+        lo, hi = 0.0, plan.course_m
+        if marks_m is not None:
+            segments = _segments_from_marks(marks_m, lo, hi, plan.grid, plan.curvature)
+        else:
+            segments = _segment_course(plan.grid, plan.curvature, start_m=lo, end_m=hi)
+        edges, owner = block_edges(segments, block_m)
+        edges_of = [edges] * len(runs)
+        kdefs = kpi_definitions(runs, tip_edges(runs))
+        lap_pieces, positions = [], []
+        for r, ls, tr, v in zip(runs, plan.lapsets, traces, speeds, strict=True):
+            pc, pos = pieces_by_lap(r, ls, tr.distance, v, edges, plan.course_m, kdefs)
+            lap_pieces.append(pc)
+            positions.append(pos)
+        lag_windows = [
+            lap_windows(ls, tr.distance, plan.course_m)
+            for ls, tr in zip(plan.lapsets, traces, strict=True)
+        ]
+    elif same:
         lo = max(0.0, *offsets)
         hi = min(tr.length_m + off for tr, off in zip(traces, offsets, strict=True))
         if marks_m is not None:
@@ -301,45 +370,87 @@ def compare_runs(
         edges_of = [np.linspace(0.0, tr.length_m, n + 1) for tr in traces]
         positions = [tr.distance for tr in traces]
         owner = np.zeros(n, dtype=int)
-    kdefs = kpi_definitions(runs, tip_edges(runs))
-    pieces = [
-        block_pieces(r, pos, v, e, kdefs)
-        for r, pos, v, e in zip(runs, positions, speeds, edges_of, strict=True)
-    ]
     n_a = len(runs_a)
+    if lap_pieces is None:
+        kdefs = kpi_definitions(runs, tip_edges(runs))
+        pieces = [
+            {k: x[None] for k, x in block_pieces(r, pos, v, e, kdefs).items()}
+            for r, pos, v, e in zip(runs, positions, speeds, edges_of, strict=True)
+        ]
+    else:
+        pieces = lap_pieces
 
     def stack(part: list[dict[str, np.ndarray]]) -> Pieces:
-        data = {k: np.stack([p[k] for p in part]) for k in part[0]}
-        return Pieces(data, len(part), int(edges_of[0].size - 1))
+        # Replicates (runs, or the laps of every run) stacked along the first axis.
+        data = {k: np.concatenate([p[k] for p in part]) for k in part[0]}
+        n_units = int(next(iter(data.values())).shape[0])
+        return Pieces(data, n_units, int(edges_of[0].size - 1))
 
     pa, pb = stack(pieces[:n_a]), stack(pieces[n_a:])
+    if lap_pieces is not None:
+        # The laps are the replicates: whole laps of each version resampled independently.
+        pa, pb = lap_units(pieces[:n_a], kdefs), lap_units(pieces[n_a:], kdefs)
+
+    seg_cache: dict[int, tuple[Pieces, Pieces]] = {}
+
+    def segment_pieces(i: int) -> tuple[Pieces, Pieces]:
+        if i not in seg_cache:
+            blocks = np.flatnonzero(owner == i)
+            if lap_pieces is not None:
+                seg_cache[i] = (
+                    lap_units(pieces[:n_a], kdefs, blocks),
+                    lap_units(pieces[n_a:], kdefs, blocks),
+                )
+            else:
+                seg_cache[i] = (pa.subset(blocks), pb.subset(blocks))
+        return seg_cache[i]
+
+    def lag_values(side: slice, a: float, b: float) -> np.ndarray:
+        return np.array([
+            _lag(r, p, off + a, off + b, rows)
+            for r, p, windows in zip(runs[side], positions[side], lag_windows[side], strict=True)
+            for off, rows in windows
+        ])  # fmt: skip
+
+    side_a, side_b = slice(0, n_a), slice(n_a, None)
     rng = np.random.default_rng(seed)
     rows: list[KpiRow] = []
     seg_rows: dict[str, list[KpiRow]] = {s.name: [] for s in segments} if same else {}
     for k in kdefs:
         if k.stat is None:  # roll lag: one number per run, resampled over runs
             lag_hi = hi if same else np.inf
-            lag_a = [_lag(r, p, lo, lag_hi) for r, p in zip(runs_a, positions[:n_a], strict=True)]
-            lag_b = [_lag(r, p, lo, lag_hi) for r, p in zip(runs_b, positions[n_a:], strict=True)]
-            rows.append(_row(k, bootstrap_runs(np.array(lag_a), np.array(lag_b), rng=rng,
+            lag_a, lag_b = lag_values(side_a, lo, lag_hi), lag_values(side_b, lo, lag_hi)
+            rows.append(_row(k, bootstrap_runs(lag_a, lag_b, rng=rng,
                                                n_boot=n_boot, level=level)))  # fmt: skip
         else:
-            d = bootstrap_difference(k.stat, pa, pb, paired=same, rng=rng, n_boot=n_boot,
-                                     level=level)  # fmt: skip
+            d = bootstrap_difference(k.stat, pa, pb, paired=same and lap_pieces is None, rng=rng,
+                                     n_boot=n_boot, level=level)  # fmt: skip
             rows.append(_row(k, d))
         for i, seg in enumerate(segments if same else []):
             if k.stat is None:
-                la = [_lag(r, p, seg.start_m, seg.end_m)
-                      for r, p in zip(runs_a, positions[:n_a], strict=True)]  # fmt: skip
-                lb = [_lag(r, p, seg.start_m, seg.end_m)
-                      for r, p in zip(runs_b, positions[n_a:], strict=True)]  # fmt: skip
-                d = bootstrap_runs(np.array(la), np.array(lb), rng=rng, n_boot=n_boot, level=level)
+                if lap_pieces is not None and seg.kind == STRAIGHT:
+                    # On a straight the reference barely moves: every lap's lag would be
+                    # NaN (see _lag), and measuring it on every lap costs seconds.
+                    la = lb = np.zeros(0)
+                else:
+                    la = lag_values(side_a, seg.start_m, seg.end_m)
+                    lb = lag_values(side_b, seg.start_m, seg.end_m)
+                d = bootstrap_runs(la, lb, rng=rng, n_boot=n_boot, level=level)
             else:
-                blocks = np.flatnonzero(owner == i)
-                d = bootstrap_difference(k.stat, pa.subset(blocks), pb.subset(blocks),
-                                         paired=True, rng=rng, n_boot=n_boot, level=level)  # fmt: skip
+                seg_a, seg_b = segment_pieces(i)
+                d = bootstrap_difference(k.stat, seg_a, seg_b, paired=lap_pieces is None, rng=rng,
+                                         n_boot=n_boot, level=level)  # fmt: skip
             seg_rows[seg.name].append(_row(k, d))
-    if any(k.stat is None for k in kdefs) and min(len(runs_a), len(runs_b)) < 2:
+    lap_mode = same and plan is not None
+    if lap_mode:
+        notes.append(
+            "Laps are the replicates: each lap is aligned on its own on the reference lap and "
+            "whole laps of each version are resampled (Hurlbert 1984: the lap, not a 5 m block, "
+            "varies with the battery and the motors' temperature); an interval needs at least 5 "
+            "complete laps per version. Totals (time to complete, energy, slip events, falls) "
+            "are per lap."
+        )
+    if any(k.stat is None for k in kdefs) and min(len(runs_a), len(runs_b)) < 2 and not lap_mode:
         notes.append(
             "The roll lag is one number per run; its interval needs at least two runs of each "
             "version."
@@ -381,10 +492,29 @@ def compare_runs(
             "seed": seed,
             "level": level,
             "block_m": block_m,
-            "resampling": "paired course blocks, runs pooled" if same else "independent blocks",
+            "resampling": (
+                "whole laps, each version's laps pooled"
+                if lap_mode
+                else "paired course blocks, runs pooled"
+                if same
+                else "independent blocks"
+            ),
             "segments_from": "distance marks" if marks_m is not None else "curvature",
         },
+        laps=lap_report_table(runs_a, runs_b, plan) if lap_mode and plan is not None else None,
     )
+
+
+def _lap_alignment(plan: LapPlan, i: int, traces: Sequence[CourseTrace]) -> Alignment:
+    """Alignment of run ``i`` in lap mode: its first complete lap on the reference lap."""
+    ref_first = plan.lapsets[0].complete[0] if plan.lapsets[0].complete else None
+    done = plan.lapsets[i].complete
+    match = float(np.nanmedian([lap.match for lap in done])) if done else float("nan")
+    offset = (ref_first.start_m if ref_first else 0.0) - (done[0].start_m if done else 0.0)
+    return Alignment(
+        offset, match, plan.same_course, plan.reason, traces[0].length_m, traces[i].length_m,
+        0.0, plan.course_m,
+    )  # fmt: skip
 
 
 def events_from_frame(df: pd.DataFrame) -> list[Event]:
@@ -404,6 +534,22 @@ def events_from_frame(df: pd.DataFrame) -> list[Event]:
     return out
 
 
+def _frame_columns(profile: RobotProfile) -> list[str]:
+    """Frame signals a comparison reads (distance, course shape, roll lag, energy)."""
+    cols = [cat.VEL_X, cat.YAW_RATE, cat.PITCH_RATE, cat.ROLL, cat.ROLL_REF]
+    for a in profile.actuators:
+        cols += [cat.actuator_signal(a.name, q) for q in (cat.TORQUE, cat.TORQUE_CMD, cat.VEL)]
+    return cols
+
+
+def _series_columns(profile: RobotProfile) -> list[str]:
+    """Derived series a comparison reads."""
+    cols = [cat.ROLL_ERROR, cat.TIP_MARGIN]
+    cols += [f"{a.name}.{cat.SATURATED}" for a in profile.actuators]
+    cols += [f"{w.name}.{cat.SLIP_SPEED}" for w in profile.wheels().values()]
+    return cols
+
+
 def run_data(archive: Archive, run_id: str) -> RunData:
     """Load one stored run with its analysis (analysed in memory if never analysed).
 
@@ -419,15 +565,17 @@ def run_data(archive: Archive, run_id: str) -> RunData:
     from analysis.detect.pipeline import analyse_frame
 
     meta = dict(archive.get_meta(run_id))
-    frame = archive.load_frame(run_id)
     profile = archive.load_profile(run_id)
     stored = archive.read_results(run_id)
     if stored is None:
+        frame = archive.load_frame(run_id)
         result = analyse_frame(frame, profile)
         skipped = {s["detector"]: s["reason"] for s in result.skipped}
         return RunData(run_id, frame, result.series, result.events, profile, meta, skipped)
+    # Only the columns the comparison and its charts read: a one-hour run holds many more.
+    frame = archive.load_frame(run_id, columns=_frame_columns(profile))
     events_df, summary = stored
-    series = archive.read_result_series(run_id)
+    series = archive.read_result_series(run_id, columns=_series_columns(profile))
     skipped = {s["detector"]: s["reason"] for s in summary.get("skipped", [])}
     return RunData(run_id, frame, series, events_from_frame(events_df), profile, meta, skipped)
 
@@ -444,11 +592,15 @@ def compare_archived(
         Run ids of version A and version B.
     **kwargs
         Passed to :func:`compare_runs`. Without ``marks_m``, the distance marks
-        stored for the runs' course (``analysis.archive.courses``) are used, if any.
+        stored for the runs' course (``analysis.archive.courses``) are used, if any, and
+        likewise its start line (``lap_start_m``).
     """
     runs_a = [run_data(archive, i) for i in ids_a]
     runs_b = [run_data(archive, i) for i in ids_b]
     courses = _course_names([*runs_a, *runs_b])
-    if kwargs.get("marks_m") is None and len(courses) == 1:
-        kwargs["marks_m"] = course_marks(archive.root, courses.pop())
+    if len(courses) == 1:
+        course = courses.pop()
+        if kwargs.get("marks_m") is None:
+            kwargs["marks_m"] = course_marks(archive.root, course)
+        kwargs.setdefault("lap_start_m", course_start_line(archive.root, course))
     return compare_runs(runs_a, runs_b, **kwargs), runs_a, runs_b

@@ -8,6 +8,11 @@ A gate is a small table of our own keys (read from TOML by the command line):
 - ``<kpi>_increase_max_pct`` / ``<kpi>_drop_max_pct``: the same in percent of A.
 - ``new_falls_allowed = false``: B may not fall more often per run than A.
 - ``no_worse = ["roll_error_rms", ...]``: these KPIs may not get the verdict "worse".
+- ``<kpi>_drift_max``: for multi-lap runs compared lap by lap, the largest
+  change of a per-lap KPI (``lap_time``, ``saturation_share``, ``slip_events``,
+  ``min_tip_margin``, ``roll_error_rms``, ``energy``) over any B run, in its
+  worse direction, when the Mann-Kendall test finds it drifting
+  (:mod:`analysis.lap_kpis`); change = Theil-Sen slope times (laps - 1).
 - ``decide_on = "estimate"`` (default: the difference itself is held against the
   limit) or ``"interval"`` (a limit is broken only when the whole 95% interval
   lies beyond it, i.e. the excess is clear of run-to-run noise).
@@ -28,7 +33,9 @@ from analysis.compare.bootstrap import LEVEL, WORSE
 from analysis.compare.compare import Comparison, KpiRow
 from analysis.compare.course_kpis import METRICS
 from analysis.errors import CompareError
+from analysis.lap_kpis import LAP_KPI_KEYS
 
+DRIFT_SUFFIX = "_drift_max"
 LIMIT_SUFFIXES = ("_increase_max_pct", "_drop_max_pct", "_increase_max", "_drop_max")
 DECIDE_ON = ("estimate", "interval")
 
@@ -45,7 +52,7 @@ class Rule:
         KPI key or metric name it applies to ("falls" for new_falls_allowed).
     kind : str
         ``increase_max``, ``drop_max``, ``increase_max_pct``, ``drop_max_pct``,
-        ``no_new_falls`` or ``no_worse``.
+        ``no_new_falls``, ``no_worse`` or ``drift_max``.
     limit : float
         Limit in the KPI unit, or percent of A. [KPI unit or %]
     """
@@ -119,7 +126,8 @@ def gate_from_mapping(data: Mapping[str, Any], where: str = "gate file") -> Gate
     rules: list[Rule] = []
     valid = (
         f"<kpi>{'|'.join(LIMIT_SUFFIXES)} with <kpi> one of {', '.join(METRICS)} "
-        f"(optionally '<channel>.'), new_falls_allowed, no_worse, decide_on"
+        f"(optionally '<channel>.'), <lap kpi>{DRIFT_SUFFIX} with <lap kpi> one of "
+        f"{', '.join(LAP_KPI_KEYS)}, new_falls_allowed, no_worse, decide_on"
     )
     for key, value in flat.items():
         if key == "new_falls_allowed":
@@ -142,26 +150,70 @@ def gate_from_mapping(data: Mapping[str, Any], where: str = "gate file") -> Gate
                     )
                 rules.append(Rule(key, name, "no_worse", 0.0))
             continue
+        if key.endswith(DRIFT_SUFFIX) and key[: -len(DRIFT_SUFFIX)] in LAP_KPI_KEYS:
+            rules.append(
+                Rule(key, key[: -len(DRIFT_SUFFIX)], "drift_max", _limit(where, key, value))
+            )
+            continue
         suffix = next((s for s in LIMIT_SUFFIXES if key.endswith(s)), None)
         target = key[: -len(suffix)] if suffix else ""
         if suffix is None or _metric_of(target) not in METRICS:
             raise CompareError(f"{where}: unknown gate key {key!r}. Valid keys: {valid}.")
-        if (
-            isinstance(value, bool)
-            or not isinstance(value, int | float)
-            or not math.isfinite(value)
-        ):
-            raise CompareError(f"{where}: {key} must be a finite number, found {value!r}.")
-        if value < 0:
-            raise CompareError(
-                f"{where}: {key} must be >= 0 (it is the largest change allowed), found {value!r}."
-            )
-        rules.append(Rule(key, target, suffix.lstrip("_"), float(value)))
+        rules.append(Rule(key, target, suffix.lstrip("_"), _limit(where, key, value)))
     if not rules:
         raise CompareError(
             f"{where} has no rules; an empty gate would pass anything. Keys: {valid}."
         )
     return Gate(tuple(rules), decide_on)
+
+
+def _limit(where: str, key: str, value: Any) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        raise CompareError(f"{where}: {key} must be a finite number, found {value!r}.")
+    if value < 0:
+        raise CompareError(
+            f"{where}: {key} must be >= 0 (it is the largest change allowed), found {value!r}."
+        )
+    return float(value)
+
+
+def _check_drift(rule: Rule, comparison: Comparison) -> list[GateCheck]:
+    """A drift rule on every B run of a lap-by-lap comparison."""
+    laps = comparison.laps
+    if not laps:
+        return [
+            GateCheck(
+                rule.key, rule.target, True,
+                f"{rule.key}: cannot check the drift of {rule.target}: this comparison is not lap "
+                f"by lap (the runs are not laps of one loop); a gate does not pass what it cannot "
+                f"check.",
+            )
+        ]  # fmt: skip
+    out = []
+    for run in comparison.runs_b:
+        rid = run["run"]
+        d = laps["runs"].get(rid, {}).get("drift", {}).get(rule.target)
+        if not d or d.get("verdict") == "not run":
+            out.append(GateCheck(rule.key, rule.target, True,
+                                 f"{rule.key}: {rule.target} of run {rid} was not run; cannot check."))  # fmt: skip
+            continue
+        change = d.get("change")
+        size = abs(change) if change is not None else math.nan
+        broken = d["verdict"] == WORSE and not size <= rule.limit
+        p = d.get("p")
+        p_s = "n/a" if p is None else f"{p:.3g}"
+        unit = "" if d.get("unit") in ("-", "count", "", None) else f" {d['unit']}"
+        what = (
+            f"drifts {d['direction']} ({d['verdict']}) by {_fmt(size)}{unit} over {d['n']} laps"
+            if d.get("drifts")
+            else f"shows no drift over {d['n']} laps (change {_fmt(size)}{unit})"
+        )
+        out.append(
+            GateCheck(rule.key, rule.target, broken,
+                      f"{rule.key}: {d['label']} of run {rid} {what} (Mann-Kendall p = {p_s}; "
+                      f"limit {_fmt(rule.limit)}{unit})")
+        )  # fmt: skip
+    return out
 
 
 def _matching(rows: list[KpiRow], target: str) -> list[KpiRow]:
@@ -223,6 +275,9 @@ def check_gate(comparison: Comparison, gate: Gate) -> list[GateCheck]:
     level_pct = f"{100 * float(comparison.settings.get('level', LEVEL)):g}%"
     checks: list[GateCheck] = []
     for rule in gate.rules:
+        if rule.kind == "drift_max":
+            checks.extend(_check_drift(rule, comparison))
+            continue
         matched = _matching(rows, rule.target)
         if not matched:
             checks.append(

@@ -14,12 +14,14 @@ import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 
 from analysis import __version__, catalogue
+from analysis.archive.courses import course_start_line
 from analysis.archive.files import FrameWriter, RowGroupCache
 from analysis.archive.fleet import (
     delete_fleet_rows,
@@ -36,6 +38,8 @@ from analysis.detect.saturation import detect_saturation
 from analysis.detect.slip import detect_slip
 from analysis.detect.tipover import detect_tip_margin
 from analysis.events import DetectorResult, Event, events_frame
+from analysis.lap_kpis import lap_report
+from analysis.laps import find_laps
 from analysis.overview import build_overview
 from analysis.profile import RobotProfile, Thresholds
 
@@ -53,7 +57,7 @@ if TYPE_CHECKING:
     from analysis.archive.store import Archive
 
 #: Bumped whenever a detector's definition changes, so stored results say what made them.
-ANALYSIS_VERSION = f"{__version__}+detectors.4"
+ANALYSIS_VERSION = f"{__version__}+detectors.4+laps.1"
 
 Detector = Callable[[pd.DataFrame, RobotProfile, Thresholds | None], DetectorResult]
 
@@ -97,6 +101,7 @@ class AnalysisResult:
     skipped: list[dict[str, str]]
     notes: dict[str, list[str]]
     thresholds: dict[str, float]
+    laps: dict[str, Any] = field(default_factory=dict)
     version: str = ANALYSIS_VERSION
     analysed_at: str = field(
         default_factory=lambda: datetime.now(UTC).isoformat(timespec="seconds")
@@ -114,6 +119,7 @@ class AnalysisResult:
                 "analysis_version": self.version,
                 "analysed_at": self.analysed_at,
                 "event_counts": _count_events(self.events),
+                "laps": self.laps,
             }
         )
 
@@ -149,6 +155,7 @@ def analyse_frame(
     profile: RobotProfile,
     thresholds: Thresholds | None = None,
     progress: Progress | None = None,
+    lap_start_m: float | None = None,
 ) -> AnalysisResult:
     """Run every detector on one analysis frame.
 
@@ -162,6 +169,8 @@ def analyse_frame(
         Overrides ``profile.thresholds``.
     progress : callable, optional
         Called with (fraction done [-], message).
+    lap_start_m : float, optional
+        Start line of the laps, from the run's start (stored for its course). [m]
 
     Returns
     -------
@@ -195,9 +204,19 @@ def analyse_frame(
                 )
             extra = extra.loc[:, [c for c in extra.columns if c not in series.columns]]
             series = pd.concat([series, extra.reset_index(drop=True)], axis=1)
+    events.sort(key=lambda e: (e.start_s, e.kind, e.channel or ""))
+    if progress:
+        progress(0.98, "finding laps")
+    laps = lap_report(
+        frame,
+        series,
+        events,
+        profile,
+        find_laps(frame, profile, lap_start_m),
+        [s["detector"] for s in skipped],
+    )
     if progress:
         progress(1.0, "analysis done")
-    events.sort(key=lambda e: (e.start_s, e.kind, e.channel or ""))
     return AnalysisResult(
         events=events,
         kpis=kpis,
@@ -205,6 +224,7 @@ def analyse_frame(
         skipped=skipped,
         notes=notes,
         thresholds=th.to_file_dict(),
+        laps=laps,
     )
 
 
@@ -256,7 +276,8 @@ def analyse_run(
             )
     del t_all
     frame = archive.load_frame(run_id)
-    result = analyse_frame(frame, profile, thresholds, progress)
+    start = course_start_line(archive.root, archive.get_meta(run_id).get("course"))
+    result = analyse_frame(frame, profile, thresholds, progress, lap_start_m=start)
     if fallback:
         result.notes.setdefault("pipeline", []).append(fallback)
     events = events_frame(result.events)
@@ -301,6 +322,7 @@ def _analyse_run_chunked(
         writer.close()
         if progress:
             progress(1.0, "analysis done")
+        laps = _laps_of_chunked_run(archive, run_id, profile, done, path, t_all.size)
         result = AnalysisResult(
             events=done.events,
             kpis=done.kpis,
@@ -308,6 +330,7 @@ def _analyse_run_chunked(
             skipped=done.skipped,
             notes=done.notes,
             thresholds=th.to_file_dict(),
+            laps=laps,
         )
         events = events_frame(result.events)
         summary = result.summary(run_id)
@@ -318,6 +341,39 @@ def _analyse_run_chunked(
         archive.root, run_id, archive.get_meta(run_id), events, result.kpis, results_stamp(summary)
     )
     return result
+
+
+#: Most samples a chunked run may have for its laps to be found (the lap KPIs need the
+#: whole run's frame and derived series at once: about 1.4 h at 400 Hz). [-]
+MAX_LAP_SAMPLES = 2_000_000
+
+
+def _laps_of_chunked_run(
+    archive: Archive,
+    run_id: str,
+    profile: RobotProfile,
+    done: Any,
+    series_path: Path,
+    n_samples: int,
+) -> dict[str, Any]:
+    """Laps and per-lap KPIs of a run analysed in chunks, when it is short enough."""
+    if n_samples > MAX_LAP_SAMPLES:
+        done.notes.setdefault("laps", []).append(
+            f"Laps were not looked for: the run has {n_samples:,} samples, more than the "
+            f"{MAX_LAP_SAMPLES:,} the lap KPIs can hold in memory at once."
+        )
+        return {}
+    frame = archive.load_frame(run_id)
+    series = pd.read_parquet(series_path)
+    start = course_start_line(archive.root, archive.get_meta(run_id).get("course"))
+    return lap_report(
+        frame,
+        series,
+        done.events,
+        profile,
+        find_laps(frame, profile, start),
+        [s["detector"] for s in done.skipped],
+    )
 
 
 def sync_fleet(archive: Archive) -> list[str]:

@@ -14,6 +14,7 @@ from fastapi.responses import HTMLResponse
 
 from analysis.archive.store import Archive
 from analysis.compare.compare import compare_archived
+from analysis.compare.lap_compare import display_lap_table
 from analysis.compare.segments import BLOCK_M
 from analysis.compare.view import overlay
 from analysis.errors import CompareError
@@ -82,7 +83,12 @@ def compare(
     segment with B - A, 95% interval and verdict) and ``charts`` (overlay traces
     of both versions against course position, events, segment boundaries)."""
     comp, runs_a, runs_b = _run(archive, a, b, marks, seed, n_boot)
-    return {"comparison": comp.to_dict(), "charts": overlay(comp, runs_a, runs_b)}
+    out = comp.to_dict()
+    return {
+        "comparison": out,
+        "charts": overlay(comp, runs_a, runs_b),
+        "laps_shown": display_lap_table(out["laps"]),
+    }
 
 
 @router.get("/report", response_class=HTMLResponse)

@@ -19,6 +19,7 @@ from analysis.archive.store import Archive
 from analysis.detect.limits import not_run
 from analysis.detect.pipeline import analyse_run, headline_kpis, load_analysis
 from analysis.display import display_event_peak, display_headline
+from analysis.lap_kpis import display_laps
 from analysis.profile import Thresholds
 from server.deps import ApiError, forget_run, get_archive, get_jobs, require_write
 from server.jobs import JobManager, Progress
@@ -90,6 +91,7 @@ def get_run(run_id: str, archive: ArchiveDep) -> dict[str, Any]:
         "analysis": analysis,
         "headline": headline,
         "headline_shown": display_headline(headline),
+        "laps_shown": display_laps(analysis.get("laps")) if analysis is not None else None,
         "not_run": not_run(analysis) if analysis is not None else None,
     }
 

@@ -23,6 +23,7 @@ from analysis.ingest.map_template import FileHeader, template
 from analysis.ingest.read import inspect_file
 from analysis.ingest.stream import DEFAULT_MAX_TEXT_BYTES, ingest_files
 from analysis.profile import load_profile
+from server.cli.laps_text import lap_lines
 from server.cli.main import add_data_option, data_dir
 
 
@@ -216,9 +217,12 @@ def cmd_runs(args: argparse.Namespace) -> int:
 
 def cmd_show(args: argparse.Namespace) -> int:
     """``outrigger show``."""
-    meta = Archive(data_dir(args)).get_meta(args.run)
+    archive = Archive(data_dir(args))
+    meta = archive.get_meta(args.run)
+    stored = archive.read_results(args.run)
+    laps = stored[1].get("laps") if stored is not None else None
     if args.json:
-        print(json.dumps(meta, indent=1))
+        print(json.dumps({**meta, "laps": laps}, indent=1))
         return 0
     for key in ("run_id", "name", "course", "controller", "date", "tags", "notes"):
         print(f"{key:12s} {meta.get(key)}")
@@ -231,6 +235,8 @@ def cmd_show(args: argparse.Namespace) -> int:
         print(f"{'source':12s} {name} sha256 {digest[:16]}...")
     print("ingest report:")
     print("\n".join(_short_report(meta.get("ingest_report", {}))))
+    if stored is not None:
+        print("\n".join(lap_lines(laps)))
     return 0
 
 

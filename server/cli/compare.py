@@ -18,13 +18,21 @@ import tomllib
 from pathlib import Path
 from typing import Any
 
-from analysis.archive.courses import course_marks, delete_course_marks, save_course_marks
+from analysis.archive.courses import (
+    course_marks,
+    course_start_line,
+    delete_course_marks,
+    delete_start_line,
+    save_course_marks,
+    save_start_line,
+)
 from analysis.archive.store import Archive
 from analysis.compare.compare import Comparison, KpiRow, compare_archived
 from analysis.compare.gate import GateCheck, check_gate, gate_from_mapping
 from analysis.compare.segments import BLOCK_M
 from analysis.compare.view import overlay
 from analysis.errors import CompareError
+from server.cli.laps_text import compare_lap_lines
 from server.cli.main import add_data_option, data_dir
 from server.report import build_report
 
@@ -59,6 +67,11 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         default=BLOCK_M,
         help=f"bootstrap block length in metres ({BLOCK_M})",
     )
+    p.add_argument(
+        "--whole-runs",
+        action="store_true",
+        help="compare multi-lap runs whole instead of lap by lap",
+    )
     p.add_argument("--n-boot", type=int, default=2000, help="bootstrap replicates (2000)")
     p.add_argument("--seed", type=int, default=0, help="random seed of the bootstrap (0)")
     add_data_option(p)
@@ -78,6 +91,21 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     add_data_option(m)
     m.set_defaults(func=run_course_marks)
 
+    s = sub.add_parser(
+        "start-line",
+        help="store, show or clear the start line of a loop course (where each lap starts)",
+        description=(
+            "The start line of a closed loop, as metres of odometry from where the course's "
+            "runs start. Re-analyse the runs (`outrigger analyse-all --course COURSE`) to find "
+            "their laps from it; comparisons of the course use it too. Without METRES, show it."
+        ),
+    )
+    s.add_argument("course", metavar="COURSE", help="course name as given at ingest")
+    s.add_argument("metres", metavar="METRES", nargs="?", type=float, help="e.g. 12.5")
+    s.add_argument("--clear", action="store_true", help="forget the course's start line")
+    add_data_option(s)
+    s.set_defaults(func=run_start_line)
+
 
 def run_course_marks(args: argparse.Namespace) -> int:
     """Store, show or clear a course's distance marks."""
@@ -95,6 +123,29 @@ def run_course_marks(args: argparse.Namespace) -> int:
         print(f"{args.course}: no marks stored; comparisons split it at curvature changes")
     else:
         print(f"{args.course}: marks at " + ", ".join(f"{x:g} m" for x in marks))
+    return 0
+
+
+def run_start_line(args: argparse.Namespace) -> int:
+    """Store, show or clear a course's start line."""
+    root = Archive(data_dir(args)).root
+    if args.clear:
+        had = delete_start_line(root, args.course)
+        print(
+            f"{args.course}: start line cleared"
+            if had
+            else f"{args.course}: no start line was stored"
+        )
+        return 0
+    if args.metres is not None:
+        path = save_start_line(root, args.course, args.metres)
+        print(f"{args.course}: start line stored in {path}; re-analyse the course's runs to use it")
+        return 0
+    start = course_start_line(root, args.course)
+    if start is None:
+        print(f"{args.course}: no start line stored; laps start where each run starts")
+    else:
+        print(f"{args.course}: start line {start:g} m from a run's start")
     return 0
 
 
@@ -179,6 +230,9 @@ def _print_text(comp: Comparison, checks: list[GateCheck] | None) -> None:
         for seg in comp.segments:
             print(f"\nSegment {seg.name} ({seg.kind}, {seg.start_m:.1f}-{seg.end_m:.1f} m)")
             print(_table(comp.segment_kpis[seg.name]))
+    if comp.laps:
+        print()
+        print("\n".join(compare_lap_lines(comp.laps)))
     for note in comp.notes:
         print(f"\nNote: {note}")
     if checks is not None:
@@ -198,7 +252,7 @@ def run_compare(args: argparse.Namespace) -> int:
     archive = Archive(data_dir(args))
     comp, runs_a, runs_b = compare_archived(
         archive, ids_a, ids_b, marks_m=_marks(args.marks), block_m=args.block_m,
-        n_boot=args.n_boot, seed=args.seed,
+        n_boot=args.n_boot, seed=args.seed, laps=not args.whole_runs,
     )  # fmt: skip
     checks = check_gate(comp, gate) if gate else None
     if args.report:

@@ -134,6 +134,36 @@ function showSegments(comp) {
 }
 
 // ----- charts ---------------------------------------------------------------------
+// Lap by lap: each version's mean per lap number, B − A, and each run's drift (shown units).
+function showLaps(laps) {
+  const card = document.getElementById("laps-card");
+  card.hidden = !laps;
+  if (!laps) return;
+  const keys = ["lap_time", "min_tip_margin", "roll_error_rms", "energy"];
+  const defs = Object.fromEntries(laps.kpi_defs.map((d) => [d.key, d]));
+  document.getElementById("laps-facts").textContent =
+    `Every lap aligned on its own on the reference lap (${fmt(laps.course_m, 4)} m); whole laps are the bootstrap's replicates. Mean of each version's runs per lap number.`;
+  const unit = (d) => (d.unit && d.unit !== "-" && d.unit !== "count" ? ` [${d.unit}]` : "");
+  const head = el("tr", {}, el("th", { className: "num" }, "Lap"));
+  for (const k of keys) for (const side of ["A", "B", "B − A"]) head.append(el("th", { className: "num" }, `${defs[k].label.split(",")[0]} ${side}${unit(defs[k])}`));
+  const body = el("tbody");
+  for (const entry of laps.by_lap) {
+    const tr = el("tr", { dataset: { lap: String(entry.lap) } }, el("td", { className: "num" }, String(entry.lap)));
+    for (const k of keys) for (const side of ["a", "b", "diff"]) tr.append(el("td", { className: "num" }, fmt(entry.kpis[k][side], 4)));
+    body.append(tr);
+  }
+  document.getElementById("laps-table").replaceChildren(el("thead", {}, head), body);
+  const items = [];
+  for (const [rid, rep] of Object.entries(laps.runs)) {
+    const drifting = Object.entries(rep.drift || {}).filter(([, d]) => d.drifts);
+    const text = drifting.length
+      ? drifting.map(([k, d]) => `${defs[k].label}: ${d.verdict}, ${d.change > 0 ? "+" : ""}${fmt(d.change, 3)}${unit(d)} over the run (p = ${fmt(d.p, 2)})`).join("; ")
+      : "no KPI drifts";
+    items.push(el("li", {}, `Run ${rid} (${rep.kpis.length} laps): ${text}`));
+  }
+  document.getElementById("laps-drift").replaceChildren(...items);
+}
+
 function charts(data) {
   const box = document.getElementById("charts");
   box.replaceChildren();
@@ -204,6 +234,7 @@ async function load() {
     showRuns(comp);
     kpiTable(document.getElementById("kpi-table"), comp.kpis);
     showSegments(comp);
+    showLaps(data.laps_shown);
     await charts(data.charts);
     reportLink.href = `/api/compare/report?${q}`;
     reportLink.hidden = false;

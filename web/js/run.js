@@ -2,6 +2,7 @@
 // ingest report, skipped detectors, thresholds and re-analysis, edit and delete.
 import { el, fmt, fmtDuration, getJSON, readJSON, sendJSON, serverInfo, showError, waitForJob } from "./api.js";
 import { badges } from "./kpis.js";
+import { lapCard, lapStrip } from "./laps.js";
 import { initLayout } from "./layout.js";
 import { eventColour, eventLegend, kindLabel } from "./palette.js";
 import { Timelines } from "./timeline.js";
@@ -332,11 +333,15 @@ async function load() {
   });
   showHead(run);
   showKpis(data.headline, data.headline_shown, analysis, data.not_run);
+  lapStrip(document.getElementById("lap-strip"), data.laps_shown, (range) => {
+    if (timelines) timelines.setRange(timelines.clamp(range));
+  });
   // The event list (hundreds of rows on a long run) and the rest of the page are built
   // once the charts are drawn: building and laying them out first held the charts back.
   await drawn.catch(() => {});
   showEvents();
   showDetectors(analysis);
+  lapCard(document.getElementById("lap-card"), data.laps_shown);
   showIngest(run);
   const info = await infoRequest;
   const legend = document.getElementById("legend");
