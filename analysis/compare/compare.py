@@ -5,8 +5,10 @@ profile) of version A and of version B in, a :class:`Comparison` out. Every run
 is aligned on the first A run's course (:mod:`analysis.compare.align`), the course is
 split into segments (:mod:`analysis.compare.segments`) and blocks, each KPI
 (:mod:`analysis.compare.course_kpis`) is computed overall and per segment, and each
-difference B - A gets a percentile block-bootstrap interval and a verdict
-(:mod:`analysis.compare.bootstrap`). When the runs do not look like one course, the
+difference B - A gets an interval and a verdict (:mod:`analysis.compare.table`):
+over runs as replicate units when each version has at least two, else from the
+blocks of one run (within-run spread only), corrected for the many cells by the
+false discovery rate. When the runs do not look like one course, the
 per-segment comparison is refused with the reason, and the overall KPIs are
 compared with each run cut into its own blocks, resampled independently.
 
@@ -32,25 +34,13 @@ import pandas as pd
 from analysis import catalogue as cat
 from analysis.archive.courses import course_marks
 from analysis.compare.align import Alignment, CourseTrace, align_traces, course_trace, forward_speed
-from analysis.compare.bootstrap import (
-    LEVEL,
-    N_BOOT,
-    Difference,
-    Pieces,
-    bootstrap_difference,
-    bootstrap_runs,
-    verdict,
-)
-from analysis.compare.course_kpis import (
-    KpiDef,
-    RunData,
-    block_pieces,
-    kpi_definitions,
-    tip_edges,
-)
+from analysis.compare.bootstrap import LEVEL, N_BOOT
+from analysis.compare.course_kpis import RunData
+from analysis.compare.replicates import ReplicateUnit
 from analysis.compare.segments import BLOCK_M, MIN_BLOCKS_PER_SEGMENT, Segment, block_edges
 from analysis.compare.segments import segment_course as _segment_course
 from analysis.compare.segments import segments_from_marks as _segments_from_marks
+from analysis.compare.table import SPEED_SHARE, KpiRow, compare_units
 from analysis.errors import CompareError
 from analysis.events import Event
 from analysis.metrics import lag_by_xcorr
@@ -58,34 +48,15 @@ from analysis.metrics import lag_by_xcorr
 if TYPE_CHECKING:
     from analysis.archive.store import Archive
 
-__all__ = ["Comparison", "KpiRow", "RunData", "compare_archived", "compare_runs", "run_data"]
-
-
-@dataclass(frozen=True)
-class KpiRow:
-    """One KPI of the comparison: both values, the difference, its interval and verdict."""
-
-    key: str
-    metric: str
-    channel: str | None
-    label: str
-    unit: str
-    better: str
-    a: float
-    b: float
-    diff: float
-    diff_pct: float
-    low: float
-    high: float
-    verdict: str
-    n_blocks: int
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON shape (NaN becomes None)."""
-        out: dict[str, Any] = {}
-        for k, v in self.__dict__.items():
-            out[k] = None if isinstance(v, float) and not math.isfinite(v) else v
-        return out
+__all__ = [
+    "Comparison",
+    "KpiRow",
+    "ReplicateUnit",
+    "RunData",
+    "compare_archived",
+    "compare_runs",
+    "run_data",
+]
 
 
 @dataclass
@@ -166,16 +137,6 @@ def _describe(run: RunData) -> dict[str, Any]:
     }
 
 
-def _row(k: KpiDef, d: Difference) -> KpiRow:
-    low, high = d.low, d.high
-    pct = 100.0 * d.diff / abs(d.a) if np.isfinite(d.a) and d.a != 0 else float("nan")
-    return KpiRow(
-        key=k.key, metric=k.metric, channel=k.channel, label=k.label, unit=k.unit,
-        better=k.better, a=d.a, b=d.b, diff=d.diff, diff_pct=pct, low=low, high=high,
-        verdict=verdict(low, high, k.better), n_blocks=d.n_blocks,
-    )  # fmt: skip
-
-
 #: Below this peak correlation of roll with its reference a lag is not reported
 #: (common practice, no source): the peak of two weakly related signals is noise.
 MIN_LAG_CORRELATION = 0.5
@@ -215,6 +176,7 @@ def compare_runs(
     n_boot: int = N_BOOT,
     seed: int = 0,
     level: float = LEVEL,
+    speed_share: float = SPEED_SHARE,
 ) -> Comparison:
     """Compare the runs of version A with those of version B.
 
@@ -232,7 +194,11 @@ def compare_runs(
     seed : int
         Seed of the numpy Generator (same seed, same intervals). [-]
     level : float
-        Confidence level of the intervals. [-]
+        Confidence level of the intervals; the false discovery rate of the
+        calls is ``1 - level``. [-]
+    speed_share : float
+        Largest relative difference of mean speed in a cell before its
+        speed-dependent KPIs lose their verdict. [-]
 
     Returns
     -------
@@ -240,10 +206,11 @@ def compare_runs(
 
     Notes
     -----
-    Differences are B - A of the pooled KPI; intervals are percentile
-    block-bootstrap intervals ([1] Eq. 13.5, blocks [1] Section 8.6), paired
-    over course blocks when the runs share the course. A KPI is "better" or
-    "worse" only when its whole interval lies on one side of zero.
+    Each run is one replicate unit (:class:`analysis.compare.replicates.ReplicateUnit`);
+    :func:`analysis.compare.table.compare_units` does the statistics. With one
+    run of a version, intervals are percentile block-bootstrap intervals ([1]
+    Eq. 13.5, blocks [1] Section 8.6), paired over course blocks when the runs
+    share the course, and show the spread within a run only.
     """
     if not runs_a or not runs_b:
         raise CompareError(
@@ -259,7 +226,6 @@ def compare_runs(
     ids = [r.run_id for r in runs]
     traces: list[CourseTrace] = [course_trace(r.frame, r.profile) for r in runs]
     ref = traces[0]
-    notes: list[str] = []
     alignments: list[Alignment] = [align_traces(ref, tr) for tr in traces[1:]]
     refusal = None
     names = _course_names(runs)
@@ -296,56 +262,18 @@ def compare_runs(
         edges_of = [np.linspace(0.0, tr.length_m, n + 1) for tr in traces]
         positions = [tr.distance for tr in traces]
         owner = np.zeros(n, dtype=int)
-    kdefs = kpi_definitions(runs, tip_edges(runs))
-    pieces = [
-        block_pieces(r, pos, v, e, kdefs)
-        for r, pos, v, e in zip(runs, positions, speeds, edges_of, strict=True)
-    ]
+    units = [ReplicateUnit(r, pos, r.run_id) for r, pos in zip(runs, positions, strict=True)]
     n_a = len(runs_a)
 
-    def stack(part: list[dict[str, np.ndarray]]) -> Pieces:
-        data = {k: np.stack([p[k] for p in part]) for k in part[0]}
-        return Pieces(data, len(part), int(edges_of[0].size - 1))
+    def lag(unit: ReplicateUnit, a: float, b: float) -> float:
+        return _lag(unit.run, unit.position, a, b if same else np.inf)
 
-    pa, pb = stack(pieces[:n_a]), stack(pieces[n_a:])
-    rng = np.random.default_rng(seed)
-    rows: list[KpiRow] = []
-    seg_rows: dict[str, list[KpiRow]] = {s.name: [] for s in segments} if same else {}
-    for k in kdefs:
-        if k.stat is None:  # roll lag: one number per run, resampled over runs
-            lag_hi = hi if same else np.inf
-            lag_a = [_lag(r, p, lo, lag_hi) for r, p in zip(runs_a, positions[:n_a], strict=True)]
-            lag_b = [_lag(r, p, lo, lag_hi) for r, p in zip(runs_b, positions[n_a:], strict=True)]
-            rows.append(_row(k, bootstrap_runs(np.array(lag_a), np.array(lag_b), rng=rng,
-                                               n_boot=n_boot, level=level)))  # fmt: skip
-        else:
-            d = bootstrap_difference(k.stat, pa, pb, paired=same, rng=rng, n_boot=n_boot,
-                                     level=level)  # fmt: skip
-            rows.append(_row(k, d))
-        for i, seg in enumerate(segments if same else []):
-            if k.stat is None:
-                la = [_lag(r, p, seg.start_m, seg.end_m)
-                      for r, p in zip(runs_a, positions[:n_a], strict=True)]  # fmt: skip
-                lb = [_lag(r, p, seg.start_m, seg.end_m)
-                      for r, p in zip(runs_b, positions[n_a:], strict=True)]  # fmt: skip
-                d = bootstrap_runs(np.array(la), np.array(lb), rng=rng, n_boot=n_boot, level=level)
-            else:
-                blocks = np.flatnonzero(owner == i)
-                d = bootstrap_difference(k.stat, pa.subset(blocks), pb.subset(blocks),
-                                         paired=True, rng=rng, n_boot=n_boot, level=level)  # fmt: skip
-            seg_rows[seg.name].append(_row(k, d))
-    if any(k.stat is None for k in kdefs) and min(len(runs_a), len(runs_b)) < 2:
-        notes.append(
-            "The roll lag is one number per run; its interval needs at least two runs of each "
-            "version."
-        )
-    if any(k.stat is not None and k.stat.kind in ("max", "min") for k in kdefs):
-        notes.append(
-            "Intervals of extremes (peak slip speed, max roll error, minimum tip-over margin) are "
-            "indicative only: the bootstrap reproduces the spread of a sample maximum or minimum "
-            "poorly (Efron & Tibshirani 1993 show it failing for the maximum, from memory); "
-            "read them with the per-segment values."
-        )
+    table = compare_units(
+        units[:n_a], units[n_a:], segments=segments, edges=edges_of, owner=owner,
+        paired=same, stretch=(lo, hi), speeds=speeds, lag=lag, n_boot=n_boot, seed=seed,
+        level=level, speed_share=speed_share,
+    )  # fmt: skip
+    notes = list(table.notes)
     if not same:
         notes.append(
             "Runs are not on one course: overall KPIs cover each run's whole length and are "
@@ -363,15 +291,12 @@ def compare_runs(
         offsets={rid: float(off) for rid, off in zip(ids, offsets, strict=True)},
         stretch=(float(lo), float(hi)),
         segments=segments,
-        kpis=rows,
-        segment_kpis=seg_rows,
+        kpis=table.kpis,
+        segment_kpis=table.segment_kpis,
         notes=notes,
         settings={
-            "n_boot": n_boot,
-            "seed": seed,
-            "level": level,
+            **table.settings,
             "block_m": block_m,
-            "resampling": "paired course blocks, runs pooled" if same else "independent blocks",
             "segments_from": "distance marks" if marks_m is not None else "curvature",
         },
     )

@@ -8,6 +8,12 @@ A gate is a small table of our own keys (read from TOML by the command line):
 - ``<kpi>_increase_max_pct`` / ``<kpi>_drop_max_pct``: the same in percent of A.
 - ``new_falls_allowed = false``: B may not fall more often per run than A.
 - ``no_worse = ["roll_error_rms", ...]``: these KPIs may not get the verdict "worse".
+  The verdict is the corrected one (false discovery rate over the table, see
+  :mod:`analysis.compare.table`). An indicative extreme (peak slip speed,
+  minimum tip-over margin, max roll error) gets no verdict, so ``no_worse`` on
+  one is refused with that reason; bound it with a limit instead. A KPI whose
+  versions drove at clearly different speeds gets no verdict either, and its
+  ``no_worse`` rule is broken: a gate does not pass what it cannot check.
 - ``decide_on = "estimate"`` (default: the difference itself is held against the
   limit) or ``"interval"`` (a limit is broken only when the whole 95% interval
   lies beyond it, i.e. the excess is clear of run-to-run noise).
@@ -24,9 +30,9 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
-from analysis.compare.bootstrap import LEVEL, WORSE
+from analysis.compare.bootstrap import LEVEL, NO_VERDICT, WORSE
 from analysis.compare.compare import Comparison, KpiRow
-from analysis.compare.course_kpis import METRICS
+from analysis.compare.course_kpis import INDICATIVE_METRICS, METRICS
 from analysis.errors import CompareError
 
 LIMIT_SUFFIXES = ("_increase_max_pct", "_drop_max_pct", "_increase_max", "_drop_max")
@@ -140,6 +146,14 @@ def gate_from_mapping(data: Mapping[str, Any], where: str = "gate file") -> Gate
                     raise CompareError(
                         f"{where}: no_worse names unknown KPI {name!r}; KPIs: {', '.join(METRICS)}."
                     )
+                if _metric_of(name) in INDICATIVE_METRICS:
+                    raise CompareError(
+                        f"{where}: no_worse cannot hold {name!r}: it is an extreme of a run, "
+                        f"indicative only, and gets no better/worse verdict (its interval is "
+                        f"rough). Bound it with a limit instead, e.g. "
+                        f"{name}_{'drop' if _metric_of(name) == 'min_tip_margin' else 'increase'}"
+                        f"_max = <largest change allowed>."
+                    )
                 rules.append(Rule(key, name, "no_worse", 0.0))
             continue
         suffix = next((s for s in LIMIT_SUFFIXES if key.endswith(s)), None)
@@ -242,11 +256,14 @@ def check_gate(comparison: Comparison, gate: Gate) -> list[GateCheck]:
                               f"B {_fmt(row.b)}" + (" — B falls more often" if broken else ""))
                 )  # fmt: skip
             elif rule.kind == "no_worse":
-                broken = row.verdict == WORSE
+                unchecked = row.verdict == NO_VERDICT
+                broken = row.verdict == WORSE or unchecked
+                why = "; cannot check it, so the rule is broken" if unchecked else ""
                 checks.append(
                     GateCheck(rule.key, row.key, broken,
                               f"no_worse: {row.label} verdict '{row.verdict}' (B - A "
-                              f"{_fmt(row.diff)}, {level_pct} interval {_fmt(row.low)}..{_fmt(row.high)})")
+                              f"{_fmt(row.diff)}, {level_pct} interval {_fmt(row.low)}..{_fmt(row.high)}, "
+                              f"adjusted p {_fmt(row.q)}; rests on {row.basis}){why}")
                 )  # fmt: skip
             else:
                 checks.append(_check_limit(rule, row, gate.decide_on, level_pct))

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from analysis import catalogue as cat
-from analysis.compare.bootstrap import NO_CLEAR, WORSE
+from analysis.compare.bootstrap import NO_CLEAR, NO_VERDICT, WORSE
 from analysis.compare.compare import compare_runs
 from analysis.compare.gate import check_gate, gate_from_mapping
 from analysis.compare.view import overlay
@@ -30,7 +30,8 @@ def test_run_compared_with_itself(run_a) -> None:
     for row in comp.kpis + [r for rows in comp.segment_kpis.values() for r in rows]:
         # Identity: a run minus itself is 0 and its interval cannot exclude 0.
         assert row.diff == 0.0 or (np.isnan(row.a) and np.isnan(row.b)), row.key
-        assert row.verdict == NO_CLEAR, row.key
+        # Extremes are indicative: never judged, even against themselves.
+        assert row.verdict == (NO_VERDICT if row.indicative else NO_CLEAR), row.key
 
 
 def test_known_extra_roll_error_is_worse(run_a) -> None:
@@ -117,13 +118,16 @@ def test_shifted_start_is_aligned_and_compared_per_segment() -> None:
     assert set(comp.segment_kpis) == {s.name for s in comp.segments}
 
 
-def test_sets_of_runs_pooled() -> None:
-    runs_a = [make_run(f"a{i}", seed=10 + i) for i in range(2)]
-    runs_b = [make_run(f"b{i}", seed=20 + i, extra_roll_error=0.004) for i in range(2)]
+def test_sets_of_runs_rest_on_runs() -> None:
+    runs_a = [make_run(f"a{i}", seed=10 + i) for i in range(3)]
+    runs_b = [make_run(f"b{i}", seed=20 + i, extra_roll_error=0.004) for i in range(3)]
     comp = compare_runs(runs_a, runs_b, n_boot=N_BOOT)
     assert comp.same_course
-    assert comp.kpi("roll_error_rms").verdict == WORSE
-    # Two runs per version: the run-level roll lag gets an interval.
+    row = comp.kpi("roll_error_rms")
+    assert row.verdict == WORSE
+    assert row.basis.startswith("3 runs per version")
+    assert comp.settings["units_a"] == comp.settings["units_b"] == 3
+    # Three runs per version: the run-level roll lag gets an interval.
     lag = comp.kpi("roll_lag")
     assert np.isfinite(lag.low) and np.isfinite(lag.high)
 
@@ -228,9 +232,10 @@ def test_gate_interval_mode_and_no_worse(worse_comparison) -> None:
     )
     assert est[0].broken and not inter[0].broken
     nw = check_gate(
-        worse_comparison, gate_from_mapping({"no_worse": ["roll_error_rms", "min_tip_margin"]})
+        worse_comparison, gate_from_mapping({"no_worse": ["roll_error_rms", "tip_margin_p1"]})
     )
     assert [c.broken for c in nw] == [True, False]
+    assert "rests on 1 run per version: within-run spread only" in nw[0].message
 
 
 @pytest.mark.parametrize(
@@ -242,6 +247,8 @@ def test_gate_interval_mode_and_no_worse(worse_comparison) -> None:
         ({"new_falls_allowed": "no"}, "true or false"),
         ({"decide_on": "mood", "falls_increase_max": 0}, "decide_on must be one of"),
         ({}, "no rules"),
+        ({"no_worse": ["wheel_l.peak_slip_speed"]}, "indicative only"),
+        ({"no_worse": ["min_tip_margin"]}, "min_tip_margin_drop_max"),
     ],
 )
 def test_bad_gate_files_are_refused(table, message) -> None:
