@@ -128,8 +128,22 @@ class KpiRow:
 
     @property
     def tested(self) -> bool:
-        """Whether the row is one of the tests its table's correction counts."""
-        return not self.indicative and self.speed_flag is None and math.isfinite(self.p)
+        """Whether the row is one of the tests its table's correction counts.
+
+        Not counted: indicative extremes, speed-flagged cells, rows without a
+        p-value, and rows whose every value is the same in both versions (no
+        slip event, no fall in any block of any unit): their p-value is 1
+        whatever the labels, so leaving them out is a label-blind filter that
+        keeps the false discovery rate (Bourgon, Gentleman & Huber, PNAS 107,
+        2010, 9546-9551, doi:10.1073/pnas.0914005107).
+        """
+        constant = self.diff == 0.0 and self.low == 0.0 and self.high == 0.0
+        return (
+            not self.indicative
+            and self.speed_flag is None
+            and math.isfinite(self.p)
+            and not constant
+        )
 
     def to_dict(self) -> dict[str, Any]:
         """JSON shape (NaN becomes None)."""
@@ -137,6 +151,21 @@ class KpiRow:
         for k, v in self.__dict__.items():
             out[k] = None if isinstance(v, float) and not math.isfinite(v) else v
         return out
+
+
+def verdict_text(row: KpiRow) -> str:
+    """The verdict as people read it, with why a call was withheld.
+
+    ``worse``; ``no clear difference (worse before the correction for many
+    cells)``; ``no verdict (indicative)``; ``no verdict (speeds differ)``.
+    """
+    if row.indicative:
+        return f"{NO_VERDICT} (indicative)"
+    if row.speed_flag:
+        return f"{NO_VERDICT} (speeds differ)"
+    if row.verdict == NO_CLEAR and row.raw_verdict in (BETTER, WORSE):
+        return f"{NO_CLEAR} ({row.raw_verdict} before the correction for many cells)"
+    return row.verdict
 
 
 @dataclass

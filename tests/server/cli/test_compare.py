@@ -84,7 +84,9 @@ def test_compare_json_of_sets(archive, capsys) -> None:
     assert [r["run"] for r in data["runs_a"]] == ["a1", "a2"]
     assert data["same_course"] is True
     rows = {r["key"]: r for r in data["kpis"]}
-    assert rows["roll_error_rms"]["verdict"] == "worse"
+    assert rows["roll_error_iae"]["verdict"] == "worse"
+    assert rows["roll_error_iae"]["basis"].startswith("2 runs per version")
+    assert data["settings"]["resampling"].startswith("runs as units")
 
 
 def test_gate_exits_1_naming_each_broken_rule(archive, tmp_path, capsys) -> None:
