@@ -14,6 +14,12 @@ A gate is a small table of our own keys (read from TOML by the command line):
   one is refused with that reason; bound it with a limit instead. A KPI whose
   versions drove at clearly different speeds gets no verdict either, and its
   ``no_worse`` rule is broken: a gate does not pass what it cannot check.
+- ``min_runs_per_version = 3``: the comparison must rest on at least this many
+  runs (or laps, when it compares laps) of each version; fewer breaks the gate.
+  With one run per version an interval shows the spread within that run only,
+  and same-controller runs are then called different in many cells
+  (``benchmarks/bench_calibration.py``), so a gate meant to block real
+  regressions only should ask for replicates.
 - ``decide_on = "estimate"`` (default: the difference itself is held against the
   limit) or ``"interval"`` (a limit is broken only when the whole 95% interval
   lies beyond it, i.e. the excess is clear of run-to-run noise).
@@ -82,6 +88,7 @@ class Gate:
 
     rules: tuple[Rule, ...]
     decide_on: str = "estimate"
+    min_runs: int = 1
 
 
 def _flatten(table: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
@@ -118,6 +125,11 @@ def gate_from_mapping(data: Mapping[str, Any], where: str = "gate file") -> Gate
         raise CompareError(f"{where}: [gate] must be a table of rules.")
     flat = _flatten(table)
     decide_on = flat.pop("decide_on", "estimate")
+    min_runs = flat.pop("min_runs_per_version", 1)
+    if isinstance(min_runs, bool) or not isinstance(min_runs, int) or min_runs < 1:
+        raise CompareError(
+            f"{where}: min_runs_per_version must be a whole number >= 1, found {min_runs!r}."
+        )
     if decide_on not in DECIDE_ON:
         raise CompareError(
             f"{where}: decide_on must be one of {', '.join(DECIDE_ON)}, found {decide_on!r}."
@@ -125,7 +137,8 @@ def gate_from_mapping(data: Mapping[str, Any], where: str = "gate file") -> Gate
     rules: list[Rule] = []
     valid = (
         f"<kpi>{'|'.join(LIMIT_SUFFIXES)} with <kpi> one of {', '.join(METRICS)} "
-        f"(optionally '<channel>.'), new_falls_allowed, no_worse, decide_on"
+        f"(optionally '<channel>.'), new_falls_allowed, no_worse, min_runs_per_version, "
+        f"decide_on"
     )
     for key, value in flat.items():
         if key == "new_falls_allowed":
@@ -171,11 +184,11 @@ def gate_from_mapping(data: Mapping[str, Any], where: str = "gate file") -> Gate
                 f"{where}: {key} must be >= 0 (it is the largest change allowed), found {value!r}."
             )
         rules.append(Rule(key, target, suffix.lstrip("_"), float(value)))
-    if not rules:
+    if not rules and min_runs == 1:
         raise CompareError(
             f"{where} has no rules; an empty gate would pass anything. Keys: {valid}."
         )
-    return Gate(tuple(rules), decide_on)
+    return Gate(tuple(rules), decide_on, min_runs)
 
 
 def _matching(rows: list[KpiRow], target: str) -> list[KpiRow]:
@@ -236,6 +249,19 @@ def check_gate(comparison: Comparison, gate: Gate) -> list[GateCheck]:
     rows = comparison.kpis
     level_pct = f"{100 * float(comparison.settings.get('level', LEVEL)):g}%"
     checks: list[GateCheck] = []
+    if gate.min_runs > 1:
+        s = comparison.settings
+        n = min(int(s.get("units_a", 1)), int(s.get("units_b", 1)))
+        unit = str(s.get("unit", "run"))
+        checks.append(
+            GateCheck(
+                "min_runs_per_version", "runs", n < gate.min_runs,
+                f"min_runs_per_version = {gate.min_runs}: the comparison rests on "
+                f"{s.get('basis', f'{n} {unit}(s) per version')}"
+                + (f"; drive at least {gate.min_runs} {unit}s of each version" if n < gate.min_runs
+                   else ""),
+            )
+        )  # fmt: skip
     for rule in gate.rules:
         matched = _matching(rows, rule.target)
         if not matched:

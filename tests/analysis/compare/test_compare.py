@@ -273,3 +273,25 @@ def test_gate_messages_name_the_interval_level_used(run_a) -> None:
     gate = gate_from_mapping({"no_worse": ["roll_error_rms"]})
     messages = [c.message for c in check_gate(comp, gate)]
     assert messages and all("90% interval" in m for m in messages)
+
+
+def test_gate_can_ask_for_replicate_runs(worse_comparison) -> None:
+    gate = gate_from_mapping({"min_runs_per_version": 3, "no_worse": ["roll_error_iae"]})
+    checks = check_gate(worse_comparison, gate)
+    first = checks[0]
+    assert first.rule == "min_runs_per_version" and first.broken
+    assert "1 run per version: within-run spread only" in first.message
+    assert "drive at least 3 runs of each version" in first.message
+    # The requirement alone is a rule; a nonsense value is refused.
+    assert gate_from_mapping({"min_runs_per_version": 2}).min_runs == 2
+    with pytest.raises(CompareError, match="min_runs_per_version must be a whole number"):
+        gate_from_mapping({"min_runs_per_version": 0})
+
+
+def test_gate_on_three_runs_per_version_passes_the_runs_check() -> None:
+    runs_a = [make_run(f"a{i}", seed=50 + i) for i in range(3)]
+    runs_b = [make_run(f"b{i}", seed=60 + i) for i in range(3)]
+    comp = compare_runs(runs_a, runs_b, n_boot=N_BOOT)
+    checks = check_gate(comp, gate_from_mapping({"min_runs_per_version": 3}))
+    assert [c.broken for c in checks] == [False]
+    assert "3 runs per version" in checks[0].message
