@@ -55,6 +55,7 @@ from analysis.compare.course_kpis import KpiDef, block_pieces, kpi_definitions, 
 from analysis.compare.fdr import bh_adjust
 from analysis.compare.replicates import (
     MIN_UNITS,
+    UNIT_KINDS,
     ReplicateUnit,
     basis_text,
     unit_values,
@@ -272,6 +273,9 @@ def compare_units(
 ) -> KpiTable:
     """Every KPI of two versions' units, overall and per segment, with corrected verdicts.
 
+    Cuts each unit into its blocks (:func:`analysis.compare.course_kpis.block_pieces`)
+    and calls :func:`compare_pieces`.
+
     Parameters
     ----------
     units_a, units_b : sequence of ReplicateUnit
@@ -291,10 +295,8 @@ def compare_units(
         Forward speed of each unit's frame samples (A units first). [m/s]
     lag : callable
         ``lag(unit, lo, hi)``: the roll lag of one unit over a stretch, NaN when undefined. [s]
-    n_boot, seed, level : int, int, float
-        Bootstrap replicates, seed and confidence level.
-    speed_share : float
-        See :data:`SPEED_SHARE`. [-]
+    n_boot, seed, level, speed_share
+        See :func:`compare_pieces`.
 
     Returns
     -------
@@ -305,12 +307,9 @@ def compare_units(
             f"A comparison needs at least one unit of each version, found {len(units_a)} A "
             f"and {len(units_b)} B."
         )
-    if not speed_share > 0.0:
-        raise CompareError(f"The speed share must be > 0, found {speed_share!r}.")
     kinds = {u.kind for u in [*units_a, *units_b]}
     if len(kinds) > 1:
         raise CompareError(f"All units of a comparison must be of one kind, found {sorted(kinds)}.")
-    kind = kinds.pop()
     units = [*units_a, *units_b]
     runs = [u.run for u in units]
     kdefs = kpi_definitions(runs, tip_edges(runs))
@@ -319,17 +318,84 @@ def compare_units(
         block_pieces(u.run, u.position, v, e, kdefs)
         for u, v, e in zip(units, speeds, edges, strict=True)
     ]
-    n_a, n_b = len(units_a), len(units_b)
+    n_a = len(units_a)
     pa, pb = _stack(pieces[:n_a], n_blocks), _stack(pieces[n_a:], n_blocks)
+
+    def lags(version: str, lo: float, hi: float) -> np.ndarray:
+        return np.array([lag(u, lo, hi) for u in (units_a if version == "A" else units_b)])
+
+    return compare_pieces(
+        kdefs, pa, pb, kind=kinds.pop(), segments=segments, owner=owner, paired=paired,
+        stretch=stretch, lags=lags, n_boot=n_boot, seed=seed, level=level,
+        speed_share=speed_share,
+    )  # fmt: skip
+
+
+def compare_pieces(
+    kdefs: Sequence[KpiDef],
+    pieces_a: Pieces,
+    pieces_b: Pieces,
+    *,
+    kind: str,
+    segments: Sequence[Segment],
+    owner: np.ndarray,
+    paired: bool,
+    stretch: tuple[float, float],
+    lags: Callable[[str, float, float], np.ndarray],
+    n_boot: int = N_BOOT,
+    seed: int = 0,
+    level: float = LEVEL,
+    speed_share: float = SPEED_SHARE,
+) -> KpiTable:
+    """The KPI table from per-unit block pieces: the replicate-unit interface.
+
+    Parameters
+    ----------
+    kdefs : sequence of KpiDef
+        KPIs to compare (:func:`analysis.compare.course_kpis.kpi_definitions`).
+    pieces_a, pieces_b : Pieces
+        Block pieces of each version, one row per unit (run or lap) on shared
+        blocks; must hold ``dist`` and ``time``. With at least two rows on each
+        side the verdicts rest on the rows.
+    kind : str
+        ``"run"`` or ``"lap"``: what a row is (for the words).
+    segments : sequence of Segment
+        Course segments (empty: overall only).
+    owner : ndarray of int
+        Segment index of each block.
+    paired : bool
+        Blocks correspond between the versions (same course).
+    stretch : (float, float)
+        Course stretch of the overall rows. [m]
+    lags : callable
+        ``lags(version, lo, hi)`` with version ``"A"`` or ``"B"``: the roll lag of
+        each unit of that version over a stretch, NaN where undefined. [s]
+    n_boot : int
+        Bootstrap replicates (one-unit comparisons and indicative extremes). [-]
+    seed : int
+        Seed of the bootstrap. [-]
+    level : float
+        Confidence level; the false discovery rate is ``1 - level``. [-]
+    speed_share : float
+        See :data:`SPEED_SHARE`. [-]
+
+    Returns
+    -------
+    KpiTable
+    """
+    if kind not in UNIT_KINDS:
+        raise CompareError(f"Unknown replicate unit {kind!r}; use one of {UNIT_KINDS}.")
+    if not speed_share > 0.0:
+        raise CompareError(f"The speed share must be > 0, found {speed_share!r}.")
+    pa, pb = pieces_a, pieces_b
+    n_a, n_b = pa.n_runs, pb.n_runs
     on_units = min(n_a, n_b) >= MIN_UNITS
     basis = basis_text(n_a, n_b, kind)
     rng = np.random.default_rng(seed)
 
     def diff(k: KpiDef, xa: Pieces, xb: Pieces, lo: float, hi: float, pair: bool) -> Difference:
         if k.stat is None:  # one number per unit (roll lag)
-            la = np.array([lag(u, lo, hi) for u in units_a])
-            lb = np.array([lag(u, lo, hi) for u in units_b])
-            return welch_difference(la, lb, level)
+            return welch_difference(lags("A", lo, hi), lags("B", lo, hi), level)
         if on_units and not k.indicative:
             return welch_difference(unit_values(k.stat, xa), unit_values(k.stat, xb), level)
         return bootstrap_difference(k.stat, xa, xb, paired=pair, rng=rng, n_boot=n_boot,
