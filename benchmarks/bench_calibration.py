@@ -63,11 +63,14 @@ def false_calls(runs: Sequence[RunData], k: int, limit: int, n_boot: int, seed: 
     """False-call figures of ``k`` vs ``k`` comparisons among same-controller runs."""
     rng = np.random.default_rng(seed)
     splits = _splits(len(runs), k, limit, rng)
-    called = raw = tested = any_call = 0
+    called = raw = tested = any_call = overall_called = overall_tested = 0
     t0 = time.perf_counter()
     for a, b in splits:
         comp = compare_runs([runs[i] for i in a], [runs[i] for i in b], n_boot=n_boot)
         cells = _cells(comp)
+        overall = [r for r in comp.kpis if r.tested]
+        overall_called += sum(r.verdict in (BETTER, WORSE) for r in overall)
+        overall_tested += len(overall)
         n_called = sum(r.verdict in (BETTER, WORSE) for r in cells)
         called += n_called
         raw += sum(r.raw_verdict in (BETTER, WORSE) for r in cells)
@@ -80,6 +83,8 @@ def false_calls(runs: Sequence[RunData], k: int, limit: int, n_boot: int, seed: 
         "called": called,
         "raw": raw,
         "any": any_call,
+        "overall_called": overall_called,
+        "overall_tested": overall_tested,
         "seconds": time.perf_counter() - t0,
     }
 
@@ -122,14 +127,15 @@ def main() -> None:
           f"in {time.perf_counter() - t0:.1f} s")  # fmt: skip
     print("\nFalse calls among runs of one controller (every call is false)")
     print(f"{'runs/version':>12} {'comparisons':>11} {'tested cells':>12} {'called':>7} "
-          f"{'share':>7} {'raw share':>9} {'any call':>9} {'time':>7}")  # fmt: skip
+          f"{'share':>7} {'raw share':>9} {'any call':>9} {'overall rows':>13} {'time':>7}")  # fmt: skip
     for k in ks:
         if 2 * k > n_runs:
             continue
         f = false_calls(runs, k, limit, n_boot, seed=k)
         print(f"{f['k']:>12} {f['comparisons']:>11} {f['tested']:>12} {f['called']:>7} "
               f"{100 * f['called'] / f['tested']:>6.2f}% {100 * f['raw'] / f['tested']:>8.2f}% "
-              f"{f['any']:>4} of {f['comparisons']:<3} {f['seconds']:>6.1f}s")  # fmt: skip
+              f"{f['any']:>4} of {f['comparisons']:<3} "
+              f"{f['overall_called']:>5} of {f['overall_tested']:<5} {f['seconds']:>6.1f}s")  # fmt: skip
     print("\nPower: roll loop slower by s (natural frequency), roll error RMS called worse")
     print(f"{'runs/version':>12} {'s':>5} {'RMS change':>11} {'found':>10}")
     for k in (2, 3) if not args.full else (2, 3, 5):

@@ -74,6 +74,8 @@ def test_compare_prints_kpis(archive, capsys) -> None:
     out = capsys.readouterr().out
     assert code == 0
     assert "roll_error_rms [rad]" in out and "worse" in out
+    assert "Verdicts rest on: 1 run per version: within-run spread only" in out
+    assert "adj. p" in out and "no verdict (indicative)" in out
     assert "Segment S1" in out
 
 
@@ -141,6 +143,8 @@ def test_report_is_written_self_contained(archive, tmp_path, capsys) -> None:
     text = out.read_text(encoding="utf-8")
     assert "<script src=" not in text  # plotly.js inline, nothing fetched
     assert "Plotly" in text and "chart-0" in text
+    assert "Verdicts rest on: <strong>1 run per version: within-run spread only</strong>" in text
+    assert "no verdict (indicative)" in text and "adj. p" in text
     assert not list(tmp_path.glob(".report-*"))  # no temporary left behind
 
 
