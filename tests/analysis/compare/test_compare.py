@@ -295,3 +295,20 @@ def test_gate_on_three_runs_per_version_passes_the_runs_check() -> None:
     checks = check_gate(comp, gate_from_mapping({"min_runs_per_version": 3}))
     assert [c.broken for c in checks] == [False]
     assert "3 runs per version" in checks[0].message
+
+
+def test_cells_driven_at_different_speeds_get_no_verdict() -> None:
+    slow = make_run("slow", seed=1, speed=1.5)
+    fast = make_run("fast", seed=2, speed=1.8, extra_roll_error=0.004)
+    comp = compare_runs([slow], [fast], n_boot=N_BOOT)
+    row = comp.kpi("roll_error_rms")
+    # 1.8 against 1.5 m/s is 20 % faster, over the stated 10 %: the roll error difference
+    # may be the speed's, so no verdict, and the row says why.
+    assert row.speed_flag is not None and "20 %" in row.speed_flag
+    assert row.verdict == NO_VERDICT and not row.tested
+    assert row.speed_b / row.speed_a == pytest.approx(1.2, rel=0.02)
+    # The speed KPIs themselves are judged as usual.
+    assert comp.kpi("mean_speed").speed_flag is None
+    assert comp.kpi("mean_speed").verdict == "better"
+    checks = check_gate(comp, gate_from_mapping({"no_worse": ["roll_error_rms"]}))
+    assert checks[0].broken and "cannot check" in checks[0].message
