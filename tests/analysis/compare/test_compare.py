@@ -312,3 +312,19 @@ def test_cells_driven_at_different_speeds_get_no_verdict() -> None:
     assert comp.kpi("mean_speed").verdict == "better"
     checks = check_gate(comp, gate_from_mapping({"no_worse": ["roll_error_rms"]}))
     assert checks[0].broken and "cannot check" in checks[0].message
+
+
+def test_verdict_words_say_why_a_call_was_withheld(worse_comparison) -> None:
+    from dataclasses import replace
+
+    from analysis.compare.table import verdict_text
+
+    row = worse_comparison.kpi("roll_error_rms")
+    assert verdict_text(row) == "worse"
+    dropped = replace(row, verdict=NO_CLEAR)
+    assert (
+        verdict_text(dropped) == "no clear difference (worse before the correction for many cells)"
+    )
+    assert verdict_text(worse_comparison.kpi("min_tip_margin")) == "no verdict (indicative)"
+    flagged = replace(row, verdict=NO_VERDICT, speed_flag="mean speeds differ by 20 %")
+    assert verdict_text(flagged) == "no verdict (speeds differ)"
