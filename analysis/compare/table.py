@@ -4,16 +4,17 @@
 and of any comparison over other replicate units (laps): it takes the units of
 each version (:class:`analysis.compare.replicates.ReplicateUnit`) on shared
 course blocks and returns one :class:`KpiRow` per KPI, overall and per segment.
-Three things keep the verdicts honest ([1] Section "Replicates" of the design):
+Three things keep the verdicts honest:
 
 1. **Units.** With at least two units (runs, or laps) of each version the
    difference rests on them (:func:`analysis.compare.replicates.welch_difference`);
    with one, the block bootstrap of :mod:`analysis.compare.bootstrap` shows the
-   spread within that run only, and every row says so in ``basis``.
+   spread within that run only (pseudo-replication, [2]), and every row says so
+   in ``basis``.
 2. **Many cells.** The overall rows are one family of tests and the segment
    rows another; in each, calls are kept only where the Benjamini-Hochberg
    adjusted p-value is at most ``1 - level`` (false discovery rate 5 % at a 95 %
-   level; :mod:`analysis.compare.fdr`). ``raw_verdict`` keeps the uncorrected call.
+   level; [1], :mod:`analysis.compare.fdr`). ``raw_verdict`` keeps the uncorrected call.
 3. **Speed.** Tip-over margin, slip and roll error depend on the speed driven;
    where the mean speeds of the versions differ by more than ``speed_share`` of
    A's, a speed-dependent KPI gets no verdict in that cell (``speed_flag`` says why).
