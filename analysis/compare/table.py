@@ -218,7 +218,7 @@ def _row(
         key=k.key, metric=k.metric, channel=k.channel, label=k.label, unit=k.unit,
         better=k.better, a=d.a, b=d.b, diff=d.diff, diff_pct=_pct(d), low=d.low, high=d.high,
         verdict=NO_VERDICT if (k.indicative or flag) else raw, n_blocks=d.n_blocks,
-        raw_verdict=NO_VERDICT if k.indicative else raw, p=d.p, basis=basis_all,
+        raw_verdict=NO_VERDICT if k.indicative else raw, p=float("nan") if k.indicative else d.p, basis=basis_all,
         indicative=k.indicative, speed_a=va, speed_b=vb, speed_flag=flag,
     )  # fmt: skip
 

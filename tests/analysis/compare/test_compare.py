@@ -325,6 +325,8 @@ def test_verdict_words_say_why_a_call_was_withheld(worse_comparison) -> None:
     assert (
         verdict_text(dropped) == "no clear difference (worse before the correction for many cells)"
     )
-    assert verdict_text(worse_comparison.kpi("min_tip_margin")) == "no verdict (indicative)"
+    tip = worse_comparison.kpi("min_tip_margin")
+    assert verdict_text(tip) == "no verdict (indicative)"
+    assert np.isnan(tip.p) and np.isfinite(tip.low)  # a rough interval, but no test
     flagged = replace(row, verdict=NO_VERDICT, speed_flag="mean speeds differ by 20 %")
     assert verdict_text(flagged) == "no verdict (speeds differ)"
