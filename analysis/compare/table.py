@@ -205,6 +205,7 @@ def _row(
     k: KpiDef, d: Difference, basis: str, va: float, vb: float, share: float, level: float
 ) -> KpiRow:
     raw = verdict(d.low, d.high, k.better)
+    p = float("nan") if k.indicative else d.p  # an indicative extreme is not a test
     flag = None if k.indicative else _speed_flag(k, va, vb, share)
     if k.indicative:
         basis_all = f"{basis}; indicative extreme: rough interval, no verdict"
@@ -218,7 +219,7 @@ def _row(
         key=k.key, metric=k.metric, channel=k.channel, label=k.label, unit=k.unit,
         better=k.better, a=d.a, b=d.b, diff=d.diff, diff_pct=_pct(d), low=d.low, high=d.high,
         verdict=NO_VERDICT if (k.indicative or flag) else raw, n_blocks=d.n_blocks,
-        raw_verdict=NO_VERDICT if k.indicative else raw, p=float("nan") if k.indicative else d.p, basis=basis_all,
+        raw_verdict=NO_VERDICT if k.indicative else raw, p=p, basis=basis_all,
         indicative=k.indicative, speed_a=va, speed_b=vb, speed_flag=flag,
     )  # fmt: skip
 
