@@ -18,6 +18,7 @@ import plotly.io as pio
 from plotly.offline import get_plotlyjs
 
 from analysis.compare.compare import Comparison, KpiRow
+from analysis.compare.table import verdict_text
 
 #: Run colours, the same as the compare page (web/js/palette.js RUN_COLOURS):
 #: black and neutral grey, which no event kind uses.
@@ -62,7 +63,7 @@ def _kpi_table(rows: list[KpiRow]) -> str:
     head = (
         "<tr><th>KPI</th><th>Unit</th><th>Better</th><th class='num'>A</th>"
         "<th class='num'>B</th><th class='num'>B − A</th><th class='num'>%</th>"
-        "<th class='num'>95% interval</th><th>Verdict</th></tr>"
+        "<th class='num'>95% interval</th><th class='num'>adj. p</th><th>Verdict</th></tr>"
     )
     body = []
     for r in rows:
@@ -77,7 +78,8 @@ def _kpi_table(rows: list[KpiRow]) -> str:
             f"<td>{_esc(r.better)}</td><td class='num'>{_num(r.a)}</td>"
             f"<td class='num'>{_num(r.b)}</td><td class='num'>{_num(r.diff)}</td>"
             f"<td class='num'>{_num(r.diff_pct, 3)}</td><td class='num'>{interval}</td>"
-            f"<td class='{cls}'>{_esc(r.verdict)}</td></tr>"
+            f"<td class='num'>{_num(r.q, 2)}</td>"
+            f"<td class='{cls}' title='{_esc(r.basis)}'>{_esc(verdict_text(r))}</td></tr>"
         )
     return f"<table class='kpis'>{head}{''.join(body)}</table>"
 
@@ -171,11 +173,14 @@ def build_report(comparison: Comparison, view: dict[str, Any], title: str | None
         parts.append(f"<p class='note'>Alignment of {_esc(al['run'])}: {_esc(al['reason'])}</p>")
     s = comp.settings
     parts.append(
-        f"<p class='note'>Differences are B − A. Intervals: {_esc(int(s['level'] * 100))}% "
-        f"percentile block bootstrap ({_esc(s['resampling'])}, {_esc(s['n_boot'])} replicates, "
+        f"<p class='note' id='basis'>Verdicts rest on: <strong>{_esc(s.get('basis'))}</strong>. "
+        f"Differences are B − A. Intervals: {_esc(int(s['level'] * 100))}% "
+        f"({_esc(s['resampling'])}; bootstrap with {_esc(s['n_boot'])} replicates, "
         f"seed {_esc(s['seed'])}, blocks of about {_esc(s['block_m'])} m; Efron &amp; "
-        f"Tibshirani, An Introduction to the Bootstrap, 1993). A verdict is 'better' or "
-        f"'worse' only when the whole interval lies on one side of zero.</p>"
+        f"Tibshirani, An Introduction to the Bootstrap, 1993; Welch 1947). A verdict is "
+        f"'better' or 'worse' only when the whole interval lies on one side of zero and the "
+        f"call survives the Benjamini–Hochberg correction for the many cells of its table "
+        f"(adjusted p at most {_esc(s.get('fdr_q'))}; J. R. Stat. Soc. B 57, 1995).</p>"
     )
     parts.append("<h2>Overall</h2>" + _kpi_table(comp.kpis))
     for note in comp.notes:

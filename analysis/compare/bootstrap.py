@@ -38,6 +38,9 @@ LEVEL = 0.95
 BETTER = "better"
 WORSE = "worse"
 NO_CLEAR = "no clear difference"
+#: Verdict of a KPI that is not judged better or worse: an indicative extreme,
+#: or a cell whose versions drove at different speeds.
+NO_VERDICT = "no verdict"
 
 #: Kinds of KPI statistic and how the drawn pieces combine.
 STAT_KINDS = ("ratio", "rms", "total", "max", "min", "quantile")
@@ -232,7 +235,10 @@ class Difference:
         Percentile interval of ``b - a`` at the chosen level; NaN when there is
         none (too few blocks, or the KPI undefined in too many replicates). [KPI unit]
     n_blocks : int
-        Blocks resampled. [-]
+        Blocks resampled, or the fewer units of a comparison over units. [-]
+    p : float
+        Two-sided p-value of "no difference" that matches the interval (below
+        ``1 - level`` exactly when the interval excludes 0); NaN without one. [-]
     """
 
     a: float
@@ -241,6 +247,7 @@ class Difference:
     low: float
     high: float
     n_blocks: int
+    p: float = float("nan")
 
 
 def bootstrap_difference(
@@ -283,6 +290,16 @@ def bootstrap_difference(
     distribution of the replicates of ``b* - a*`` and ``alpha = (1 - level) / 2``
     ([1], Eq. 13.5). Replicates where the KPI is undefined (e.g. no time logged
     in the drawn blocks) are left out; if more than 5% are, there is no interval.
+    The p-value inverts the percentile interval: twice the smaller share of
+    replicates at or beyond 0 on either side, as ``(1 + count) / (1 + R)``
+    (Monte Carlo p-value, [2] Chapter 4), so that it is below ``1 - level``
+    about when the interval excludes 0 (achieved significance level, [1]
+    Chapter 16; chapters from memory).
+
+    References
+    ----------
+    .. [2] A. C. Davison and D. V. Hinkley, Bootstrap Methods and their
+       Application. Cambridge University Press, 1997. doi:10.1017/CBO9780511802843
     """
     if paired and pieces_a.n_blocks != pieces_b.n_blocks:
         raise CompareError(
@@ -307,8 +324,11 @@ def bootstrap_difference(
     if ok.mean() < 0.95:
         return Difference(a, b, b - a, nan, nan, n_blocks)
     alpha = 0.5 * (1.0 - level)
-    low, high = np.percentile(reps[ok], [100 * alpha, 100 * (1 - alpha)])  # [1] Eq. 13.5
-    return Difference(a, b, b - a, float(low), float(high), n_blocks)
+    good = reps[ok]
+    low, high = np.percentile(good, [100 * alpha, 100 * (1 - alpha)])  # [1] Eq. 13.5
+    tail = min(int(np.sum(good <= 0.0)), int(np.sum(good >= 0.0)))
+    p = min(1.0, 2.0 * (1.0 + tail) / (1.0 + good.size))  # [2] Chapter 4
+    return Difference(a, b, b - a, float(low), float(high), n_blocks, p=p)
 
 
 def bootstrap_runs(

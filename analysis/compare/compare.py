@@ -5,8 +5,10 @@ profile) of version A and of version B in, a :class:`Comparison` out. Every run
 is aligned on the first A run's course (:mod:`analysis.compare.align`), the course is
 split into segments (:mod:`analysis.compare.segments`) and blocks, each KPI
 (:mod:`analysis.compare.course_kpis`) is computed overall and per segment, and each
-difference B - A gets a percentile block-bootstrap interval and a verdict
-(:mod:`analysis.compare.bootstrap`). When the runs do not look like one course, the
+difference B - A gets an interval and a verdict (:mod:`analysis.compare.table`):
+over runs as replicate units when each version has at least two, else from the
+blocks of one run (within-run spread only), corrected for the many cells by the
+false discovery rate. When the runs do not look like one course, the
 per-segment comparison is refused with the reason, and the overall KPIs are
 compared with each run cut into its own blocks, resampled independently.
 
@@ -32,39 +34,20 @@ import pandas as pd
 from analysis import catalogue as cat
 from analysis.archive.courses import course_marks, course_start_line
 from analysis.compare.align import Alignment, CourseTrace, align_traces, course_trace, forward_speed
-from analysis.compare.bootstrap import (
-    LEVEL,
-    N_BOOT,
-    Difference,
-    Pieces,
-    bootstrap_difference,
-    bootstrap_runs,
-    verdict,
-)
-from analysis.compare.course_kpis import (
-    KpiDef,
-    RunData,
-    block_pieces,
-    kpi_definitions,
-    tip_edges,
-)
+from analysis.compare.bootstrap import LEVEL, N_BOOT, Pieces
+from analysis.compare.course_kpis import RunData, kpi_definitions, tip_edges
 from analysis.compare.lap_compare import (
     LapPlan,
     lap_report_table,
-    lap_units,
     lap_windows,
     pieces_by_lap,
     plan_laps,
 )
-from analysis.compare.segments import (
-    BLOCK_M,
-    MIN_BLOCKS_PER_SEGMENT,
-    STRAIGHT,
-    Segment,
-    block_edges,
-)
+from analysis.compare.replicates import ReplicateUnit
+from analysis.compare.segments import BLOCK_M, MIN_BLOCKS_PER_SEGMENT, Segment, block_edges
 from analysis.compare.segments import segment_course as _segment_course
 from analysis.compare.segments import segments_from_marks as _segments_from_marks
+from analysis.compare.table import SPEED_SHARE, KpiRow, compare_pieces, compare_units
 from analysis.errors import CompareError
 from analysis.events import Event
 from analysis.metrics import lag_by_xcorr
@@ -73,34 +56,15 @@ from analysis.profile import RobotProfile
 if TYPE_CHECKING:
     from analysis.archive.store import Archive
 
-__all__ = ["Comparison", "KpiRow", "RunData", "compare_archived", "compare_runs", "run_data"]
-
-
-@dataclass(frozen=True)
-class KpiRow:
-    """One KPI of the comparison: both values, the difference, its interval and verdict."""
-
-    key: str
-    metric: str
-    channel: str | None
-    label: str
-    unit: str
-    better: str
-    a: float
-    b: float
-    diff: float
-    diff_pct: float
-    low: float
-    high: float
-    verdict: str
-    n_blocks: int
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON shape (NaN becomes None)."""
-        out: dict[str, Any] = {}
-        for k, v in self.__dict__.items():
-            out[k] = None if isinstance(v, float) and not math.isfinite(v) else v
-        return out
+__all__ = [
+    "Comparison",
+    "KpiRow",
+    "ReplicateUnit",
+    "RunData",
+    "compare_archived",
+    "compare_runs",
+    "run_data",
+]
 
 
 @dataclass
@@ -200,16 +164,6 @@ def _describe(run: RunData) -> dict[str, Any]:
     }
 
 
-def _row(k: KpiDef, d: Difference) -> KpiRow:
-    low, high = d.low, d.high
-    pct = 100.0 * d.diff / abs(d.a) if np.isfinite(d.a) and d.a != 0 else float("nan")
-    return KpiRow(
-        key=k.key, metric=k.metric, channel=k.channel, label=k.label, unit=k.unit,
-        better=k.better, a=d.a, b=d.b, diff=d.diff, diff_pct=pct, low=low, high=high,
-        verdict=verdict(low, high, k.better), n_blocks=d.n_blocks,
-    )  # fmt: skip
-
-
 #: Below this peak correlation of roll with its reference a lag is not reported
 #: (common practice, no source): the peak of two weakly related signals is noise.
 MIN_LAG_CORRELATION = 0.5
@@ -254,6 +208,7 @@ def compare_runs(
     level: float = LEVEL,
     laps: bool = True,
     lap_start_m: float | None = None,
+    speed_share: float = SPEED_SHARE,
 ) -> Comparison:
     """Compare the runs of version A with those of version B.
 
@@ -271,7 +226,8 @@ def compare_runs(
     seed : int
         Seed of the numpy Generator (same seed, same intervals). [-]
     level : float
-        Confidence level of the intervals. [-]
+        Confidence level of the intervals; the false discovery rate of the
+        calls is ``1 - level``. [-]
     laps : bool
         Compare multi-lap runs lap by lap (:mod:`analysis.compare.lap_compare`)
         when the reference run is at least two laps of a loop; ``marks_m`` are
@@ -279,6 +235,9 @@ def compare_runs(
     lap_start_m : float, optional
         Start line of the laps, from the reference run's start (stored for the
         course). [m]
+    speed_share : float
+        Largest relative difference of mean speed in a cell before its
+        speed-dependent KPIs lose their verdict. [-]
 
     Returns
     -------
@@ -286,10 +245,11 @@ def compare_runs(
 
     Notes
     -----
-    Differences are B - A of the pooled KPI; intervals are percentile
-    block-bootstrap intervals ([1] Eq. 13.5, blocks [1] Section 8.6), paired
-    over course blocks when the runs share the course. A KPI is "better" or
-    "worse" only when its whole interval lies on one side of zero.
+    Each run is one replicate unit (:class:`analysis.compare.replicates.ReplicateUnit`);
+    :func:`analysis.compare.table.compare_units` does the statistics. With one
+    run of a version, intervals are percentile block-bootstrap intervals ([1]
+    Eq. 13.5, blocks [1] Section 8.6), paired over course blocks when the runs
+    share the course, and show the spread within a run only.
     """
     if not runs_a or not runs_b:
         raise CompareError(
@@ -305,7 +265,6 @@ def compare_runs(
     ids = [r.run_id for r in runs]
     traces: list[CourseTrace] = [course_trace(r.frame, r.profile) for r in runs]
     ref = traces[0]
-    notes: list[str] = []
     alignments: list[Alignment] = [align_traces(ref, tr) for tr in traces[1:]]
     refusal = None
     names = _course_names(runs)
@@ -371,96 +330,46 @@ def compare_runs(
         positions = [tr.distance for tr in traces]
         owner = np.zeros(n, dtype=int)
     n_a = len(runs_a)
-    if lap_pieces is None:
-        kdefs = kpi_definitions(runs, tip_edges(runs))
-        pieces = [
-            {k: x[None] for k, x in block_pieces(r, pos, v, e, kdefs).items()}
-            for r, pos, v, e in zip(runs, positions, speeds, edges_of, strict=True)
-        ]
-    else:
-        pieces = lap_pieces
-
-    def stack(part: list[dict[str, np.ndarray]]) -> Pieces:
-        # Replicates (runs, or the laps of every run) stacked along the first axis.
-        data = {k: np.concatenate([p[k] for p in part]) for k in part[0]}
-        n_units = int(next(iter(data.values())).shape[0])
-        return Pieces(data, n_units, int(edges_of[0].size - 1))
-
-    pa, pb = stack(pieces[:n_a]), stack(pieces[n_a:])
-    if lap_pieces is not None:
-        # The laps are the replicates: whole laps of each version resampled independently.
-        pa, pb = lap_units(pieces[:n_a], kdefs), lap_units(pieces[n_a:], kdefs)
-
-    seg_cache: dict[int, tuple[Pieces, Pieces]] = {}
-
-    def segment_pieces(i: int) -> tuple[Pieces, Pieces]:
-        if i not in seg_cache:
-            blocks = np.flatnonzero(owner == i)
-            if lap_pieces is not None:
-                seg_cache[i] = (
-                    lap_units(pieces[:n_a], kdefs, blocks),
-                    lap_units(pieces[n_a:], kdefs, blocks),
-                )
-            else:
-                seg_cache[i] = (pa.subset(blocks), pb.subset(blocks))
-        return seg_cache[i]
-
-    def lag_values(side: slice, a: float, b: float) -> np.ndarray:
-        return np.array([
-            _lag(r, p, off + a, off + b, rows)
-            for r, p, windows in zip(runs[side], positions[side], lag_windows[side], strict=True)
-            for off, rows in windows
-        ])  # fmt: skip
-
-    side_a, side_b = slice(0, n_a), slice(n_a, None)
-    rng = np.random.default_rng(seed)
-    rows: list[KpiRow] = []
-    seg_rows: dict[str, list[KpiRow]] = {s.name: [] for s in segments} if same else {}
-    for k in kdefs:
-        if k.stat is None:  # roll lag: one number per run, resampled over runs
-            lag_hi = hi if same else np.inf
-            lag_a, lag_b = lag_values(side_a, lo, lag_hi), lag_values(side_b, lo, lag_hi)
-            rows.append(_row(k, bootstrap_runs(lag_a, lag_b, rng=rng,
-                                               n_boot=n_boot, level=level)))  # fmt: skip
-        else:
-            d = bootstrap_difference(k.stat, pa, pb, paired=same and lap_pieces is None, rng=rng,
-                                     n_boot=n_boot, level=level)  # fmt: skip
-            rows.append(_row(k, d))
-        for i, seg in enumerate(segments if same else []):
-            if k.stat is None:
-                if lap_pieces is not None and seg.kind == STRAIGHT:
-                    # On a straight the reference barely moves: every lap's lag would be
-                    # NaN (see _lag), and measuring it on every lap costs seconds.
-                    la = lb = np.zeros(0)
-                else:
-                    la = lag_values(side_a, seg.start_m, seg.end_m)
-                    lb = lag_values(side_b, seg.start_m, seg.end_m)
-                d = bootstrap_runs(la, lb, rng=rng, n_boot=n_boot, level=level)
-            else:
-                seg_a, seg_b = segment_pieces(i)
-                d = bootstrap_difference(k.stat, seg_a, seg_b, paired=lap_pieces is None, rng=rng,
-                                         n_boot=n_boot, level=level)  # fmt: skip
-            seg_rows[seg.name].append(_row(k, d))
     lap_mode = same and plan is not None
+    if lap_pieces is None:
+        units = [ReplicateUnit(r, pos, r.run_id) for r, pos in zip(runs, positions, strict=True)]
+
+        def lag(unit: ReplicateUnit, a: float, b: float) -> float:
+            return _lag(unit.run, unit.position, a, b if same else np.inf)
+
+        table = compare_units(
+            units[:n_a], units[n_a:], segments=segments, edges=edges_of, owner=owner,
+            paired=same, stretch=(lo, hi), speeds=speeds, lag=lag, n_boot=n_boot, seed=seed,
+            level=level, speed_share=speed_share,
+        )  # fmt: skip
+    else:
+        # Lap mode: every lap of every run is a replicate unit on the course's blocks.
+        def stack(part: list[dict[str, np.ndarray]]) -> Pieces:
+            data = {k: np.concatenate([p[k] for p in part]) for k in part[0]}
+            n_units = int(next(iter(data.values())).shape[0])
+            return Pieces(data, n_units, int(edges_of[0].size - 1))
+
+        def lag_values(side: slice, a: float, b: float) -> np.ndarray:
+            return np.array([
+                _lag(r, p, off + a, off + b, rows)
+                for r, p, windows in zip(runs[side], positions[side], lag_windows[side], strict=True)
+                for off, rows in windows
+            ])  # fmt: skip
+
+        side_a, side_b = slice(0, n_a), slice(n_a, None)
+        table = compare_pieces(
+            kdefs, stack(lap_pieces[:n_a]), stack(lap_pieces[n_a:]), kind="lap",
+            segments=segments, owner=owner, paired=False, stretch=(lo, hi),
+            lags=lambda v, a, b: lag_values(side_a if v == "A" else side_b, a, b),
+            n_boot=n_boot, seed=seed, level=level, speed_share=speed_share,
+        )  # fmt: skip
+    notes = list(table.notes)
     if lap_mode:
         notes.append(
             "Laps are the replicates: each lap is aligned on its own on the reference lap and "
             "whole laps of each version are resampled (Hurlbert 1984: the lap, not a 5 m block, "
-            "varies with the battery and the motors' temperature); an interval needs at least 5 "
-            "complete laps per version. Totals (time to complete, energy, slip events, falls) "
-            "are per lap."
-        )
-    if any(k.stat is None for k in kdefs) and min(len(runs_a), len(runs_b)) < 2 and not lap_mode:
-        notes.append(
-            "The roll lag is one number per run; its interval needs at least two runs of each "
-            "version."
-        )
-    if any(k.stat is not None and k.stat.kind in ("max", "min") for k in kdefs):
-        notes.append(
-            "Intervals of extremes (peak slip speed, max roll error, minimum tip-over margin) are "
-            "indicative only: the bootstrap reproduces the spread of a sample maximum or minimum "
-            "poorly (Efron & Tibshirani 1993 show it failing for the maximum, from memory); "
-            "read them with the per-segment values."
+            "varies with the battery and the motors' temperature). Totals (time to complete, "
+            "energy, slip events, falls) are per lap."
         )
     if not same:
         notes.append(
@@ -479,8 +388,8 @@ def compare_runs(
         offsets={rid: float(off) for rid, off in zip(ids, offsets, strict=True)},
         stretch=(float(lo), float(hi)),
         segments=segments,
-        kpis=rows,
-        segment_kpis=seg_rows,
+        kpis=table.kpis,
+        segment_kpis=table.segment_kpis,
         notes=notes,
         not_run=[
             {"run": r.run_id, "detector": d, "reason": why}
@@ -488,17 +397,9 @@ def compare_runs(
             for d, why in r.skipped.items()
         ],
         settings={
-            "n_boot": n_boot,
-            "seed": seed,
-            "level": level,
+            **table.settings,
             "block_m": block_m,
-            "resampling": (
-                "whole laps, each version's laps pooled"
-                if lap_mode
-                else "paired course blocks, runs pooled"
-                if same
-                else "independent blocks"
-            ),
+            **({"resampling": "whole laps, each version's laps pooled"} if lap_mode else {}),
             "segments_from": "distance marks" if marks_m is not None else "curvature",
         },
         laps=lap_report_table(runs_a, runs_b, plan) if lap_mode and plan is not None else None,

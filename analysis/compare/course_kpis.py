@@ -54,6 +54,17 @@ METRICS = (
     "energy",  # per actuator
 )
 
+#: Extremes of a run (a block maximum or minimum): their bootstrap interval is
+#: rough (Efron & Tibshirani 1993, Section 7.4, show the bootstrap failing for a
+#: sample maximum, from memory), so they are shown with the difference and that
+#: rough interval but get no better/worse verdict, and a gate cannot hold them to
+#: ``no_worse``.
+INDICATIVE_METRICS = ("peak_slip_speed", "min_tip_margin", "roll_error_max")
+#: KPIs that are the speed itself; every other KPI depends on the speed driven
+#: (tip-over margin, slip and roll error strongly), so a cell where the versions
+#: drove at clearly different speeds gets no verdict for it.
+SPEED_METRICS = ("mean_speed", "time_to_complete")
+
 #: Histogram bins of the tip-over margin quantile (linear inside each bin).
 TIP_BINS = 400
 
@@ -120,6 +131,16 @@ class KpiDef:
     unit: str
     better: str
     stat: Statistic | None
+
+    @property
+    def indicative(self) -> bool:
+        """An extreme: difference and rough interval only, no verdict."""
+        return self.metric in INDICATIVE_METRICS
+
+    @property
+    def speed_sensitive(self) -> bool:
+        """Depends on the speed driven (everything but the speed KPIs themselves)."""
+        return self.metric not in SPEED_METRICS
 
 
 def _col(df: pd.DataFrame, name: str) -> np.ndarray | None:
@@ -233,9 +254,9 @@ def _extreme_by_block(
 
 
 def _blocks_of(position: np.ndarray, edges: np.ndarray) -> np.ndarray:
-    """Block index of each position, -1 outside the blocks."""
+    """Block index of each position, -1 outside the blocks (or NaN: outside a lap)."""
     b = np.searchsorted(edges, position, side="right") - 1
-    b[(position < edges[0]) | (position > edges[-1])] = -1
+    b[~((position >= edges[0]) & (position <= edges[-1]))] = -1
     return np.minimum(b, edges.size - 2)
 
 

@@ -13,6 +13,18 @@ A gate is a small table of our own keys (read from TOML by the command line):
   ``min_tip_margin``, ``roll_error_rms``, ``energy``) over any B run, in its
   worse direction, when the Mann-Kendall test finds it drifting
   (:mod:`analysis.lap_kpis`); change = Theil-Sen slope times (laps - 1).
+  The verdict is the corrected one (false discovery rate over the table, see
+  :mod:`analysis.compare.table`). An indicative extreme (peak slip speed,
+  minimum tip-over margin, max roll error) gets no verdict, so ``no_worse`` on
+  one is refused with that reason; bound it with a limit instead. A KPI whose
+  versions drove at clearly different speeds gets no verdict either, and its
+  ``no_worse`` rule is broken: a gate does not pass what it cannot check.
+- ``min_runs_per_version = 3``: the comparison must rest on at least this many
+  runs (or laps, when it compares laps) of each version; fewer breaks the gate.
+  With one run per version an interval shows the spread within that run only,
+  and same-controller runs are then called different in many cells
+  (``benchmarks/bench_calibration.py``), so a gate meant to block real
+  regressions only should ask for replicates.
 - ``decide_on = "estimate"`` (default: the difference itself is held against the
   limit) or ``"interval"`` (a limit is broken only when the whole 95% interval
   lies beyond it, i.e. the excess is clear of run-to-run noise).
@@ -29,9 +41,9 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
-from analysis.compare.bootstrap import LEVEL, WORSE
+from analysis.compare.bootstrap import LEVEL, NO_VERDICT, WORSE
 from analysis.compare.compare import Comparison, KpiRow
-from analysis.compare.course_kpis import METRICS
+from analysis.compare.course_kpis import INDICATIVE_METRICS, METRICS
 from analysis.errors import CompareError
 from analysis.lap_kpis import LAP_KPI_KEYS
 
@@ -83,6 +95,7 @@ class Gate:
 
     rules: tuple[Rule, ...]
     decide_on: str = "estimate"
+    min_runs: int = 1
 
 
 def _flatten(table: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
@@ -119,6 +132,11 @@ def gate_from_mapping(data: Mapping[str, Any], where: str = "gate file") -> Gate
         raise CompareError(f"{where}: [gate] must be a table of rules.")
     flat = _flatten(table)
     decide_on = flat.pop("decide_on", "estimate")
+    min_runs = flat.pop("min_runs_per_version", 1)
+    if isinstance(min_runs, bool) or not isinstance(min_runs, int) or min_runs < 1:
+        raise CompareError(
+            f"{where}: min_runs_per_version must be a whole number >= 1, found {min_runs!r}."
+        )
     if decide_on not in DECIDE_ON:
         raise CompareError(
             f"{where}: decide_on must be one of {', '.join(DECIDE_ON)}, found {decide_on!r}."
@@ -127,7 +145,8 @@ def gate_from_mapping(data: Mapping[str, Any], where: str = "gate file") -> Gate
     valid = (
         f"<kpi>{'|'.join(LIMIT_SUFFIXES)} with <kpi> one of {', '.join(METRICS)} "
         f"(optionally '<channel>.'), <lap kpi>{DRIFT_SUFFIX} with <lap kpi> one of "
-        f"{', '.join(LAP_KPI_KEYS)}, new_falls_allowed, no_worse, decide_on"
+        f"{', '.join(LAP_KPI_KEYS)}, new_falls_allowed, no_worse, min_runs_per_version, "
+        f"decide_on"
     )
     for key, value in flat.items():
         if key == "new_falls_allowed":
@@ -148,6 +167,14 @@ def gate_from_mapping(data: Mapping[str, Any], where: str = "gate file") -> Gate
                     raise CompareError(
                         f"{where}: no_worse names unknown KPI {name!r}; KPIs: {', '.join(METRICS)}."
                     )
+                if _metric_of(name) in INDICATIVE_METRICS:
+                    raise CompareError(
+                        f"{where}: no_worse cannot hold {name!r}: it is an extreme of a run, "
+                        f"indicative only, and gets no better/worse verdict (its interval is "
+                        f"rough). Bound it with a limit instead, e.g. "
+                        f"{name}_{'drop' if _metric_of(name) == 'min_tip_margin' else 'increase'}"
+                        f"_max = <largest change allowed>."
+                    )
                 rules.append(Rule(key, name, "no_worse", 0.0))
             continue
         if key.endswith(DRIFT_SUFFIX) and key[: -len(DRIFT_SUFFIX)] in LAP_KPI_KEYS:
@@ -160,11 +187,11 @@ def gate_from_mapping(data: Mapping[str, Any], where: str = "gate file") -> Gate
         if suffix is None or _metric_of(target) not in METRICS:
             raise CompareError(f"{where}: unknown gate key {key!r}. Valid keys: {valid}.")
         rules.append(Rule(key, target, suffix.lstrip("_"), _limit(where, key, value)))
-    if not rules:
+    if not rules and min_runs == 1:
         raise CompareError(
             f"{where} has no rules; an empty gate would pass anything. Keys: {valid}."
         )
-    return Gate(tuple(rules), decide_on)
+    return Gate(tuple(rules), decide_on, min_runs)
 
 
 def _limit(where: str, key: str, value: Any) -> float:
@@ -274,6 +301,19 @@ def check_gate(comparison: Comparison, gate: Gate) -> list[GateCheck]:
     rows = comparison.kpis
     level_pct = f"{100 * float(comparison.settings.get('level', LEVEL)):g}%"
     checks: list[GateCheck] = []
+    if gate.min_runs > 1:
+        s = comparison.settings
+        n = min(int(s.get("units_a", 1)), int(s.get("units_b", 1)))
+        unit = str(s.get("unit", "run"))
+        checks.append(
+            GateCheck(
+                "min_runs_per_version", "runs", n < gate.min_runs,
+                f"min_runs_per_version = {gate.min_runs}: the comparison rests on "
+                f"{s.get('basis', f'{n} {unit}(s) per version')}"
+                + (f"; drive at least {gate.min_runs} {unit}s of each version" if n < gate.min_runs
+                   else ""),
+            )
+        )  # fmt: skip
     for rule in gate.rules:
         if rule.kind == "drift_max":
             checks.extend(_check_drift(rule, comparison))
@@ -297,11 +337,14 @@ def check_gate(comparison: Comparison, gate: Gate) -> list[GateCheck]:
                               f"B {_fmt(row.b)}" + (" — B falls more often" if broken else ""))
                 )  # fmt: skip
             elif rule.kind == "no_worse":
-                broken = row.verdict == WORSE
+                unchecked = row.verdict == NO_VERDICT
+                broken = row.verdict == WORSE or unchecked
+                why = "; cannot check it, so the rule is broken" if unchecked else ""
                 checks.append(
                     GateCheck(rule.key, row.key, broken,
                               f"no_worse: {row.label} verdict '{row.verdict}' (B - A "
-                              f"{_fmt(row.diff)}, {level_pct} interval {_fmt(row.low)}..{_fmt(row.high)})")
+                              f"{_fmt(row.diff)}, {level_pct} interval {_fmt(row.low)}..{_fmt(row.high)}, "
+                              f"adjusted p {_fmt(row.q)}; rests on {row.basis}){why}")
                 )  # fmt: skip
             else:
                 checks.append(_check_limit(rule, row, gate.decide_on, level_pct))

@@ -15,7 +15,8 @@ ground height under each wheel and friction under each wheel.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -331,6 +332,38 @@ def course_plan(name: str) -> Course:
     if name not in COURSES:
         raise OutriggerError(f"Unknown demo course {name!r}; choose one of: {', '.join(COURSES)}.")
     return COURSES[name]
+
+
+def varied_course(
+    course: Course, speed_scale: float = 1.0, feature_shift_m: Sequence[float] = ()
+) -> Course:
+    """The course as driven on another day: target speeds scaled, features moved.
+
+    Parameters
+    ----------
+    course : Course
+    speed_scale : float
+        Factor on every segment's target speed (a driver or path follower a few
+        percent faster or slower), in [0.5, 1.5]. [-]
+    feature_shift_m : sequence of float
+        Shift of each feature along the course, in course order of
+        ``course.features`` (missing entries: 0); a feature never moves before
+        the start of its segment. [m]
+
+    Returns
+    -------
+    Course
+        Same name, segments and features, varied.
+    """
+    if not 0.5 <= speed_scale <= 1.5:
+        raise OutriggerError(f"speed_scale must lie in [0.5, 1.5], found {speed_scale!r}.")
+    shifts = list(feature_shift_m) + [0.0] * max(0, len(course.features) - len(feature_shift_m))
+    segments = tuple(replace(seg, speed=seg.speed * speed_scale) for seg in course.segments)
+    features = tuple(
+        replace(f, at=max(0.0, f.at + float(d)))
+        for f, d in zip(course.features, shifts[: len(course.features)], strict=True)
+    )
+    return replace(course, segments=segments, features=features)
 
 
 @dataclass

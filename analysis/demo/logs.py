@@ -22,6 +22,7 @@ from __future__ import annotations
 import gzip
 import io
 import tomllib
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 
@@ -190,7 +191,7 @@ def _si_unit(signal: str) -> str:
 
 
 def simulate_run(
-    controller: str = "lean-ctl 2.0",
+    controller: str | dc.ControllerParams = "lean-ctl 2.0",
     *,
     seed: int = 0,
     duration_s: float | None = None,
@@ -203,13 +204,16 @@ def simulate_run(
     name: str | None = None,
     sensors: SensorModel | None = None,
     stand_s: float = ds.T_STAND,
+    speed_scale: float = 1.0,
+    feature_shift_m: Sequence[float] = (),
 ) -> DemoRun:
     """Simulate Marram-2 driving a demo course; return frame, truth and true series.
 
     Parameters
     ----------
-    controller : str
-        "lean-ctl 1.4" or "lean-ctl 2.0".
+    controller : str or ControllerParams
+        "lean-ctl 1.4" or "lean-ctl 2.0", or parameters of a variant (e.g. one
+        with a slower roll loop, for the calibration benchmark).
     seed : int
         Seed of the noise generators; the same seed gives the same run. [-]
     duration_s : float or None
@@ -235,11 +239,19 @@ def simulate_run(
     stand_s : float
         Time the robot stands balancing before it drives off; with ``duration_s``
         at most this long the run is a robot standing still. [s]
+    speed_scale, feature_shift_m : float, sequence of float
+        Day-to-day variation: factor on the target speeds, shift of each course
+        feature [m] (:func:`analysis.demo.course.varied_course`).
     """
     if stand_s < 0:
         raise OutriggerError(f"stand_s must be >= 0 s, found {stand_s}.")
-    ctl = dc.controller_params(controller)
-    plan = dc.course_plan(course)
+    ctl = (
+        controller
+        if isinstance(controller, dc.ControllerParams)
+        else dc.controller_params(controller)
+    )
+    controller = ctl.name
+    plan = dc.varied_course(dc.course_plan(course), speed_scale, feature_shift_m)
     if state_rate_hz <= 0 or torque_rate_hz <= 0:
         raise OutriggerError(
             f"Sample rates must be > 0 Hz, found state {state_rate_hz}, torque {torque_rate_hz}."

@@ -30,6 +30,7 @@ from analysis.archive.store import Archive
 from analysis.compare.compare import Comparison, KpiRow, compare_archived
 from analysis.compare.gate import GateCheck, check_gate, gate_from_mapping
 from analysis.compare.segments import BLOCK_M
+from analysis.compare.table import verdict_text
 from analysis.compare.view import overlay
 from analysis.errors import CompareError
 from server.cli.laps_text import compare_lap_lines
@@ -44,8 +45,10 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         help="compare version A with version B on one course (KPIs, intervals, gate)",
         description=(
             "Compare runs of controller version A with runs of version B driven on the same "
-            "course: KPIs overall and per segment, B - A with a 95%% block-bootstrap "
-            "interval and a verdict. Give several runs of a version as A1,A2."
+            "course: KPIs overall and per segment, B - A with a 95%% interval and a verdict "
+            "corrected for the many cells (false discovery rate). With two or more runs per "
+            "version the runs are the replicates; with one, the interval shows the spread "
+            "within that run only. Give several runs of a version as A1,A2,A3."
         ),
     )
     p.add_argument("a", metavar="A", help="run id of version A, or A1,A2,... for a set")
@@ -196,17 +199,19 @@ def write_text_atomic(path: str, text: str) -> None:
         raise
 
 
-def _fmt(x: float) -> str:
-    return "–" if x != x else f"{x:.4g}"
+def _fmt(x: float, digits: int = 4) -> str:
+    return "–" if x != x else f"{x:.{digits}g}"
 
 
 def _table(rows: list[KpiRow]) -> str:
-    lines = [f"{'KPI':34} {'A':>10} {'B':>10} {'B - A':>10}  {'95% interval':>23}  verdict"]
+    lines = [
+        f"{'KPI':34} {'A':>10} {'B':>10} {'B - A':>10}  {'95% interval':>23} {'adj. p':>7}  verdict"
+    ]
     for r in rows:
         interval = f"{_fmt(r.low)} .. {_fmt(r.high)}" if r.low == r.low else "–"
         lines.append(
             f"{r.key + ' [' + r.unit + ']':34} {_fmt(r.a):>10} {_fmt(r.b):>10} "
-            f"{_fmt(r.diff):>10}  {interval:>23}  {r.verdict}"
+            f"{_fmt(r.diff):>10}  {interval:>23} {_fmt(r.q, 2):>7}  {verdict_text(r)}"
         )
     return "\n".join(lines)
 
@@ -224,6 +229,7 @@ def _print_text(comp: Comparison, checks: list[GateCheck] | None) -> None:
             f"Not run: detector {item['detector']} on run {item['run']} ({item['reason']}); "
             f"its KPIs are left out, not counted as 0."
         )
+    print(f"Verdicts rest on: {comp.settings.get('basis', '')}")
     print()
     print(_table(comp.kpis))
     if comp.same_course:

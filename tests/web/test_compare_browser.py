@@ -95,9 +95,13 @@ def test_compare_page_draws_table_and_overlays(
     assert page.locator("#refusal").is_hidden()
     assert page.locator("#kpi-table tbody tr").count() >= 10
     verdicts = set(
-        page.eval_on_selector_all("#kpi-table td.verdict", "ts => ts.map(t => t.textContent)")
+        page.eval_on_selector_all("#kpi-table td.verdict", "ts => ts.map(t => t.dataset.verdict)")
     )
-    assert verdicts <= {"better", "worse", "no clear difference"}
+    assert verdicts <= {"better", "worse", "no clear difference", "no verdict"}
+    # Peak slip speed is an indicative extreme: shown, never judged.
+    slip = page.locator("#kpi-table tr[data-kpi='wheel_l.peak_slip_speed'] td.verdict")
+    assert slip.inner_text() == "no verdict (indicative)"
+    assert page.inner_text("#basis").startswith("Verdicts rest on: 1 run per version")
     traces = page.eval_on_selector_all("#charts .chart", "ds => ds.map(d => d.data.length)")
     assert len(traces) >= 4 and all(n == 2 for n in traces)
     colours = page.eval_on_selector("#charts .chart", "d => d.data.map(t => t.line.color)")

@@ -76,11 +76,21 @@ function interval(row) {
   return `${fmt(row.low)} … ${fmt(row.high)}`;
 }
 
+// The verdict as read: why a call was withheld (same words as analysis/compare/table.py).
+function verdictText(r) {
+  if (r.indicative) return "no verdict (indicative)";
+  if (r.speed_flag) return "no verdict (speeds differ)";
+  if (r.verdict === "no clear difference" && (r.raw_verdict === "better" || r.raw_verdict === "worse")) {
+    return `no clear difference (${r.raw_verdict} before the correction for many cells)`;
+  }
+  return r.verdict;
+}
+
 function kpiTable(table, rows) {
   const head = el(
     "thead",
     {},
-    el("tr", {}, ...["KPI", "Unit", "Better", "A", "B", "B − A", "%", "95% interval", "Verdict"].map((h, i) => el("th", { className: i >= 3 && i <= 7 ? "num" : "" }, h))),
+    el("tr", {}, ...["KPI", "Unit", "Better", "A", "B", "B − A", "%", "95% interval", "adj. p", "Verdict"].map((h, i) => el("th", { className: i >= 3 && i <= 8 ? "num" : "" }, h))),
   );
   const body = el("tbody");
   for (const r of rows) {
@@ -97,7 +107,8 @@ function kpiTable(table, rows) {
         el("td", { className: "num" }, fmt(r.diff, 3)),
         el("td", { className: "num" }, r.diff_pct === null ? "–" : fmt(r.diff_pct, 3)),
         el("td", { className: "num" }, interval(r)),
-        el("td", { className: `verdict ${cls}` }, r.verdict),
+        el("td", { className: "num" }, r.q === null ? "–" : fmt(r.q, 2)),
+        el("td", { className: `verdict ${cls}`, title: r.basis, dataset: { verdict: r.verdict } }, verdictText(r)),
       ),
     );
   }
@@ -120,6 +131,7 @@ function showRuns(comp) {
   refusal.textContent = comp.refusal || "";
   document.getElementById("alignment").replaceChildren(...comp.alignments.map((a) => el("li", {}, `${a.run}: ${a.reason}`)));
   document.getElementById("notes").replaceChildren(...comp.notes.map((n) => el("li", {}, n)));
+  document.getElementById("basis").textContent = `Verdicts rest on: ${comp.settings.basis || "–"}. Hover a verdict for what it rests on.`;
 }
 
 function showSegments(comp) {

@@ -107,6 +107,23 @@ def test_same_pieces_paired_give_a_zero_interval() -> None:
     )
     # Identical samples drawn with identical indices: every replicate difference is 0.
     assert (d.diff, d.low, d.high) == (0.0, 0.0, 0.0)
+    # ... and no evidence of a difference: p = 1 (both tails hold every replicate).
+    assert d.p == 1.0
+
+
+def test_p_value_matches_the_interval() -> None:
+    rng = np.random.default_rng(3)
+    x = rng.normal(0.0, 1.0, (1, 40))
+    shifted = _pieces(x=x + 2.0, n=np.ones((1, 40)))
+    base = _pieces(x=x + rng.normal(0.0, 1.0, (1, 40)), n=np.ones((1, 40)))
+    stat = Statistic("ratio", "x", "n")
+    far = bootstrap_difference(stat, base, shifted, paired=True, rng=np.random.default_rng(1))
+    # Every replicate above 0: p is the Monte-Carlo floor 2 (1 + 0) / (1 + R)
+    # (Davison & Hinkley 1997, Monte-Carlo p-value), and the interval excludes 0.
+    assert far.low > 0 and far.p == pytest.approx(2.0 / 2001)
+    near = bootstrap_difference(stat, base, base, paired=False, rng=np.random.default_rng(1))
+    # A sample against itself resampled independently: 0 well inside, p far above 0.05.
+    assert near.low < 0 < near.high and near.p > 0.5
 
 
 def test_statistics_on_the_full_sample_match_numpy() -> None:

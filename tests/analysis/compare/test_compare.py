@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from analysis import catalogue as cat
-from analysis.compare.bootstrap import NO_CLEAR, WORSE
+from analysis.compare.bootstrap import NO_CLEAR, NO_VERDICT, WORSE
 from analysis.compare.compare import compare_runs
 from analysis.compare.gate import check_gate, gate_from_mapping
 from analysis.compare.view import overlay
@@ -30,7 +30,8 @@ def test_run_compared_with_itself(run_a) -> None:
     for row in comp.kpis + [r for rows in comp.segment_kpis.values() for r in rows]:
         # Identity: a run minus itself is 0 and its interval cannot exclude 0.
         assert row.diff == 0.0 or (np.isnan(row.a) and np.isnan(row.b)), row.key
-        assert row.verdict == NO_CLEAR, row.key
+        # Extremes are indicative: never judged, even against themselves.
+        assert row.verdict == (NO_VERDICT if row.indicative else NO_CLEAR), row.key
 
 
 def test_known_extra_roll_error_is_worse(run_a) -> None:
@@ -117,13 +118,16 @@ def test_shifted_start_is_aligned_and_compared_per_segment() -> None:
     assert set(comp.segment_kpis) == {s.name for s in comp.segments}
 
 
-def test_sets_of_runs_pooled() -> None:
-    runs_a = [make_run(f"a{i}", seed=10 + i) for i in range(2)]
-    runs_b = [make_run(f"b{i}", seed=20 + i, extra_roll_error=0.004) for i in range(2)]
+def test_sets_of_runs_rest_on_runs() -> None:
+    runs_a = [make_run(f"a{i}", seed=10 + i) for i in range(3)]
+    runs_b = [make_run(f"b{i}", seed=20 + i, extra_roll_error=0.004) for i in range(3)]
     comp = compare_runs(runs_a, runs_b, n_boot=N_BOOT)
     assert comp.same_course
-    assert comp.kpi("roll_error_rms").verdict == WORSE
-    # Two runs per version: the run-level roll lag gets an interval.
+    row = comp.kpi("roll_error_rms")
+    assert row.verdict == WORSE
+    assert row.basis.startswith("3 runs per version")
+    assert comp.settings["units_a"] == comp.settings["units_b"] == 3
+    # Three runs per version: the run-level roll lag gets an interval.
     lag = comp.kpi("roll_lag")
     assert np.isfinite(lag.low) and np.isfinite(lag.high)
 
@@ -228,9 +232,10 @@ def test_gate_interval_mode_and_no_worse(worse_comparison) -> None:
     )
     assert est[0].broken and not inter[0].broken
     nw = check_gate(
-        worse_comparison, gate_from_mapping({"no_worse": ["roll_error_rms", "min_tip_margin"]})
+        worse_comparison, gate_from_mapping({"no_worse": ["roll_error_rms", "tip_margin_p1"]})
     )
     assert [c.broken for c in nw] == [True, False]
+    assert "rests on 1 run per version: within-run spread only" in nw[0].message
 
 
 @pytest.mark.parametrize(
@@ -242,6 +247,8 @@ def test_gate_interval_mode_and_no_worse(worse_comparison) -> None:
         ({"new_falls_allowed": "no"}, "true or false"),
         ({"decide_on": "mood", "falls_increase_max": 0}, "decide_on must be one of"),
         ({}, "no rules"),
+        ({"no_worse": ["wheel_l.peak_slip_speed"]}, "indicative only"),
+        ({"no_worse": ["min_tip_margin"]}, "min_tip_margin_drop_max"),
     ],
 )
 def test_bad_gate_files_are_refused(table, message) -> None:
@@ -266,3 +273,60 @@ def test_gate_messages_name_the_interval_level_used(run_a) -> None:
     gate = gate_from_mapping({"no_worse": ["roll_error_rms"]})
     messages = [c.message for c in check_gate(comp, gate)]
     assert messages and all("90% interval" in m for m in messages)
+
+
+def test_gate_can_ask_for_replicate_runs(worse_comparison) -> None:
+    gate = gate_from_mapping({"min_runs_per_version": 3, "no_worse": ["roll_error_iae"]})
+    checks = check_gate(worse_comparison, gate)
+    first = checks[0]
+    assert first.rule == "min_runs_per_version" and first.broken
+    assert "1 run per version: within-run spread only" in first.message
+    assert "drive at least 3 runs of each version" in first.message
+    # The requirement alone is a rule; a nonsense value is refused.
+    assert gate_from_mapping({"min_runs_per_version": 2}).min_runs == 2
+    with pytest.raises(CompareError, match="min_runs_per_version must be a whole number"):
+        gate_from_mapping({"min_runs_per_version": 0})
+
+
+def test_gate_on_three_runs_per_version_passes_the_runs_check() -> None:
+    runs_a = [make_run(f"a{i}", seed=50 + i) for i in range(3)]
+    runs_b = [make_run(f"b{i}", seed=60 + i) for i in range(3)]
+    comp = compare_runs(runs_a, runs_b, n_boot=N_BOOT)
+    checks = check_gate(comp, gate_from_mapping({"min_runs_per_version": 3}))
+    assert [c.broken for c in checks] == [False]
+    assert "3 runs per version" in checks[0].message
+
+
+def test_cells_driven_at_different_speeds_get_no_verdict() -> None:
+    slow = make_run("slow", seed=1, speed=1.5)
+    fast = make_run("fast", seed=2, speed=1.8, extra_roll_error=0.004)
+    comp = compare_runs([slow], [fast], n_boot=N_BOOT)
+    row = comp.kpi("roll_error_rms")
+    # 1.8 against 1.5 m/s is 20 % faster, over the stated 10 %: the roll error difference
+    # may be the speed's, so no verdict, and the row says why.
+    assert row.speed_flag is not None and "20 %" in row.speed_flag
+    assert row.verdict == NO_VERDICT and not row.tested
+    assert row.speed_b / row.speed_a == pytest.approx(1.2, rel=0.02)
+    # The speed KPIs themselves are judged as usual.
+    assert comp.kpi("mean_speed").speed_flag is None
+    assert comp.kpi("mean_speed").verdict == "better"
+    checks = check_gate(comp, gate_from_mapping({"no_worse": ["roll_error_rms"]}))
+    assert checks[0].broken and "cannot check" in checks[0].message
+
+
+def test_verdict_words_say_why_a_call_was_withheld(worse_comparison) -> None:
+    from dataclasses import replace
+
+    from analysis.compare.table import verdict_text
+
+    row = worse_comparison.kpi("roll_error_rms")
+    assert verdict_text(row) == "worse"
+    dropped = replace(row, verdict=NO_CLEAR)
+    assert (
+        verdict_text(dropped) == "no clear difference (worse before the correction for many cells)"
+    )
+    tip = worse_comparison.kpi("min_tip_margin")
+    assert verdict_text(tip) == "no verdict (indicative)"
+    assert np.isnan(tip.p) and np.isfinite(tip.low)  # a rough interval, but no test
+    flagged = replace(row, verdict=NO_VERDICT, speed_flag="mean speeds differ by 20 %")
+    assert verdict_text(flagged) == "no verdict (speeds differ)"

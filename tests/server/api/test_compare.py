@@ -42,6 +42,13 @@ def test_compare_same_course(api, stocked_compare) -> None:
         "wheel_l.energy",
     } <= keys
     assert set(comp["segment_kpis"]) == {seg["name"] for seg in comp["segments"]}
+    # Every row says what it rests on; one run each is within-run spread only.
+    rows = {row["key"]: row for row in comp["kpis"]}
+    assert rows["roll_error_rms"]["basis"].startswith("1 run per version: within-run spread only")
+    assert rows["min_tip_margin"]["indicative"] is True
+    assert rows["min_tip_margin"]["verdict"] == "no verdict"
+    assert comp["settings"]["fdr_q"] == 0.05
+    assert any("pseudo-replication" in n for n in comp["notes"])
     assert {t["version"] for t in charts["traces"]} == {"A", "B"}
     assert charts["segments"] == comp["segments"]
 

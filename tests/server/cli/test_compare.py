@@ -74,6 +74,8 @@ def test_compare_prints_kpis(archive, capsys) -> None:
     out = capsys.readouterr().out
     assert code == 0
     assert "roll_error_rms [rad]" in out and "worse" in out
+    assert "Verdicts rest on: 1 run per version: within-run spread only" in out
+    assert "adj. p" in out and "no verdict (indicative)" in out
     assert "Segment S1" in out
 
 
@@ -84,7 +86,9 @@ def test_compare_json_of_sets(archive, capsys) -> None:
     assert [r["run"] for r in data["runs_a"]] == ["a1", "a2"]
     assert data["same_course"] is True
     rows = {r["key"]: r for r in data["kpis"]}
-    assert rows["roll_error_rms"]["verdict"] == "worse"
+    assert rows["roll_error_iae"]["verdict"] == "worse"
+    assert rows["roll_error_iae"]["basis"].startswith("2 runs per version")
+    assert data["settings"]["resampling"].startswith("runs as units")
 
 
 def test_gate_exits_1_naming_each_broken_rule(archive, tmp_path, capsys) -> None:
@@ -139,6 +143,8 @@ def test_report_is_written_self_contained(archive, tmp_path, capsys) -> None:
     text = out.read_text(encoding="utf-8")
     assert "<script src=" not in text  # plotly.js inline, nothing fetched
     assert "Plotly" in text and "chart-0" in text
+    assert "Verdicts rest on: <strong>1 run per version: within-run spread only</strong>" in text
+    assert "no verdict (indicative)" in text and "adj. p" in text
     assert not list(tmp_path.glob(".report-*"))  # no temporary left behind
 
 
