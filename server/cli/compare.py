@@ -24,6 +24,7 @@ from analysis.compare.compare import Comparison, KpiRow, compare_archived
 from analysis.compare.gate import GateCheck, check_gate, gate_from_mapping
 from analysis.compare.segments import BLOCK_M
 from analysis.compare.view import overlay
+from analysis.display import display_kpi_row, export_value, people
 from analysis.errors import CompareError
 from server.cli.main import add_data_option, data_dir
 from server.report import build_report
@@ -131,7 +132,11 @@ def read_gate_file(path: str) -> dict[str, Any]:
 
 
 def write_text_atomic(path: str, text: str) -> None:
-    """Write a file through a temporary file in the same folder, so nothing is half-written."""
+    """Write a file through a temporary file in the same folder, so nothing is half-written.
+
+    The file gets the permissions of any new file (0644 under the usual umask 022),
+    not the owner-only 0600 of the temporary file.
+    """
     target = Path(path)
     if not target.parent.is_dir():
         raise CompareError(f"Cannot write {path}: folder {target.parent} does not exist.")
@@ -139,23 +144,26 @@ def write_text_atomic(path: str, text: str) -> None:
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)
         os.replace(tmp, target)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
 
 
-def _fmt(x: float) -> str:
-    return "–" if x != x else f"{x:.4g}"
-
-
 def _table(rows: list[KpiRow]) -> str:
-    lines = [f"{'KPI':34} {'A':>10} {'B':>10} {'B - A':>10}  {'95% interval':>23}  verdict"]
-    for r in rows:
-        interval = f"{_fmt(r.low)} .. {_fmt(r.high)}" if r.low == r.low else "–"
+    """KPI rows as text, in the units a person reads (deg, %), 3 significant digits."""
+    lines = [f"{'KPI':38} {'A':>10} {'B':>10} {'B - A':>10}  {'95% interval':>23}  verdict"]
+    for r in (display_kpi_row(row.to_dict()) for row in rows):
+        low, high = r["low"], r["high"]
+        interval = (
+            f"{people(low)} .. {people(high)}" if low is not None and high is not None else "–"
+        )
         lines.append(
-            f"{r.key + ' [' + r.unit + ']':34} {_fmt(r.a):>10} {_fmt(r.b):>10} "
-            f"{_fmt(r.diff):>10}  {interval:>23}  {r.verdict}"
+            f"{r['key'] + ' [' + r['unit'] + ']':38} {people(r['a']):>10} {people(r['b']):>10} "
+            f"{people(r['diff']):>10}  {interval:>23}  {r['verdict']}"
         )
     return "\n".join(lines)
 
@@ -205,7 +213,7 @@ def run_compare(args: argparse.Namespace) -> int:
                 "passed": not any(c.broken for c in checks),
                 "checks": [c.to_dict() for c in checks],
             }
-        json.dump(out, sys.stdout, indent=2, allow_nan=False)
+        json.dump(export_value(out), sys.stdout, indent=2, allow_nan=False)
         print()
     else:
         _print_text(comp, checks)
