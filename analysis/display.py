@@ -34,6 +34,8 @@ DISPLAY_UNITS: dict[str, str] = {
     "rad": "deg",
     "rad/s": "deg/s",
     "rad*s": "deg*s",
+    "rad**2*s": "deg**2*s",
+    "rad*s**2": "deg*s**2",
     SHARE: "%",
 }
 
@@ -316,4 +318,52 @@ def display_overlay(view: Mapping[str, Any]) -> dict[str, Any]:
         traces.append({**tr, "signals": per})
     out["traces"] = traces
     out["units"] = "display"
+    return out
+
+
+#: SI unit of each KPI a detector stores (``analysis.detect.pipeline`` summary
+#: ``kpis``), by its key; keys ending ``_s`` are seconds, keys with ``share`` are shares.
+DETECTOR_KPI_UNITS: dict[str, str] = {
+    "rms": "rad",
+    "max_abs": "rad",
+    "band": "rad",
+    "iae": "rad*s",
+    "ise": "rad**2*s",
+    "itae": "rad*s**2",
+    "max_abs_pitch": "rad",
+    "min_force_angle": "rad",
+    "yaw_rate_diff_rms": "rad/s",
+    "peak_slip_speed": "m/s",
+    "torque_rms_worst": "N*m",
+    "continuous_torque": "N*m",
+    "accel_cutoff_hz": "Hz",
+}
+
+
+def _kpi_leaf_unit(key: str) -> str:
+    if key in DETECTOR_KPI_UNITS:
+        return DETECTOR_KPI_UNITS[key]
+    if "share" in key:
+        return SHARE
+    if key.endswith("_s"):
+        return "s"
+    return ""
+
+
+def display_detector_kpis(kpis: Mapping[str, Any]) -> dict[str, Any]:
+    """A stored analysis' ``kpis`` (SI, nested by detector and channel) for people.
+
+    Every number becomes ``{"value": shown value, "unit": shown unit}`` (angles in
+    deg, rates in deg/s, shares in %); other values (text, booleans, None) and
+    the nesting stay as they are.
+    """
+    out: dict[str, Any] = {}
+    for key, value in kpis.items():
+        if isinstance(value, Mapping):
+            out[key] = display_detector_kpis(value)
+        elif isinstance(value, int | float) and not isinstance(value, bool):
+            shown, unit = scalar_to_display(value, _kpi_leaf_unit(str(key)))
+            out[key] = {"value": shown, "unit": unit}
+        else:
+            out[key] = value
     return out

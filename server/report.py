@@ -216,8 +216,7 @@ def build_report(comparison: Comparison, view: dict[str, Any], title: str | None
     parts.append(
         f"<p class='note'>Differences are B − A. Intervals: {_esc(int(s['level'] * 100))}% "
         f"percentile block bootstrap ({_esc(s['resampling'])}, {_esc(s['n_boot'])} replicates, "
-        f"seed {_esc(s['seed'])}, blocks of about {_esc(s['block_m'])} m; Efron &amp; "
-        f"Tibshirani, An Introduction to the Bootstrap, 1993). A verdict is 'better' or "
+        f"seed {_esc(s['seed'])}, blocks of about {_esc(s['block_m'])} m). A verdict is 'better' or "
         f"'worse' only when the whole interval lies on one side of zero.</p>"
     )
     parts.append("<h2>Overall</h2>" + _kpi_table(comp.kpis))

@@ -343,8 +343,7 @@ def compare_runs(
         notes.append(
             "Intervals of extremes (peak slip speed, max roll error, minimum tip-over margin) are "
             "indicative only: the bootstrap reproduces the spread of a sample maximum or minimum "
-            "poorly (Efron & Tibshirani 1993 show it failing for the maximum, from memory); "
-            "read them with the per-segment values."
+            "poorly; read them with the per-segment values."
         )
     if not same:
         notes.append(

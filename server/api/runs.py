@@ -17,7 +17,7 @@ from pydantic import BaseModel, Field
 
 from analysis.archive.store import Archive
 from analysis.detect.pipeline import analyse_run, headline_kpis, load_analysis
-from analysis.display import display_event_peak, display_headline
+from analysis.display import display_detector_kpis, display_event_peak, display_headline
 from analysis.profile import Thresholds
 from server.deps import ApiError, forget_run, get_archive, get_jobs, require_write
 from server.jobs import JobManager, Progress
@@ -72,8 +72,9 @@ def get_run(run_id: str, archive: ArchiveDep) -> dict[str, Any]:
     """One run: metadata (with the ingest report), its analysis (KPIs, events, skipped
     detectors, thresholds used) and the headline KPIs.
 
-    Values are SI; ``headline_shown`` and each event's ``shown`` give them in the
-    units the page shows (angles in degrees, ``analysis.display``)."""
+    Values are SI; ``headline_shown``, ``kpis_shown`` and each event's ``shown``
+    give them in the units the page shows (angles in deg, rates in deg/s, shares
+    in %; ``analysis.display``)."""
     meta = archive.get_meta(run_id)
     analysis = load_analysis(archive, run_id)
     headline = headline_kpis(analysis) if analysis is not None else None
@@ -85,6 +86,7 @@ def get_run(run_id: str, archive: ArchiveDep) -> dict[str, Any]:
         "analysis": analysis,
         "headline": headline,
         "headline_shown": display_headline(headline),
+        "kpis_shown": display_detector_kpis(analysis.get("kpis", {})) if analysis else None,
     }
 
 

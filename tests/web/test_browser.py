@@ -137,12 +137,12 @@ def test_run_page_draws_every_timeline_and_zooms_to_events(
     page.wait_for_function("() => document.body.dataset.window.split(',')[0] !== '0'")
     assert any("t0=" in url for url in series_requests)
 
-    # '.' steps to the next event, ',' back.
-    page.locator("body").press(".")
+    # ']' steps to the next event, '[' back (issue 13, item 15).
+    page.locator("body").press("]")
     second = analysis["events"][1]
     _wait_for_range_around(page, second["start_s"], second["end_s"])
     assert page.locator("#events tr.event-row.active").get_attribute("data-index") == "1"
-    page.locator("body").press(",")
+    page.locator("body").press("[")
     _wait_for_range_around(page, first["start_s"], first["end_s"])
     page.screenshot(path=str(artifacts / "run-page.png"), full_page=True)
     assert page.page_errors == []

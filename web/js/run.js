@@ -39,7 +39,7 @@ function showHead(meta) {
 }
 
 // ----- KPIs ---------------------------------------------------------------------
-function showKpis(headline, shown, analysis) {
+function showKpis(headline, shown, analysis, kpisShown) {
   const strip = document.getElementById("kpis");
   strip.replaceChildren(badges(headline, shown));
   if (analysis) {
@@ -53,7 +53,7 @@ function showKpis(headline, shown, analysis) {
     strip.append(summary);
   }
   const detail = document.getElementById("kpi-detail");
-  detail.replaceChildren(analysis ? valueView(analysis.kpis) : el("p", { className: "empty" }, "Not analysed."));
+  detail.replaceChildren(analysis ? valueView(kpisShown || analysis.kpis) : el("p", { className: "empty" }, "Not analysed."));
 }
 
 // A generic, text-only view of nested JSON (ingest report, KPIs).
@@ -61,15 +61,19 @@ function valueView(value, depth = 0) {
   if (value === null || value === undefined) return el("span", { className: "muted" }, "–");
   if (Array.isArray(value)) {
     if (!value.length) return el("span", { className: "muted" }, "none");
-    if (value.every((v) => v === null || typeof v !== "object")) return el("span", {}, value.map((v) => (typeof v === "number" ? fmt(v, 4) : String(v))).join(", "));
+    if (value.every((v) => v === null || typeof v !== "object")) return el("span", {}, value.map((v) => (typeof v === "number" ? fmt(v, 3) : String(v))).join(", "));
     return el("ol", { className: "plain-list" }, ...value.map((v) => el("li", {}, valueView(v, depth + 1))));
+  }
+  if (typeof value === "object" && Object.keys(value).length === 2 && "value" in value && "unit" in value) {
+    // A number the server converted for display (analysis.display): value and unit.
+    return el("span", { className: "kpi-value" }, `${fmt(value.value, 3)} ${value.unit}`.trim());
   }
   if (typeof value === "object") {
     const dl = el("dl", { className: depth ? "kv nested" : "kv" });
     for (const [k, v] of Object.entries(value)) dl.append(el("dt", {}, k.replace(/_/g, " ")), el("dd", {}, valueView(v, depth + 1)));
     return dl;
   }
-  if (typeof value === "number") return el("span", {}, fmt(value, 4));
+  if (typeof value === "number") return el("span", {}, fmt(value, 3));
   if (typeof value === "boolean") return el("span", {}, value ? "yes" : "no");
   return el("span", { className: "pre" }, String(value));
 }
@@ -149,10 +153,10 @@ document.addEventListener("keydown", (ev) => {
   const target = ev.target;
   if (target && (target.tagName === "INPUT" || target.tagName === "TEXTAREA" || target.tagName === "SELECT" || target.isContentEditable)) return;
   if (ev.ctrlKey || ev.metaKey || ev.altKey) return;
-  if (ev.key === ".") {
+  if (ev.key === "]") {
     selectEvent(current + 1);
     ev.preventDefault();
-  } else if (ev.key === ",") {
+  } else if (ev.key === "[") {
     selectEvent(current < 0 ? visibleEvents.length - 1 : current - 1);
     ev.preventDefault();
   } else if (ev.key === "0" && timelines) {
@@ -315,7 +319,7 @@ async function load() {
     if (opening) timelines.setRange(timelines.clamp(opening));
   });
   showHead(run);
-  showKpis(data.headline, data.headline_shown, analysis);
+  showKpis(data.headline, data.headline_shown, analysis, data.kpis_shown);
   // The event list (hundreds of rows on a long run) and the rest of the page are built
   // once the charts are drawn: building and laying them out first held the charts back.
   await drawn.catch(() => {});
