@@ -62,7 +62,14 @@ def test_check_passes_and_fails(archive_with_run, tmp_path, capsys):
     strict.write_text("[limits]\ntip_margin_min = 0.3\nfalls_max = 0\n")
     assert main(["check", run_id, "--limits", str(strict), "--data", str(root)]) == 1
     out = capsys.readouterr().out
-    assert "BROKEN tip_margin_min" in out and "falls_max" not in out
+    assert "BROKEN tip_margin_min" in out
+    # The limits that held are listed too (issue 13, item 10).
+    assert "held   falls_max: falls is 0, at most 0." in out
+    assert "1 limit(s) broken, 1 held" in out
+    assert main(["check", run_id, "--limits", str(strict), "--data", str(root), "--json"]) == 1
+    data = json.loads(capsys.readouterr().out)
+    assert [c["held"] for c in data["checks"]] == [False, True]
+    assert data["held"] == ["falls_max: falls is 0, at most 0."]
 
 
 def test_check_bad_limits_file_exits_2(archive_with_run, tmp_path, capsys):
