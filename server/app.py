@@ -4,7 +4,8 @@
 concern (runs, series, upload, jobs, configs), any optional router that is
 installed (the comparison page), serves plotly.js from the installed plotly
 package, and serves the static pages of ``web/``. One error shape everywhere:
-``{"error": {"type": ..., "message": ...}}``.
+RFC 9457 problem details (``application/problem+json`` with ``type``, ``title``,
+``status``, ``detail``; :mod:`server.problems`).
 """
 
 from __future__ import annotations
@@ -37,6 +38,7 @@ from server.api import runs as routes_runs
 from server.api import series as routes_series
 from server.api import upload as routes_upload
 from server.jobs import JobManager
+from server.problems import PROBLEM_JSON, problem, scrub_paths
 from server.run_cache import DEFAULT_CACHE_MB, RunCache
 
 log = logging.getLogger("outrigger.server")
@@ -73,9 +75,21 @@ def plotly_js_path() -> Path:
     return path
 
 
-def error_body(kind: str, message: str) -> dict[str, dict[str, str]]:
-    """The one JSON error shape the pages show as-is."""
-    return {"error": {"type": kind, "message": message}}
+def error_response(
+    request: Request,
+    kind: str,
+    status: int,
+    message: str,
+    headers: Mapping[str, str] | None = None,
+) -> JSONResponse:
+    """The one error shape the pages show as-is: RFC 9457 problem details."""
+    roots = getattr(request.app.state, "server_paths", ())
+    return JSONResponse(
+        problem(kind, status, scrub_paths(message, roots), request.url.path),
+        status_code=status,
+        media_type=PROBLEM_JSON,
+        headers=dict(headers) if headers else None,
+    )
 
 
 def validation_part(err: Mapping[str, Any]) -> str:
@@ -87,6 +101,15 @@ def validation_part(err: Mapping[str, Any]) -> str:
         return f"request body: not valid JSON ({ctx.get('error', 'decode error')}{at})"
     where = ".".join(p for p in loc if p != "body") or "request body"
     return f"{where}: {err.get('msg', 'invalid')}"
+
+
+def _server_paths(*folders: Path) -> tuple[str, ...]:
+    """The server's folders as written and resolved, plus the temporary folder and home."""
+    found: set[str] = set()
+    for folder in (*folders, Path(tempfile.gettempdir()), Path.home()):
+        found.add(str(folder))
+        found.add(str(Path(folder).resolve()))
+    return tuple(sorted(found, key=len, reverse=True))
 
 
 def _load_optional(names: tuple[str, ...]) -> list[ModuleType]:
@@ -153,7 +176,9 @@ def create_app(
     )
     app.state.archive = archive
     app.state.token = token or None
-    app.state.jobs = JobManager()
+    #: Server folders a message for the browser must not name (server.problems.scrub_paths).
+    app.state.server_paths = _server_paths(archive.root, upload_root, web)
+    app.state.jobs = JobManager(scrub=lambda text: scrub_paths(text, app.state.server_paths))
     app.state.run_cache = RunCache(int(cache_mb) * 1024 * 1024)
     app.state.max_upload_bytes = int(max_upload_mb) * 1024 * 1024
     app.state.upload_root = upload_root
@@ -166,38 +191,31 @@ def create_app(
     @app.exception_handler(OutriggerError)
     async def outrigger_error(request: Request, exc: OutriggerError) -> JSONResponse:
         headers = {"WWW-Authenticate": "Bearer"} if exc.status == 401 else None
-        return JSONResponse(
-            error_body(type(exc).__name__, str(exc)), status_code=exc.status, headers=headers
-        )
+        return error_response(request, type(exc).__name__, exc.status, str(exc), headers)
 
     @app.exception_handler(StarletteHTTPException)
     async def http_error(request: Request, exc: StarletteHTTPException) -> JSONResponse:
-        message = str(exc.detail) if exc.status_code != 404 else f"Nothing at {request.url.path}."
-        return JSONResponse(error_body("HTTPError", message), status_code=exc.status_code)
+        if exc.status_code == 404:
+            return error_response(request, "NotFound", 404, f"Nothing at {request.url.path}.")
+        return error_response(request, "HTTPError", exc.status_code, str(exc.detail))
 
     @app.exception_handler(RequestValidationError)
     async def validation_error(request: Request, exc: RequestValidationError) -> JSONResponse:
         parts = [validation_part(err) for err in exc.errors()]
-        return JSONResponse(
-            error_body(
-                "RequestError",
-                "Bad request: " + "; ".join(parts) + ". Fix it and send the request again "
-                "(the API reference page, /api.html, lists every parameter).",
-            ),
-            status_code=400,
-        )
+        return error_response(
+            request, "RequestError", 400,
+            "Bad request: " + "; ".join(parts) + ". Fix it and send the request again "
+            "(the API reference page, /api.html, lists every parameter).",
+        )  # fmt: skip
 
     @app.exception_handler(Exception)
     async def internal_error(request: Request, exc: Exception) -> JSONResponse:
         log.exception("internal error on %s %s", request.method, request.url.path)
-        return JSONResponse(
-            error_body(
-                "InternalError",
-                "The server hit an internal error and carried on; nothing was changed. "
-                "The server log has the details.",
-            ),
-            status_code=500,
-        )
+        return error_response(
+            request, "InternalError", 500,
+            "The server hit an internal error and carried on; nothing was changed. "
+            "The server log has the details.",
+        )  # fmt: skip
 
     for module in (*ROUTERS, *optional):
         app.include_router(module.router)

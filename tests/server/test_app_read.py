@@ -29,10 +29,12 @@ HEADLINE_KEYS = {"worst_saturation_share", "slip_events", "min_tip_margin", "rol
 
 
 def _error(response) -> dict:
+    # RFC 9457 problem details: type, title, status, detail (and the request path).
+    assert response.headers["content-type"] == "application/problem+json"
     body = response.json()
-    assert set(body) == {"error"}, body
-    assert set(body["error"]) == {"type", "message"}
-    return body["error"]
+    assert set(body) == {"type", "title", "status", "detail", "instance"}, body
+    assert body["status"] == response.status_code
+    return body
 
 
 # --- runs ----------------------------------------------------------------------------
@@ -94,8 +96,8 @@ def test_unknown_run_is_404_with_the_error_shape(client: TestClient) -> None:
     response = client.get("/api/runs/no-such-run")
     assert response.status_code == 404
     error = _error(response)
-    assert error["type"] == "RunNotFoundError"
-    assert "no-such-run" in error["message"]
+    assert error["type"] == "/api.html#problem-run-not-found"
+    assert "no-such-run" in error["detail"]
 
 
 # --- charts and series -------------------------------------------------------------------
@@ -195,7 +197,7 @@ def test_derived_series_are_served_like_frame_columns(client: TestClient, stocke
 def test_series_bad_requests(client: TestClient, stocked: Stocked, params, message) -> None:
     response = client.get(f"/api/runs/{stocked.planted_id}/series", params=params)
     assert response.status_code == 400
-    assert message in _error(response)["message"]
+    assert message in _error(response)["detail"]
 
 
 # --- downloads --------------------------------------------------------------------------
@@ -311,7 +313,7 @@ def test_internal_error_is_a_generic_500_and_the_server_goes_on(
         response = c.get("/api/runs")
         assert response.status_code == 500
         error = _error(response)
-        assert error["type"] == "InternalError"
+        assert error["type"] == "/api.html#problem-internal"
         assert "secret internal detail" not in response.text
         assert "Traceback" not in response.text
         monkeypatch.undo()

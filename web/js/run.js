@@ -1,6 +1,6 @@
 // Run page: facts, KPIs, stacked timelines, event list with keyboard stepping,
 // ingest report, skipped detectors, thresholds and re-analysis, edit and delete.
-import { el, fmt, fmtDuration, getJSON, readJSON, sendJSON, serverInfo, showError, waitForJob } from "./api.js";
+import { el, fmt, fmtDuration, fromProblem, getJSON, readJSON, sendJSON, serverInfo, showError, waitForJob } from "./api.js";
 import { badges } from "./kpis.js";
 import { initLayout } from "./layout.js";
 import { eventColour, eventLegend, kindLabel } from "./palette.js";
@@ -208,7 +208,7 @@ async function reanalyse() {
       bar.value = j.progress;
       text.textContent = j.message;
     });
-    if (finished.state === "failed") throw Object.assign(new Error(finished.error.message), { type: finished.error.type });
+    if (finished.state === "failed") throw fromProblem(finished.error, 422);
     text.textContent = "done; reloading";
     await load();
     text.textContent = "done";

@@ -1,6 +1,6 @@
 // Upload page: pick or drop files, choose or upload a map and profile, send with a
 // progress bar, then follow the ingest/analysis job and link to the run.
-import { ApiError, authHeaders, el, getJSON, postForm, showError, waitForJob } from "./api.js";
+import { ApiError, authHeaders, el, fromProblem, getJSON, postForm, showError, waitForJob } from "./api.js";
 import { initLayout } from "./layout.js";
 
 const form = document.getElementById("upload-form");
@@ -67,7 +67,7 @@ function configPart(kind) {
 
 async function keepConfig(kind, part) {
   if (!part.keep || !part.file) return;
-  if (!part.keepName) throw new ApiError(400, "RequestError", `Give a name to keep the ${kind === "map" ? "channel map" : "robot profile"} under, or untick 'keep'.`);
+  if (!part.keepName) throw new ApiError(400, "Something is missing", `Give a name to keep the ${kind === "map" ? "channel map" : "robot profile"} under, or untick 'keep'.`);
   const response = await fetch(`/api/configs/${kind}/${encodeURIComponent(part.keepName)}`, {
     method: "PUT",
     headers: { ...authHeaders(), "Content-Type": "text/plain" },
@@ -75,8 +75,7 @@ async function keepConfig(kind, part) {
   });
   if (!response.ok) {
     const body = await response.json().catch(() => null);
-    const e = body && body.error ? body.error : { type: "HTTPError", message: `The server answered ${response.status}.` };
-    throw new ApiError(response.status, e.type, e.message);
+    throw fromProblem(body, response.status) || new ApiError(response.status, "The server refused the file", `The server answered ${response.status}.`);
   }
 }
 
@@ -90,14 +89,14 @@ form.addEventListener("submit", async (ev) => {
   errorBox.hidden = true;
   done.hidden = true;
   try {
-    if (!logs.length) throw new ApiError(400, "RequestError", "Choose at least one log file.");
+    if (!logs.length) throw new ApiError(400, "Something is missing", "Choose at least one log file.");
     const map = configPart("map");
     const profile = configPart("profile");
-    if (!map.file && !map.stored) throw new ApiError(400, "RequestError", "Choose a stored channel map or upload one.");
-    if (!profile.file && !profile.stored) throw new ApiError(400, "RequestError", "Choose a stored robot profile or upload one.");
+    if (!map.file && !map.stored) throw new ApiError(400, "Something is missing", "Choose a stored channel map or upload one.");
+    if (!profile.file && !profile.stored) throw new ApiError(400, "Something is missing", "Choose a stored robot profile or upload one.");
     const total = logs.reduce((s, f) => s + f.size, 0);
     if (maxUploadMb && total > maxUploadMb * 1048576) {
-      throw new ApiError(413, "ApiError", `These files add up to ${(total / 1048576).toFixed(1)} MiB; this server accepts at most ${maxUploadMb} MiB per upload. Split the run, or restart the server with a larger --max-upload-mb.`);
+      throw new ApiError(413, "The upload is too large", `These files add up to ${(total / 1048576).toFixed(1)} MiB; this server accepts at most ${maxUploadMb} MiB per upload. Split the run, or restart the server with a larger --max-upload-mb.`);
     }
     submit.disabled = true;
     await keepConfig("map", map);
@@ -126,7 +125,7 @@ form.addEventListener("submit", async (ev) => {
     sendText.textContent = "sent";
     const finished = await waitForJob(job.id, setJob);
     if (finished.state === "failed") {
-      throw new ApiError(422, finished.error.type, finished.error.message);
+      throw fromProblem(finished.error, 422);
     }
     done.hidden = false;
     done.replaceChildren(

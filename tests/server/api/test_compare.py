@@ -86,7 +86,7 @@ def test_report_download(api, stocked_compare) -> None:
 def test_bad_requests(api, params, status, message) -> None:
     r = api.get("/api/compare", params=params)
     assert r.status_code == status
-    assert message in r.json()["error"]["message"]
+    assert message in r.json()["detail"]
 
 
 def test_compare_is_shown_in_deg_and_percent_and_si_on_request(api, stocked_compare) -> None:
