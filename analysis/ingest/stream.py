@@ -29,7 +29,7 @@ from __future__ import annotations
 import hashlib
 import os
 from collections.abc import Callable, Iterable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, Protocol
@@ -49,6 +49,13 @@ from analysis.ingest.channel_map import (
     load_channel_map,
 )
 from analysis.ingest.formats import iter_file
+from analysis.ingest.identity import (
+    default_run_name,
+    find_duplicate,
+    ingest_key,
+    not_applied,
+    same_files_run,
+)
 from analysis.ingest.order import (
     ROW_GROUP_ROWS,
     distance,
@@ -86,6 +93,10 @@ class RunWriter(Protocol):
 
     def discard_staging(self, path: Path) -> None: ...
 
+    def list_runs(self) -> list[dict[str, Any]]: ...
+
+    def delete_run(self, run_id: str) -> None: ...
+
 
 #: Largest share of bad lines a file may have before the ingest is refused. [-]
 MAX_BAD_SHARE = 0.01
@@ -107,6 +118,12 @@ class IngestOutcome:
     run_id: str
     report: dict[str, Any]
     duplicate_of: str | None = None
+    #: A stored run from the same files with another channel map or profile.
+    differs_from: str | None = None
+    #: Metadata given to a duplicate ingest that was not applied (see ``identity``).
+    not_applied: list[str] = field(default_factory=list)
+    #: The run this ingest replaced (``replace=``), now deleted.
+    replaced: str | None = None
 
 
 def sha256_file(path: Path) -> str:
@@ -273,6 +290,7 @@ def ingest_files(
     notes: str = "",
     date: str | None = None,
     progress: Progress | None = None,
+    replace: str | None = None,
 ) -> IngestOutcome:
     """Ingest the log files of one run into ``archive``.
 
@@ -291,6 +309,10 @@ def ingest_files(
         carries absolute time).
     progress : callable, optional
         Called as ``progress(fraction, message)``, fraction in [0, 1]. [-]
+    replace : str, optional
+        Id of a stored run this ingest replaces: it is deleted once the new run is
+        fully staged, just before the new run is committed; an identical ingest
+        (same files, map and profile) is stored again instead of being a duplicate.
 
     Returns
     -------
@@ -303,6 +325,8 @@ def ingest_files(
     """
     say = progress or (lambda fraction, message: None)
     _parse_date(date)  # a bad --date is refused before any work
+    if replace is not None:
+        archive.get_meta(replace)  # RunNotFoundError before any work
     cmap, prof, profile_text = _resolve(channel_map, profile)
     paths = [Path(f) for f in files]
     if not paths:
@@ -326,11 +350,20 @@ def ingest_files(
                 )
     say(0.0, "hashing source files")
     hashes = {p.name: sha256_file(p) for p in paths}
-    run_hash = combined_hash(hashes.values())
-    existing = archive.find_by_hash(run_hash)
-    if existing is not None:
+    map_dict, prof_dict = cmap.to_dict(), prof.to_dict()
+    run_hash, files_hash = ingest_key(hashes, map_dict, prof_dict)
+    existing = find_duplicate(archive, run_hash, files_hash, map_dict, prof_dict)
+    if existing is not None and existing != replace:
         meta = archive.get_meta(existing)
-        return IngestOutcome(existing, meta.get("ingest_report", {}), duplicate_of=existing)
+        given = {"name": name, "course": course, "controller": controller, "tags": list(tags),
+                 "notes": notes}  # fmt: skip
+        return IngestOutcome(
+            existing, meta.get("ingest_report", {}), duplicate_of=existing,
+            not_applied=not_applied(meta, given),
+        )  # fmt: skip
+    differs_from = None if existing else same_files_run(archive, files_hash, skip=replace)
+    if name is None or not name.strip():
+        name = default_run_name(paths)
 
     sources = {s.name: s for s in cmap.sources}
     types: dict[str, dict[str, pa.DataType]] = {}
@@ -416,13 +449,18 @@ def ingest_files(
             name=name, course=course, controller=controller, tags=list(tags), notes=notes, date=date,
             duration_s=max(float(t[-1]) for t in t_of.values()),
         )  # fmt: skip
+        meta["files_hash"] = files_hash
+        if replace is not None:
+            meta["replaces"] = replace
+            say(0.96, f"deleting run {replace}, which this ingest replaces")
+            archive.delete_run(replace)
         say(0.97, "storing run")
         run_id = archive.commit_run(staging, meta)
     except BaseException:
         archive.discard_staging(staging)
         raise
     say(1.0, f"stored run {run_id}")
-    return IngestOutcome(run_id, report)
+    return IngestOutcome(run_id, report, differs_from=differs_from, replaced=replace)
 
 
 def _build_meta(

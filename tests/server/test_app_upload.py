@@ -51,6 +51,13 @@ def test_upload_a_demo_run_then_find_and_open_it(api: TestClient, demo_inputs: R
     assert again["run_id"] == run_id
     assert "already stored" in again["message"]
     assert len(api.get("/api/runs").json()["runs"]) == 1
+    # ... and a new name or tags brought with them are said not to be applied (item 6).
+    renamed = dict(fields, name="other name", tags="wet")
+    third = wait_job(api, api.post("/api/upload", files=parts, data=renamed).json()["job"]["id"])
+    assert third["run_id"] == run_id
+    assert "not applied" in third["message"]
+    assert "name 'other name' (stored: 'uploaded demo')" in third["message"]
+    assert api.get(f"/api/runs/{run_id}").json()["run"]["name"] == "uploaded demo"
 
 
 def test_upload_with_stored_map_and_profile(
@@ -67,6 +74,9 @@ def test_upload_with_stored_map_and_profile(
     data = {"map_name": "bench-map", "profile_name": "bench-profile"}
     job = wait_job(api, api.post("/api/upload", files=parts, data=data).json()["job"]["id"])
     assert job["state"] == "done", job
+    # No name given: the run is named after its file plant_state.csv (the fixture's one
+    # log), never "None" (issue 13, item 7).
+    assert api.get(f"/api/runs/{job['run_id']}").json()["run"]["name"] == "plant_state"
 
 
 def test_stored_profile_that_is_broken_is_refused(api: TestClient) -> None:

@@ -129,7 +129,9 @@ form.addEventListener("submit", async (ev) => {
     }
     done.hidden = false;
     done.replaceChildren(
-      finished.message.includes("already stored") ? "These files were already stored. " : "Ready. ",
+      finished.message.includes("already stored") || finished.message.includes("same files")
+        ? `${finished.message[0].toUpperCase()}${finished.message.slice(1)}. `
+        : "Ready. ",
       el("a", { id: "run-link", href: `/run.html?id=${encodeURIComponent(finished.run_id)}` }, "Open the run"),
     );
   } catch (err) {
