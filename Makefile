@@ -20,11 +20,10 @@ $(VENV)/.testdeps: $(VENV)/.runtime
 demo: $(VENV)/.runtime
 	$(VENV)/bin/outrigger demo --data $(DATA)
 
-# Debian's Chromium for the browser tests; installed only when missing.
+# Debian's Chromium for the browser tests: skipped when /usr/bin/chromium works, else
+# chromium alone with --no-install-recommends and no upgrade of installed packages.
 chromium:
-	@command -v chromium >/dev/null 2>&1 || { \
-	  if [ "$$(id -u)" = 0 ]; then apt-get update -q && apt-get install -y -q chromium; \
-	  else sudo apt-get update -q && sudo apt-get install -y -q chromium; fi; }
+	@sh tools/install_chromium.sh
 
 lint: $(VENV)/.testdeps
 	$(VENV)/bin/ruff check analysis server tests benchmarks
