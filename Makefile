@@ -18,7 +18,7 @@ $(VENV)/.testdeps: $(VENV)/.runtime
 	touch $@
 
 demo: $(VENV)/.runtime
-	$(VENV)/bin/outrigger demo --data $(DATA)
+	$(VENV)/bin/outrigger demo --data $(DATA) $(if $(PORT),--port $(PORT))
 
 # Debian's Chromium for the browser tests: skipped when /usr/bin/chromium works, else
 # chromium alone with --no-install-recommends and no upgrade of installed packages.
