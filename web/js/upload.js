@@ -57,6 +57,17 @@ async function loadStored(kind, select) {
   }
 }
 
+// Courses of the stored runs, offered by the course field (a new name can still be typed).
+async function loadCourses() {
+  try {
+    const { runs } = await getJSON("/api/runs");
+    const courses = [...new Set(runs.map((r) => r.course).filter(Boolean))].sort();
+    document.getElementById("course-list").replaceChildren(...courses.map((c) => el("option", { value: c })));
+  } catch (err) {
+    showError(errorBox, err);
+  }
+}
+
 function configPart(kind) {
   const select = document.getElementById(`${kind}-name`);
   const file = document.getElementById(`${kind}-file`).files[0] || null;
@@ -106,6 +117,8 @@ form.addEventListener("submit", async (ev) => {
     for (const [key, value] of new FormData(form).entries()) {
       if (typeof value === "string" && value.trim()) data.append(key, value.trim());
     }
+    // The start field is a UTC wall time without a zone: send it as ISO 8601 UTC.
+    if (data.has("date")) data.set("date", `${data.get("date")}${data.get("date").length === 16 ? ":00" : ""}Z`);
     data.delete("files");
     for (const f of logs) data.append("files", f, f.name);
     if (map.file) data.append("map_file", map.file, map.file.name);
@@ -145,4 +158,5 @@ initLayout().then((info) => {
   if (info) maxUploadMb = info.features.max_upload_mb;
 });
 loadStored("map", document.getElementById("map-name"));
+loadCourses();
 loadStored("profile", document.getElementById("profile-name"));
