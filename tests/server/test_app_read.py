@@ -7,6 +7,7 @@ import io
 import sys
 import types
 import zipfile
+from datetime import datetime
 
 import numpy as np
 import pytest
@@ -211,16 +212,26 @@ def test_events_csv(client: TestClient, stocked: Stocked) -> None:
     rows = list(csv.DictReader(io.StringIO(response.text)))
     events = client.get(f"/api/runs/{stocked.demo_id}").json()["analysis"]["events"]
     assert len(rows) == len(events)
-    assert list(rows[0]) == [
-        "kind",
-        "channel",
-        "start_s",
-        "end_s",
-        "duration_s",
-        "peak",
-        "unit",
-        "detail",
-    ]
+    header = list(rows[0])
+    assert header[:6] == ["kind", "channel", "start_utc", "start_s", "end_s", "duration_s"]
+    # Peaks in the unit the header states, one column per unit; detail as flat columns.
+    peak_cols = [h for h in header if h.startswith("peak [")]
+    assert "peak [rad]" in peak_cols and "detail" not in header
+    assert any(h.startswith("detail.") for h in header)
+    for row, event in zip(rows, events, strict=True):
+        unit = (event.get("detail") or {}).get("unit") or "-"
+        if event["peak"] is not None:
+            # Six significant digits (export rounding), so rel 1e-5.
+            assert float(row[f"peak [{unit}]"]) == pytest.approx(event["peak"], rel=1e-5)
+        for other in peak_cols:
+            if other != f"peak [{unit}]":
+                assert row[other] == ""
+    # start_utc is the run's start plus start_s (ISO 8601, UTC).
+    start = datetime.fromisoformat(
+        client.get(f"/api/runs/{stocked.demo_id}").json()["run"]["date"].replace("Z", "+00:00")
+    )
+    first = datetime.fromisoformat(rows[0]["start_utc"].replace("Z", "+00:00"))
+    assert (first - start).total_seconds() == pytest.approx(events[0]["start_s"], abs=1e-3)
     assert float(rows[0]["start_s"]) == pytest.approx(events[0]["start_s"])
 
 
