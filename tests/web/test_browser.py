@@ -346,6 +346,20 @@ def test_shift_drag_pans_and_png_saves_the_chart(
     assert download.value.suggested_filename == f"{uploaded}-roll.png"
     # PNG signature (ISO/IEC 15948, section 5.2): the first eight bytes of every PNG file.
     assert path is not None and path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    # The image carries a title, the run id, the window and the legend above the chart
+    # (issue 13, item 11): taller than the chart's canvas. IHDR height: bytes 20-24, big
+    # endian (ISO/IEC 15948, section 11.2.2).
+    png_height = int.from_bytes(path.read_bytes()[20:24], "big")
+    canvas_height = page.eval_on_selector("#chart-roll canvas", "c => c.height")
+    assert png_height > canvas_height
+    header = page.evaluate(
+        "() => { const t = document.getElementById('charts').timelines;"
+        " return t.pngHeader(t.panels.find(p => p.id === 'roll')); }"
+    )
+    assert header["lines"][0] == page.locator(".panel h3", has_text="oll").first.inner_text()
+    assert uploaded in header["lines"][1] and "32.0" in header["lines"][1]
+    assert "42.0" in header["lines"][1] and " s" in header["lines"][1]
+    assert len(header["legend"]) >= 2
     assert page.page_errors == []
 
 
