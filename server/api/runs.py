@@ -183,7 +183,8 @@ def events_csv_text(events: list[dict[str, Any]], start: str | None = None) -> s
     units: list[str] = []
     keys: list[str] = []
     for e in events:
-        detail = e.get("detail") if isinstance(e.get("detail"), dict) else {}
+        raw = e.get("detail")
+        detail: dict[str, Any] = raw if isinstance(raw, dict) else {}
         unit = str(detail.get("unit", "") or "-")
         if unit not in units:
             units.append(unit)
@@ -192,7 +193,8 @@ def events_csv_text(events: list[dict[str, Any]], start: str | None = None) -> s
     columns = [*EVENT_CSV_COLUMNS, *peak_cols.values(), *(f"detail.{k}" for k in sorted(keys))]
     rows = []
     for e in events:
-        detail = e.get("detail") if isinstance(e.get("detail"), dict) else {}
+        raw = e.get("detail")
+        detail = raw if isinstance(raw, dict) else {}
         row: dict[str, Any] = {
             "kind": e.get("kind"),
             "channel": e.get("channel") or "",
