@@ -13,6 +13,7 @@ from analysis.catalogue import EVENT_KINDS
 from analysis.detect.batch import BatchOutcome, reanalyse
 from analysis.detect.limits import evaluate_limits, load_limits
 from analysis.detect.pipeline import analyse_run, load_analysis, sync_fleet
+from analysis.display import export_value
 from analysis.errors import ThresholdsError
 from analysis.profile import load_thresholds
 from server.cli.main import add_data_option, data_dir
@@ -102,7 +103,7 @@ def _analyse(args: argparse.Namespace) -> int:
     )
     result = analyse_run(archive, args.run, thresholds).to_json(args.run)
     if args.json:
-        json.dump(result, sys.stdout, indent=2)
+        json.dump(export_value(result), sys.stdout, indent=2)
         print()
     else:
         _print_summary(result)
@@ -161,7 +162,7 @@ def _fleet(args: argparse.Namespace) -> int:
         if wanted:
             table = table[table[col] == wanted]
     if args.csv:
-        table.to_csv(sys.stdout, index=False)
+        table.to_csv(sys.stdout, index=False, float_format="%.6g")
     else:
         print(table.to_string(index=False, max_colwidth=40))
     return 0

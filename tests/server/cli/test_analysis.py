@@ -37,6 +37,20 @@ def test_analyse_json(archive_with_run, capsys):
     assert {e["kind"] for e in out["events"]} >= {"saturation", "slip", "low_tip_margin"}
     assert out["skipped"] == []
 
+    # --json keeps full precision rounded to 6 significant digits (issue 13, item 4).
+    def floats(x):
+        if isinstance(x, float):
+            yield x
+        elif isinstance(x, dict):
+            for v in x.values():
+                yield from floats(v)
+        elif isinstance(x, list):
+            for v in x:
+                yield from floats(v)
+
+    values = list(floats(out))
+    assert values and all(float(f"{v:.6g}") == v for v in values)
+
 
 def test_analyse_with_thresholds_replaces_results(archive_with_run, tmp_path, capsys):
     root, run_id = archive_with_run
