@@ -129,7 +129,7 @@ function showSegments(comp) {
   card.hidden = !comp.same_course || comp.segments.length === 0;
   if (card.hidden) return;
   const select = document.getElementById("segment-select");
-  select.replaceChildren(...comp.segments.map((s) => el("option", { value: s.name }, `${s.name} · ${s.kind} · ${fmt(s.start_m, 4)}–${fmt(s.end_m, 4)} m`)));
+  select.replaceChildren(...comp.segments.map((s) => el("option", { value: s.name }, `${s.name} · ${s.kind} · ${fmt(s.start_m, 3)}–${fmt(s.end_m, 3)} m`)));
   const draw = () => kpiTable(document.getElementById("segment-table"), comp.segment_kpis[select.value] || []);
   select.onchange = draw;
   draw();

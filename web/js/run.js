@@ -27,7 +27,7 @@ function showHead(meta) {
     meta.controller && `controller ${meta.controller}`,
     meta.date && meta.date.replace("T", " ").replace("+00:00", " UTC"),
     meta.duration_s !== undefined && fmtDuration(meta.duration_s),
-    meta.distance_m !== undefined && meta.distance_m !== null && `${fmt(meta.distance_m, 4)} m travelled`,
+    meta.distance_m !== undefined && meta.distance_m !== null && `${fmt(meta.distance_m, 3)} m travelled`,
     `id ${meta.run_id}`,
   ].filter(Boolean);
   document.getElementById("run-facts").textContent = facts.join(" · ");

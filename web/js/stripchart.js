@@ -472,7 +472,7 @@ export class StripChart {
     const lines = [`t = ${t.toFixed(3)} s`];
     for (const v of values) {
       const row = this.rows[v.row];
-      const shown = v.value === null ? "no data" : `${Number(v.value.toPrecision(4))} ${v.unit || ""}`.trim();
+      const shown = v.value === null ? "no data" : `${Number(v.value.toPrecision(3))} ${v.unit || ""}`.trim();
       lines.push(`${row ? row.label : ""} · ${v.name}: ${shown}`);
     }
     this.tip.replaceChildren(...lines.map((text) => Object.assign(document.createElement("div"), { textContent: text })));
