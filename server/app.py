@@ -12,9 +12,10 @@ from __future__ import annotations
 
 import importlib
 import logging
+import os
 import shutil
 import tempfile
-from collections.abc import AsyncIterator, Mapping
+from collections.abc import AsyncIterator, Collection, Mapping
 from contextlib import asynccontextmanager
 from pathlib import Path
 from types import ModuleType
@@ -37,9 +38,15 @@ from server.api import meta as routes_meta
 from server.api import runs as routes_runs
 from server.api import series as routes_series
 from server.api import upload as routes_upload
-from server.jobs import JobManager
-from server.problems import PROBLEM_JSON, problem, scrub_paths
+from server.jobs import JobManager, submit_pending_analysis
+from server.problems import PROBLEM_JSON, problem
 from server.run_cache import DEFAULT_CACHE_MB, RunCache
+from server.security import (
+    SecurityMiddleware,
+    content_security_policy,
+    page_script_hashes,
+    scrub_paths,
+)
 
 log = logging.getLogger("outrigger.server")
 
@@ -83,9 +90,10 @@ def error_response(
     headers: Mapping[str, str] | None = None,
 ) -> JSONResponse:
     """The one error shape the pages show as-is: RFC 9457 problem details."""
-    roots = getattr(request.app.state, "server_paths", ())
+    scrub = getattr(request.app.state, "scrub", None)
+    detail = scrub(message) if scrub is not None else message
     return JSONResponse(
-        problem(kind, status, scrub_paths(message, roots), request.url.path),
+        problem(kind, status, detail, request.url.path),
         status_code=status,
         media_type=PROBLEM_JSON,
         headers=dict(headers) if headers else None,
@@ -101,15 +109,6 @@ def validation_part(err: Mapping[str, Any]) -> str:
         return f"request body: not valid JSON ({ctx.get('error', 'decode error')}{at})"
     where = ".".join(p for p in loc if p != "body") or "request body"
     return f"{where}: {err.get('msg', 'invalid')}"
-
-
-def _server_paths(*folders: Path) -> tuple[str, ...]:
-    """The server's folders as written and resolved, plus the temporary folder and home."""
-    found: set[str] = set()
-    for folder in (*folders, Path(tempfile.gettempdir()), Path.home()):
-        found.add(str(folder))
-        found.add(str(Path(folder).resolve()))
-    return tuple(sorted(found, key=len, reverse=True))
 
 
 def _load_optional(names: tuple[str, ...]) -> list[ModuleType]:
@@ -133,6 +132,8 @@ def create_app(
     max_upload_mb: int = 2048,
     web_dir: Path | None = None,
     cache_mb: int = DEFAULT_CACHE_MB,
+    allowed_hosts: Collection[str] | None = None,
+    analyse_pending: bool = False,
 ) -> FastAPI:
     """Build the dashboard application.
 
@@ -148,6 +149,14 @@ def create_app(
         Folder of the static pages; the bundled ``web/`` by default.
     cache_mb : int
         Bound on the in-memory chart columns of recent runs; 0 turns the cache off. [MiB]
+    allowed_hosts : collection of str, optional
+        Host names answered (``Host`` header); any other gets 400. ``outrigger serve``
+        passes :func:`server.security.served_hosts`; None (an app built in-process,
+        e.g. by tests) answers any. Writes from another site's page (``Origin``) are
+        refused either way, and every answer carries the security headers.
+    analyse_pending : bool
+        On start, analyse (as one background job) every stored run without results,
+        e.g. one whose ingest was interrupted before its analysis.
     """
     if max_upload_mb <= 0:
         raise ArchiveError(f"--max-upload-mb must be a positive number, found {max_upload_mb}.")
@@ -159,10 +168,16 @@ def create_app(
         raise ArchiveError(f"The dashboard pages were not found in {web} (no index.html).")
     plotly_path = plotly_js_path()
     optional = _load_optional(OPTIONAL_ROUTERS)
-    upload_root = Path(tempfile.mkdtemp(prefix="outrigger-upload-"))
+    # Under the archive's staging folder, named after this process: a server killed
+    # mid-upload leaves it there, and the next Archive opened on this folder removes it.
+    upload_root = Path(
+        tempfile.mkdtemp(prefix=f"{os.getpid()}-upload-", dir=archive.root / "staging")
+    )
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        if analyse_pending:
+            submit_pending_analysis(app.state.jobs, archive)
         yield
         app.state.jobs.shutdown()
         shutil.rmtree(upload_root, ignore_errors=True)
@@ -176,9 +191,15 @@ def create_app(
     )
     app.state.archive = archive
     app.state.token = token or None
-    #: Server folders a message for the browser must not name (server.problems.scrub_paths).
-    app.state.server_paths = _server_paths(archive.root, upload_root, web)
-    app.state.jobs = JobManager(scrub=lambda text: scrub_paths(text, app.state.server_paths))
+    places = {str(upload_root): "the upload", str(archive.root): "the archive"}
+    places[str(archive.root.resolve())] = "the archive"
+
+    def scrub(message: str) -> str:
+        return scrub_paths(message, places)
+
+    #: Takes the server's folders out of messages for the browser (server.security).
+    app.state.scrub = scrub
+    app.state.jobs = JobManager(scrub=scrub)
     app.state.run_cache = RunCache(int(cache_mb) * 1024 * 1024)
     app.state.max_upload_bytes = int(max_upload_mb) * 1024 * 1024
     app.state.upload_root = upload_root
@@ -192,6 +213,15 @@ def create_app(
     async def outrigger_error(request: Request, exc: OutriggerError) -> JSONResponse:
         headers = {"WWW-Authenticate": "Bearer"} if exc.status == 401 else None
         return error_response(request, type(exc).__name__, exc.status, str(exc), headers)
+
+    @app.exception_handler(RecursionError)
+    async def too_deep(request: Request, exc: RecursionError) -> JSONResponse:
+        return error_response(
+            request, "RequestError", 400,
+            "The request holds data nested too deeply to read (hundreds of levels of "
+            "lists or tables inside each other). Send it flat, as the API reference "
+            "(/api.html) shows.",
+        )  # fmt: skip
 
     @app.exception_handler(StarletteHTTPException)
     async def http_error(request: Request, exc: StarletteHTTPException) -> JSONResponse:
@@ -229,4 +259,16 @@ def create_app(
         )
 
     app.mount("/", StaticFiles(directory=web, html=True), name="web")
+
+    def refusal(kind: str, message: str, status: int) -> JSONResponse:
+        return JSONResponse(
+            problem(kind, status, message), status_code=status, media_type=PROBLEM_JSON
+        )
+
+    app.add_middleware(
+        SecurityMiddleware,
+        hosts=None if allowed_hosts is None else frozenset(h.lower() for h in allowed_hosts),
+        csp=content_security_policy(page_script_hashes(web)),
+        error=refusal,
+    )
     return app

@@ -7,8 +7,8 @@ reference naming the kind of problem; ours point at the API reference page,
 sentence for people, the same for every problem of that type), ``status`` (the
 HTTP status code) and ``detail`` (what is wrong in this case, the value found
 and what to do), plus ``instance`` (the request path) where there is one.
-Titles are plain words: the browser never shows an internal class name or a
-server path.
+Titles are plain words: the browser never shows an internal class name; the
+server's folders are taken out of the detail (:func:`server.security.scrub_paths`).
 
 References
 ----------
@@ -18,9 +18,7 @@ References
 
 from __future__ import annotations
 
-from collections.abc import Iterable
 from http import HTTPStatus
-from pathlib import Path
 from typing import Any
 
 #: Media type of a problem details body (RFC 9457 section 3).
@@ -40,6 +38,8 @@ PROBLEMS: dict[str, tuple[str, str]] = {
     "CompareError": ("comparison", "The runs cannot be compared as asked"),
     "ApiError": ("request-refused", "The request was refused"),
     "UnauthorizedError": ("write-token", "A write token is needed"),
+    "HostError": ("host-name", "This server does not answer to that host name"),
+    "OriginError": ("other-site", "A change from another site's page was refused"),
     "RequestError": ("bad-request", "The request is not valid"),
     "NotFound": ("not-found", "Nothing at this address"),
     "InternalError": ("internal", "The server hit an internal error"),
@@ -75,25 +75,3 @@ def problem(kind: str, status: int, detail: str, instance: str | None = None) ->
     if instance:
         body["instance"] = instance
     return body
-
-
-def scrub_paths(detail: str, roots: Iterable[str | Path]) -> str:
-    """``detail`` without the server's own folders, for the browser.
-
-    A path under one of ``roots`` keeps only its part below the root (an uploaded
-    file keeps its name); a root on its own becomes "the server's folder". The
-    command line keeps full paths: there the user owns the folders.
-
-    Parameters
-    ----------
-    detail : str
-        A message that may name server paths.
-    roots : iterable of str or Path
-        Folders of the server (archive, upload and temporary folders, home).
-    """
-    out = detail
-    texts = {str(r).rstrip("/") for r in roots if str(r).strip("/")}
-    for root in sorted(texts, key=len, reverse=True):
-        out = out.replace(root + "/", "")
-        out = out.replace(f"the archive {root}", "the archive").replace(root, "the server's folder")
-    return out

@@ -21,7 +21,7 @@ from analysis.archive.store import Archive
 from analysis.errors import IngestError, OutriggerError
 from analysis.ingest.map_template import FileHeader, template
 from analysis.ingest.read import inspect_file
-from analysis.ingest.stream import ingest_files
+from analysis.ingest.stream import DEFAULT_MAX_TEXT_BYTES, ingest_files
 from analysis.profile import load_profile
 from server.cli.main import add_data_option, data_dir
 
@@ -48,6 +48,14 @@ def register(subparsers: Any) -> None:
         metavar="RUN",
         help="replace stored run RUN (e.g. after fixing its channel map): RUN is deleted "
         "once the new run is staged",
+    )
+    p.add_argument(
+        "--max-text-mb",
+        type=int,
+        default=DEFAULT_MAX_TEXT_BYTES >> 20,
+        metavar="N",
+        help="most log text read once decompressed, all files together, in MiB "
+        f"(default {DEFAULT_MAX_TEXT_BYTES >> 20})",
     )
     p.add_argument("--json", action="store_true", help="print the outcome as JSON")
     p.add_argument("--quiet", action="store_true", help="print only the run id")
@@ -122,9 +130,23 @@ def _short_report(report: dict[str, Any]) -> list[str]:
         for s in r["skipped_lines"]["lines"][:5]:
             where = s.get("line", s.get("row"))
             lines.append(f"      skipped {s.get('file', '')}:{where}: {s['reason']}")
+        odd = [
+            f"{signal} " + ", ".join(f"{n} {k}" for k, n in counts.items() if n)
+            for signal, counts in (r.get("non_finite") or {}).items()
+        ]
+        if odd:
+            lines.append(f"      missing or non-finite values: {'; '.join(odd)}")
         if r["extra_columns"]:
             lines.append(f"      kept unmapped: {', '.join(r['extra_columns'])}")
+        for w in r.get("warnings", []):
+            lines.append(f"      warning: {w['message']}")
     return lines
+
+
+def _positive_mb(value: int, option: str) -> int:
+    if value <= 0:
+        raise IngestError(f"{option} must be a positive number of MiB, found {value}.")
+    return value << 20
 
 
 def cmd_ingest(args: argparse.Namespace) -> int:
@@ -143,9 +165,13 @@ def cmd_ingest(args: argparse.Namespace) -> int:
         date=args.date,
         progress=_Bar(not args.quiet and not args.json),
         replace=args.replace,
+        max_text_bytes=_positive_mb(args.max_text_mb, "--max-text-mb"),
     )
     analysed: str | None = None
-    if not args.no_analyse and outcome.duplicate_of is None:
+    # A stored run is analysed unless --no-analyse; that includes a run stored by an
+    # earlier ingest that was cut short before its analysis (re-ingesting finishes it).
+    pending = outcome.duplicate_of is None or not archive.is_analysed(outcome.run_id)
+    if not args.no_analyse and pending:
         try:
             pipeline = importlib.import_module("analysis.detect.pipeline")
         except ModuleNotFoundError as exc:
@@ -186,6 +212,8 @@ def cmd_ingest(args: argparse.Namespace) -> int:
                 + "; ".join(outcome.not_applied)
                 + ". Change them on the run's page (Edit)."
             )
+        if analysed == "done":
+            print(f"{outcome.run_id}: it had not been analysed; analysed now.")
         return 0
     print(outcome.run_id)
     if outcome.replaced:

@@ -7,7 +7,7 @@ from pathlib import Path
 from fastapi.testclient import TestClient
 
 from server.app import create_app
-from server.problems import PROBLEMS, TYPE_BASE, problem, scrub_paths
+from server.problems import PROBLEMS, TYPE_BASE, problem
 
 WEB = Path(__file__).resolve().parents[2] / "web"
 
@@ -53,9 +53,3 @@ def test_the_server_answers_problem_json(tmp_path: Path) -> None:
         for response in (bad, nowhere):
             if response.status_code >= 400:
                 assert response.headers["content-type"] == "application/problem+json"
-
-
-def test_server_paths_are_taken_out() -> None:
-    roots = ["/srv/outrigger/data", "/tmp/outrigger-upload-1"]
-    text = "No run 'x' in the archive /srv/outrigger/data. Bad /tmp/outrigger-upload-1/j1/a.csv"
-    assert scrub_paths(text, roots) == "No run 'x' in the archive. Bad j1/a.csv"
