@@ -22,14 +22,13 @@ $(VENV)/.testdeps: $(VENV)/.runtime
 	touch $@
 
 demo: $(VENV)/.runtime
-	$(VENV)/bin/outrigger demo --data $(DATA)
+	$(VENV)/bin/outrigger demo --data $(DATA) $(if $(PORT),--port $(PORT))
 
-# Debian's Chromium for the browser tests; installed only when missing. It checks the
-# path the tests use, not PATH: a chromium elsewhere would leave them skipped.
+# Debian's Chromium for the browser tests, at the path the tests use (not PATH): skipped
+# when it works, else chromium alone with --no-install-recommends and no upgrade of
+# installed packages (tools/install_chromium.sh).
 chromium:
-	@test -x $(CHROMIUM) || { \
-	  if [ "$$(id -u)" = 0 ]; then apt-get update -q && apt-get install -y -q chromium; \
-	  else sudo apt-get update -q && sudo apt-get install -y -q chromium; fi; }
+	@CHROMIUM=$(CHROMIUM) sh tools/install_chromium.sh
 	@test -x $(CHROMIUM) || { echo "$(CHROMIUM) is still missing after installing Debian's \
 	chromium package; the browser tests need it at that path." >&2; exit 1; }
 

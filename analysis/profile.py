@@ -405,79 +405,134 @@ def _optional(table: Mapping[str, Any], key: str, where: str) -> float | None:
     return _number(table, key, where) if key in table else None
 
 
+#: Keys a profile may hold, per table; anything else is refused with this list.
+PROFILE_KEYS: dict[str, tuple[str, ...]] = {
+    "": ("robot", "com", "actuators", "thresholds"),
+    "robot": ("name", "wheel_radius_m", "track_width_m", "mass_kg", "wheel_encoder_reference"),
+    "com": ("model", "height_m", "offset_m", "leg_factor"),
+    "actuators.<name>": (
+        "role", "side", "peak_torque_nm", "continuous_torque_nm", "k_t_nm_per_a",
+        "k_e_v_s_per_rad", "resistance_ohm", "bus_voltage_v", "saturation_tol",
+        "saturation_eps_nm",
+    ),
+}  # fmt: skip
+
+
+class _Problems:
+    """Collects every problem of a profile, so that one message lists them all."""
+
+    def __init__(self) -> None:
+        self.found: list[str] = []
+
+    def add(self, message: str) -> None:
+        self.found.append(message)
+
+    def number(
+        self, table: Mapping[str, Any], key: str, where: str, *, positive: bool = True
+    ) -> float:
+        try:
+            return _number(table, key, where, positive=positive)
+        except ProfileError as exc:
+            self.add(str(exc))
+            return float("nan")  # a stand-in (compares False): the profile is refused anyway
+
+    def optional(self, table: Mapping[str, Any], key: str, where: str) -> float | None:
+        return self.number(table, key, where) if key in table else None
+
+    def unknown_keys(self, table: Mapping[str, Any], section: str, where: str) -> None:
+        valid = PROFILE_KEYS[section]
+        unknown = [k for k in table if k not in valid]
+        if unknown:
+            place = f"[{where}]" if where else "the top level"
+            self.add(
+                f"Unknown key(s) {', '.join(repr(k) for k in unknown)} in {place}. "
+                f"Valid keys there: {', '.join(valid)}."
+            )
+
+
 def profile_from_dict(data: Mapping[str, Any], source: str = "profile") -> RobotProfile:
     """Build and check a :class:`RobotProfile` from parsed TOML.
 
-    Raises :class:`ProfileError` naming the missing or bad field.
+    Raises one :class:`ProfileError` listing every missing, bad or unknown field
+    (unknown keys with the list of valid ones), so that one fix round is enough.
     """
+    problems = _Problems()
+    problems.unknown_keys(data, "", "")
     robot = data.get("robot")
     if not isinstance(robot, dict):
-        raise ProfileError(
+        problems.add(
             f"{source}: no [robot] table. A profile needs [robot] with wheel_radius_m, "
             f"track_width_m, mass_kg and wheel_encoder_reference."
         )
+        robot = {}
+    else:
+        problems.unknown_keys(robot, "robot", "robot")
     name = str(robot.get("name", "unnamed robot"))
-    wheel_radius = _number(robot, "wheel_radius_m", "robot")
-    track_width = _number(robot, "track_width_m", "robot")
-    mass = _number(robot, "mass_kg", "robot")
+    wheel_radius = problems.number(robot, "wheel_radius_m", "robot")
+    track_width = problems.number(robot, "track_width_m", "robot")
+    mass = problems.number(robot, "mass_kg", "robot")
     ref = robot.get("wheel_encoder_reference")
     if ref not in ("leg", "ground"):
-        raise ProfileError(
+        problems.add(
             f'Profile robot.wheel_encoder_reference must be "leg" (encoder measures the wheel '
             f'against its leg) or "ground", found {ref!r}.'
         )
+        ref = "leg"
 
     com_t = data.get("com")
+    com = ComModel("constant", height=1.0)
     if not isinstance(com_t, dict):
-        raise ProfileError(
+        problems.add(
             f'{source}: no [com] table. Give model = "constant" with height_m, or '
             f'model = "linear" with offset_m and leg_factor.'
         )
-    model = com_t.get("model")
-    if model == "constant":
-        com = ComModel("constant", height=_number(com_t, "height_m", "com"))
-    elif model == "linear":
-        com = ComModel(
-            "linear",
-            offset=_number(com_t, "offset_m", "com", positive=False),
-            leg_factor=_number(com_t, "leg_factor", "com", positive=False),
-        )
     else:
-        raise ProfileError(f'Profile com.model must be "constant" or "linear", found {model!r}.')
+        problems.unknown_keys(com_t, "com", "com")
+        model = com_t.get("model")
+        if model == "constant":
+            com = ComModel("constant", height=problems.number(com_t, "height_m", "com"))
+        elif model == "linear":
+            com = ComModel(
+                "linear",
+                offset=problems.number(com_t, "offset_m", "com", positive=False),
+                leg_factor=problems.number(com_t, "leg_factor", "com", positive=False),
+            )
+        else:
+            problems.add(f'Profile com.model must be "constant" or "linear", found {model!r}.')
 
     acts_t = data.get("actuators")
     if not isinstance(acts_t, dict) or not acts_t:
-        raise ProfileError(
+        problems.add(
             f"{source}: no [actuators.<name>] tables. Describe at least the two wheels, e.g. "
             f'[actuators.wheel_l] with role = "wheel", side = "left", peak_torque_nm, '
             f"continuous_torque_nm."
         )
+        acts_t = {}
     actuators = []
     for act_name, t in acts_t.items():
         where = f"actuators.{act_name}"
         if not isinstance(t, dict):
-            raise ProfileError(f"Profile {where} must be a table.")
+            problems.add(f"Profile {where} must be a table.")
+            continue
         if not act_name.replace("_", "").isalnum() or "." in act_name:
-            raise ProfileError(
+            problems.add(
                 f"Actuator name {act_name!r} may hold only letters, digits and underscores."
             )
+        problems.unknown_keys(t, "actuators.<name>", where)
         role = t.get("role")
         if role not in ROLES:
-            raise ProfileError(
-                f"Profile {where}.role must be one of {', '.join(ROLES)}, found {role!r}."
-            )
+            problems.add(f"Profile {where}.role must be one of {', '.join(ROLES)}, found {role!r}.")
         side_raw = t.get("side")
         if side_raw is not None and side_raw not in SIDES:
-            raise ProfileError(
-                f'Profile {where}.side must be "left" or "right", found {side_raw!r}.'
-            )
+            problems.add(f'Profile {where}.side must be "left" or "right", found {side_raw!r}.')
+            side_raw = None
         side = SIDES[side_raw] if side_raw is not None else None
-        if role == "wheel" and side is None:
-            raise ProfileError(f'Profile {where} is a wheel and needs side = "left" or "right".')
-        peak = _number(t, "peak_torque_nm", where)
-        cont = _number(t, "continuous_torque_nm", where)
+        if role == "wheel" and side is None and t.get("side") is None:
+            problems.add(f'Profile {where} is a wheel and needs side = "left" or "right".')
+        peak = problems.number(t, "peak_torque_nm", where)
+        cont = problems.number(t, "continuous_torque_nm", where)
         if cont > peak:
-            raise ProfileError(
+            problems.add(
                 f"Profile {where}: continuous_torque_nm ({cont}) exceeds peak_torque_nm ({peak})."
             )
         motor_keys = ("k_t_nm_per_a", "k_e_v_s_per_rad", "resistance_ohm", "bus_voltage_v")
@@ -485,42 +540,51 @@ def profile_from_dict(data: Mapping[str, Any], source: str = "profile") -> Robot
         motor = None
         if present and len(present) < len(motor_keys):
             missing = [k for k in motor_keys if k not in t]
-            raise ProfileError(
+            problems.add(
                 f"Profile {where} gives some motor constants but not {', '.join(missing)}; "
                 f"give all four or none."
             )
-        if present:
+        elif present:
             motor = MotorConstants(
-                k_t=_number(t, "k_t_nm_per_a", where),
-                k_e=_number(t, "k_e_v_s_per_rad", where),
-                resistance=_number(t, "resistance_ohm", where),
-                bus_voltage=_number(t, "bus_voltage_v", where),
+                k_t=problems.number(t, "k_t_nm_per_a", where),
+                k_e=problems.number(t, "k_e_v_s_per_rad", where),
+                resistance=problems.number(t, "resistance_ohm", where),
+                bus_voltage=problems.number(t, "bus_voltage_v", where),
             )
         actuators.append(
             Actuator(
                 name=act_name,
-                role=role,
+                role=role if role in ROLES else ROLES[0],
                 side=side,
                 peak_torque=peak,
                 continuous_torque=cont,
                 motor=motor,
-                saturation_tol=_optional(t, "saturation_tol", where),
-                saturation_eps=_optional(t, "saturation_eps_nm", where),
+                saturation_tol=problems.optional(t, "saturation_tol", where),
+                saturation_eps=problems.optional(t, "saturation_eps_nm", where),
             )
         )
     sides = sorted(a.side for a in actuators if a.role == "wheel" and a.side)
-    if sides != ["l", "r"]:
-        raise ProfileError(
+    if acts_t and sides != ["l", "r"]:
+        problems.add(
             f'Profile needs exactly one left and one right wheel actuator (role = "wheel"), '
             f"found sides {sides}."
         )
     thresholds_t = data.get("thresholds", {})
+    thresholds = Thresholds.defaults()
     if not isinstance(thresholds_t, dict):
-        raise ProfileError("Profile [thresholds] must be a table of key = number.")
-    try:
-        thresholds = Thresholds.from_mapping(thresholds_t, where=f"{source} [thresholds]")
-    except ThresholdsError as exc:
-        raise ProfileError(str(exc)) from exc
+        problems.add("Profile [thresholds] must be a table of key = number.")
+    else:
+        try:
+            thresholds = Thresholds.from_mapping(thresholds_t, where=f"{source} [thresholds]")
+        except ThresholdsError as exc:
+            problems.add(str(exc))
+    if len(problems.found) == 1:
+        raise ProfileError(problems.found[0])
+    if problems.found:
+        raise ProfileError(
+            f"{source} has {len(problems.found)} problems; fix them all, then load it again: "
+            + " | ".join(f"({i}) {m}" for i, m in enumerate(problems.found, 1))
+        )
     return RobotProfile(
         name=name,
         wheel_radius=wheel_radius,

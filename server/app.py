@@ -4,7 +4,8 @@
 concern (runs, series, upload, jobs, configs), any optional router that is
 installed (the comparison page), serves plotly.js from the installed plotly
 package, and serves the static pages of ``web/``. One error shape everywhere:
-``{"error": {"type": ..., "message": ...}}``.
+RFC 9457 problem details (``application/problem+json`` with ``type``, ``title``,
+``status``, ``detail``; :mod:`server.problems`).
 """
 
 from __future__ import annotations
@@ -38,6 +39,7 @@ from server.api import runs as routes_runs
 from server.api import series as routes_series
 from server.api import upload as routes_upload
 from server.jobs import JobManager, submit_pending_analysis
+from server.problems import PROBLEM_JSON, problem
 from server.run_cache import DEFAULT_CACHE_MB, RunCache
 from server.security import (
     SecurityMiddleware,
@@ -80,9 +82,22 @@ def plotly_js_path() -> Path:
     return path
 
 
-def error_body(kind: str, message: str) -> dict[str, dict[str, str]]:
-    """The one JSON error shape the pages show as-is."""
-    return {"error": {"type": kind, "message": message}}
+def error_response(
+    request: Request,
+    kind: str,
+    status: int,
+    message: str,
+    headers: Mapping[str, str] | None = None,
+) -> JSONResponse:
+    """The one error shape the pages show as-is: RFC 9457 problem details."""
+    scrub = getattr(request.app.state, "scrub", None)
+    detail = scrub(message) if scrub is not None else message
+    return JSONResponse(
+        problem(kind, status, detail, request.url.path),
+        status_code=status,
+        media_type=PROBLEM_JSON,
+        headers=dict(headers) if headers else None,
+    )
 
 
 def validation_part(err: Mapping[str, Any]) -> str:
@@ -182,6 +197,8 @@ def create_app(
     def scrub(message: str) -> str:
         return scrub_paths(message, places)
 
+    #: Takes the server's folders out of messages for the browser (server.security).
+    app.state.scrub = scrub
     app.state.jobs = JobManager(scrub=scrub)
     app.state.run_cache = RunCache(int(cache_mb) * 1024 * 1024)
     app.state.max_upload_bytes = int(max_upload_mb) * 1024 * 1024
@@ -195,52 +212,40 @@ def create_app(
     @app.exception_handler(OutriggerError)
     async def outrigger_error(request: Request, exc: OutriggerError) -> JSONResponse:
         headers = {"WWW-Authenticate": "Bearer"} if exc.status == 401 else None
-        return JSONResponse(
-            error_body(type(exc).__name__, scrub(str(exc))),
-            status_code=exc.status,
-            headers=headers,
-        )
+        return error_response(request, type(exc).__name__, exc.status, str(exc), headers)
 
     @app.exception_handler(RecursionError)
     async def too_deep(request: Request, exc: RecursionError) -> JSONResponse:
-        return JSONResponse(
-            error_body(
-                "RequestError",
-                "The request holds data nested too deeply to read (hundreds of levels of "
-                "lists or tables inside each other). Send it flat, as the API reference "
-                "(/api.html) shows.",
-            ),
-            status_code=400,
-        )
+        return error_response(
+            request, "RequestError", 400,
+            "The request holds data nested too deeply to read (hundreds of levels of "
+            "lists or tables inside each other). Send it flat, as the API reference "
+            "(/api.html) shows.",
+        )  # fmt: skip
 
     @app.exception_handler(StarletteHTTPException)
     async def http_error(request: Request, exc: StarletteHTTPException) -> JSONResponse:
-        message = str(exc.detail) if exc.status_code != 404 else f"Nothing at {request.url.path}."
-        return JSONResponse(error_body("HTTPError", message), status_code=exc.status_code)
+        if exc.status_code == 404:
+            return error_response(request, "NotFound", 404, f"Nothing at {request.url.path}.")
+        return error_response(request, "HTTPError", exc.status_code, str(exc.detail))
 
     @app.exception_handler(RequestValidationError)
     async def validation_error(request: Request, exc: RequestValidationError) -> JSONResponse:
         parts = [validation_part(err) for err in exc.errors()]
-        return JSONResponse(
-            error_body(
-                "RequestError",
-                "Bad request: " + "; ".join(parts) + ". Fix it and send the request again "
-                "(the API reference page, /api.html, lists every parameter).",
-            ),
-            status_code=400,
-        )
+        return error_response(
+            request, "RequestError", 400,
+            "Bad request: " + "; ".join(parts) + ". Fix it and send the request again "
+            "(the API reference page, /api.html, lists every parameter).",
+        )  # fmt: skip
 
     @app.exception_handler(Exception)
     async def internal_error(request: Request, exc: Exception) -> JSONResponse:
         log.exception("internal error on %s %s", request.method, request.url.path)
-        return JSONResponse(
-            error_body(
-                "InternalError",
-                "The server hit an internal error and carried on; nothing was changed. "
-                "The server log has the details.",
-            ),
-            status_code=500,
-        )
+        return error_response(
+            request, "InternalError", 500,
+            "The server hit an internal error and carried on; nothing was changed. "
+            "The server log has the details.",
+        )  # fmt: skip
 
     for module in (*ROUTERS, *optional):
         app.include_router(module.router)
@@ -256,7 +261,9 @@ def create_app(
     app.mount("/", StaticFiles(directory=web, html=True), name="web")
 
     def refusal(kind: str, message: str, status: int) -> JSONResponse:
-        return JSONResponse(error_body(kind, message), status_code=status)
+        return JSONResponse(
+            problem(kind, status, message), status_code=status, media_type=PROBLEM_JSON
+        )
 
     app.add_middleware(
         SecurityMiddleware,

@@ -20,6 +20,7 @@ from datetime import UTC, datetime
 from typing import TYPE_CHECKING, Any
 
 from analysis.errors import OutriggerError
+from server.problems import problem
 
 if TYPE_CHECKING:
     from analysis.archive.store import Archive
@@ -45,7 +46,7 @@ class Job:
     progress: float = 0.0
     message: str = "waiting for a worker"
     run_id: str | None = None
-    error: dict[str, str] | None = None
+    error: dict[str, Any] | None = None
     created_at: str = field(default_factory=lambda: datetime.now(UTC).isoformat(timespec="seconds"))
     finished_at: str | None = None
     info: dict[str, Any] = field(default_factory=dict)
@@ -75,11 +76,11 @@ class JobManager:
         Threads; 1 by default so two ingests never compete for the disk and
         the 2-core test machines stay responsive. [-]
     scrub : callable, optional
-        Applied to a failed job's message (the server removes its own paths).
+        Applied to a failed job's message before it is kept (takes server paths out).
     """
 
     def __init__(self, workers: int = 1, scrub: Callable[[str], str] | None = None) -> None:
-        self._scrub = scrub or (lambda message: message)
+        self._scrub = scrub or (lambda text: text)
         self._pool = ThreadPoolExecutor(max_workers=workers, thread_name_prefix="outrigger-job")
         self._jobs: dict[str, Job] = {}
         self._lock = threading.Lock()
@@ -128,18 +129,19 @@ class JobManager:
         try:
             run_id = func(progress)
         except OutriggerError as exc:
-            message = self._scrub(str(exc))
-            self._finish(job, FAILED, error={"type": type(exc).__name__, "message": message})
+            detail = self._scrub(str(exc))
+            self._finish(job, FAILED, error=problem(type(exc).__name__, exc.status, detail))
         except Exception:
             log.exception("job %s (%s) failed", job.id, job.kind)
             self._finish(
                 job,
                 FAILED,
-                error={
-                    "type": "InternalError",
-                    "message": "The job stopped on an internal error; nothing half-written "
+                error=problem(
+                    "InternalError",
+                    500,
+                    "The job stopped on an internal error; nothing half-written "
                     "was kept. The server log has the details.",
-                },
+                ),  # fmt: skip
             )
         else:
             self._finish(job, DONE, run_id=run_id)

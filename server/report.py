@@ -1,8 +1,10 @@
 """One self-contained HTML file of a comparison, to attach to a test report.
 
 The file carries plotly.js inline (from the installed plotly package), the
-tables and one overlay chart per signal against course position; it opens
-without any network. Every piece of user text (run names, courses,
+tables (in the units a person reads: deg, %, 3 significant digits; the
+per-segment tables folded) and one overlay chart per signal against course
+position in the Run page's look, with the key of runs and event colours; it
+opens without any network. The embedded machine-readable comparison stays SI. Every piece of user text (run names, courses,
 controllers) is HTML-escaped.
 """
 
@@ -10,7 +12,6 @@ from __future__ import annotations
 
 import html
 import json
-import math
 from typing import Any
 
 import plotly.graph_objects as go
@@ -19,6 +20,7 @@ from plotly.offline import get_plotlyjs
 
 from analysis.compare.compare import Comparison, KpiRow
 from analysis.compare.table import verdict_text
+from analysis.display import display_kpi_row, display_overlay, export_value, people
 
 #: Run colours, the same as the compare page (web/js/palette.js RUN_COLOURS):
 #: black and neutral grey, which no event kind uses.
@@ -35,6 +37,13 @@ EVENT_COLOURS = {
     "fall": "#0072B2",
 }
 
+#: The Run page's chart look (web/css/style.css): ink, grid and font.
+INK = "#24323A"
+GRID = "#E2E5E1"
+FONT = "system-ui, -apple-system, 'Segoe UI', sans-serif"
+#: Plotly options of every chart: no stock toolbar, no logo (the project's own look).
+PLOT_CONFIG = {"displayModeBar": False, "displaylogo": False, "responsive": True}
+
 _CSS = """
 body { font: 14px/1.4 system-ui, -apple-system, 'Segoe UI', sans-serif; color: #24323A;
        margin: 24px auto; max-width: 1100px; padding: 0 16px; }
@@ -46,40 +55,70 @@ td.num { text-align: right; font-variant-numeric: tabular-nums; }
 .refusal { border: 1px solid #9B1C1C; padding: 8px 12px; background: #FDF3F2; }
 .note { color: #4A5A63; } .swatch { display: inline-block; width: 18px; height: 3px;
         vertical-align: middle; margin-right: 4px; }
+.legend { display: flex; flex-wrap: wrap; gap: 4px 16px; font-size: 13px; color: #4A5A63;
+          margin: 6px 0; }
+.legend .box { display: inline-block; width: 12px; height: 12px; border-radius: 2px;
+               vertical-align: -2px; margin-right: 4px; }
+.run-line { display: inline-block; width: 24px; border-top: 2px solid; vertical-align: middle;
+            margin-right: 4px; } .run-line.dash { border-top-style: dashed; }
+details.segment { margin: 10px 0; } details.segment summary { cursor: pointer; font-weight: 600; }
 """
+
+
+def _legend(view: dict[str, Any]) -> str:
+    """The key of every chart: run lines of A and B, and the colour of each event kind."""
+    runs = [
+        f"<span><span class='run-line{' dash' if v == 'B' else ''}' "
+        f"style='border-top-color:{RUN_COLOURS[v]}'></span>{v}: {_esc(name)}</span>"
+        for v, name in dict.fromkeys((tr["version"], tr["name"]) for tr in view["traces"])
+    ]
+    kinds = sorted({ev["kind"] for ev in view["events"]})
+    boxes = [
+        f"<span data-kind='{_esc(k)}'><span class='box' style='background:"
+        f"{EVENT_COLOURS.get(k, '#666666')}'></span>{_esc(k.replace('_', ' '))}</span>"
+        for k in kinds
+    ]
+    events = (
+        "<span>Events (A lower half, B upper half):</span>" + "".join(boxes)
+        if boxes
+        else "<span>No events on this stretch.</span>"
+    )
+    return f"<div class='legend' id='run-key'>{''.join(runs)}</div>" + (
+        f"<div class='legend' id='event-legend'>{events}</div>"
+    )
 
 
 def _esc(x: Any) -> str:
     return html.escape("" if x is None else str(x))
 
 
-def _num(x: float | None, digits: int = 4) -> str:
-    if x is None or not math.isfinite(x):
-        return "–"
-    return f"{x:.{digits}g}"
+def _num(x: float | None) -> str:
+    """A number as a person reads it (3 significant digits), '–' when missing."""
+    return people(x)
 
 
 def _kpi_table(rows: list[KpiRow]) -> str:
+    """KPI rows in the units a person reads (deg, %), 3 significant digits."""
     head = (
         "<tr><th>KPI</th><th>Unit</th><th>Better</th><th class='num'>A</th>"
         "<th class='num'>B</th><th class='num'>B − A</th><th class='num'>%</th>"
         "<th class='num'>95% interval</th><th class='num'>adj. p</th><th>Verdict</th></tr>"
     )
     body = []
-    for r in rows:
-        cls = "better" if r.verdict == "better" else "worse" if r.verdict == "worse" else ""
-        interval = (
-            f"{_num(r.low)} … {_num(r.high)}"
-            if math.isfinite(r.low) and math.isfinite(r.high)
-            else "–"
-        )
+    for row in rows:
+        r = display_kpi_row(row.to_dict())
+        verdict = r["verdict"]
+        cls = "better" if verdict == "better" else "worse" if verdict == "worse" else ""
+        low, high = r["low"], r["high"]
+        interval = f"{_num(low)} … {_num(high)}" if low is not None and high is not None else "–"
         body.append(
-            f"<tr data-kpi='{_esc(r.key)}'><td>{_esc(r.label)}</td><td>{_esc(r.unit)}</td>"
-            f"<td>{_esc(r.better)}</td><td class='num'>{_num(r.a)}</td>"
-            f"<td class='num'>{_num(r.b)}</td><td class='num'>{_num(r.diff)}</td>"
-            f"<td class='num'>{_num(r.diff_pct, 3)}</td><td class='num'>{interval}</td>"
-            f"<td class='num'>{_num(r.q, 2)}</td>"
-            f"<td class='{cls}' title='{_esc(r.basis)}'>{_esc(verdict_text(r))}</td></tr>"
+            f"<tr data-kpi='{_esc(r['key'])}'><td>{_esc(r['label'])}</td>"
+            f"<td class='unit'>{_esc(r['unit'])}</td>"
+            f"<td>{_esc(r['better'])}</td><td class='num'>{_num(r['a'])}</td>"
+            f"<td class='num'>{_num(r['b'])}</td><td class='num'>{_num(r['diff'])}</td>"
+            f"<td class='num'>{_num(r['diff_pct'])}</td><td class='num'>{interval}</td>"
+            f"<td class='num'>{people(row.q) if row.q == row.q else '–'}</td>"
+            f"<td class='{cls}' title='{_esc(row.basis)}'>{_esc(verdict_text(row))}</td></tr>"
         )
     return f"<table class='kpis'>{head}{''.join(body)}</table>"
 
@@ -132,10 +171,14 @@ def _figure(signal: dict[str, str], view: dict[str, Any]) -> go.Figure:
             shown.add(ev["kind"])
     unit = signal["unit"]
     fig.update_layout(
-        title={"text": f"{signal['label']} [{unit}]", "font": {"size": 14}},
-        height=260, margin={"l": 60, "r": 20, "t": 36, "b": 36},
-        xaxis={"title": "course position [m]"}, plot_bgcolor="#FFFFFF",
-        legend={"orientation": "h", "y": -0.25},
+        title={"text": html.escape(f"{signal['label']} [{unit}]"), "font": {"size": 13},
+               "x": 0, "xanchor": "left"},
+        height=260, margin={"l": 60, "r": 16, "t": 32, "b": 34},
+        xaxis={"title": {"text": "course position [m]"}, "gridcolor": GRID, "zeroline": False},
+        yaxis={"gridcolor": GRID, "zeroline": False},
+        plot_bgcolor="#FFFFFF", paper_bgcolor="#FFFFFF",
+        font={"family": FONT, "color": INK, "size": 12},
+        showlegend=False,
     )  # fmt: skip
     return fig
 
@@ -157,6 +200,7 @@ def build_report(comparison: Comparison, view: dict[str, Any], title: str | None
         A complete HTML document with plotly.js inline.
     """
     comp = comparison
+    shown = display_overlay(view)
     names_a = ", ".join(str(r["name"]) for r in comp.runs_a)
     names_b = ", ".join(str(r["name"]) for r in comp.runs_b)
     title = title or f"Comparison: {names_a} (A) vs {names_b} (B)"
@@ -175,23 +219,23 @@ def build_report(comparison: Comparison, view: dict[str, Any], title: str | None
     parts.append(
         f"<p class='note' id='basis'>Verdicts rest on: <strong>{_esc(s.get('basis'))}</strong>. "
         f"Differences are B − A. Intervals: {_esc(int(s['level'] * 100))}% "
-        f"({_esc(s['resampling'])}; bootstrap with {_esc(s['n_boot'])} replicates, "
-        f"seed {_esc(s['seed'])}, blocks of about {_esc(s['block_m'])} m; Efron &amp; "
-        f"Tibshirani, An Introduction to the Bootstrap, 1993; Welch 1947). A verdict is "
+        f"({_esc(s['resampling'])}; {_esc(s['n_boot'])} bootstrap replicates where resampled, "
+        f"seed {_esc(s['seed'])}, blocks of about {_esc(s['block_m'])} m). A verdict is "
         f"'better' or 'worse' only when the whole interval lies on one side of zero and the "
-        f"call survives the Benjamini–Hochberg correction for the many cells of its table "
-        f"(adjusted p at most {_esc(s.get('fdr_q'))}; J. R. Stat. Soc. B 57, 1995).</p>"
+        f"call survives the correction for the many cells of its table (false discovery rate, "
+        f"adjusted p at most {_esc(s.get('fdr_q'))}).</p>"
     )
     parts.append("<h2>Overall</h2>" + _kpi_table(comp.kpis))
     for note in comp.notes:
         parts.append(f"<p class='note'>{_esc(note)}</p>")
     parts.append("<h2>Overlay against course position</h2>")
-    for i, signal in enumerate(view["signals"]):
-        fig = _figure(signal, view)
+    parts.append(_legend(shown))
+    for i, signal in enumerate(shown["signals"]):
+        fig = _figure(signal, shown)
         parts.append(
             pio.to_html(
                 fig, include_plotlyjs=False, full_html=False, div_id=f"chart-{i}",
-                config={"displaylogo": False, "responsive": True},
+                config=PLOT_CONFIG,
             )
         )  # fmt: skip
     if comp.same_course and comp.segments:
@@ -203,10 +247,12 @@ def build_report(comparison: Comparison, view: dict[str, Any], title: str | None
                 f"<td class='num'>{seg.start_m:.1f}</td><td class='num'>{seg.end_m:.1f}</td></tr>"
             )
         parts.append("</table>")
+        parts.append("<h2>KPIs per segment</h2>")
         for seg in comp.segments:
             parts.append(
-                f"<h2>Segment {_esc(seg.name)} ({_esc(seg.kind)}, {seg.start_m:.1f}–"
-                f"{seg.end_m:.1f} m)</h2>" + _kpi_table(comp.segment_kpis.get(seg.name, []))
+                f"<details class='segment' data-segment='{_esc(seg.name)}'><summary>Segment "
+                f"{_esc(seg.name)} ({_esc(seg.kind)}, {seg.start_m:.1f}–{seg.end_m:.1f} m)"
+                "</summary>" + _kpi_table(comp.segment_kpis.get(seg.name, [])) + "</details>"
             )
     parts.append(
         "<p class='note'>Outrigger reads logs after the fact; it is not a safety system. The "
@@ -215,7 +261,7 @@ def build_report(comparison: Comparison, view: dict[str, Any], title: str | None
     )
     parts.append(
         "<script type='application/json' id='comparison-data'>"
-        + json.dumps(comp.to_dict()).replace("<", "\\u003c")
+        + json.dumps(export_value({**comp.to_dict(), "units": "si"})).replace("<", "\\u003c")
         + "</script></body></html>"
     )
     return "".join(parts)

@@ -3,8 +3,11 @@
 A gate is a small table of our own keys (read from TOML by the command line):
 
 - ``<kpi>_increase_max`` / ``<kpi>_drop_max``: largest allowed rise / fall of
-  the KPI from A to B, in the KPI's unit (``roll_error_rms_increase_max = 0.002``
-  in rad, ``min_tip_margin_drop_max = 0.05``).
+  the KPI from A to B, in the KPI's SI unit as ``--json`` gives it
+  (``roll_error_rms_increase_max = 0.002`` in rad, ``saturation_share_increase_max
+  = 0.01`` as a fraction, ``min_tip_margin_drop_max = 0.05``). Messages show
+  values and limits in the units a person reads (deg, %), 3 significant digits,
+  and word the change by its sign (rose, fell, stayed at).
 - ``<kpi>_increase_max_pct`` / ``<kpi>_drop_max_pct``: the same in percent of A.
 - ``new_falls_allowed = false``: B may not fall more often per run than A.
 - ``no_worse = ["roll_error_rms", ...]``: these KPIs may not get the verdict "worse".
@@ -44,6 +47,7 @@ from typing import Any
 from analysis.compare.bootstrap import LEVEL, NO_VERDICT, WORSE
 from analysis.compare.compare import Comparison, KpiRow
 from analysis.compare.course_kpis import INDICATIVE_METRICS, METRICS
+from analysis.display import display_unit, kpi_si_unit, people, snap_change
 from analysis.errors import CompareError
 from analysis.lap_kpis import LAP_KPI_KEYS
 
@@ -248,13 +252,37 @@ def _matching(rows: list[KpiRow], target: str) -> list[KpiRow]:
 
 
 def _fmt(x: float) -> str:
-    return "n/a" if not math.isfinite(x) else f"{x:.4g}"
+    return "n/a" if not math.isfinite(x) else people(x)
+
+
+def _shown(row: KpiRow) -> tuple[str, float]:
+    """The unit a person reads the row in (' deg', '%', '' ...) and the factor from SI."""
+    unit, factor = display_unit(kpi_si_unit(row.metric, row.unit))
+    if unit in ("-", ""):
+        return "", factor
+    return ("%" if unit == "%" else f" {unit}"), factor
+
+
+def change_words(label: str, a: float, b: float, unit: str = "") -> str:
+    """'<label> rose from A to B', '... fell from A to B' or '... stayed at A'.
+
+    The verb follows the sign of B - A; values equal as a person reads them (3
+    significant digits) 'stay'. ``a`` and ``b`` are in the shown unit, ``unit``
+    is appended to each number.
+    """
+    sa, sb = _fmt(a), _fmt(b)
+    if not (math.isfinite(a) and math.isfinite(b)):
+        return f"{label} went from {sa}{unit} to {sb}{unit}"
+    if a == b or sa == sb:
+        return f"{label} stayed at {sa}{unit}" if a == b else f"{label} stayed at about {sa}{unit}"
+    verb = "rose" if b > a else "fell"
+    return f"{label} {verb} from {sa}{unit} to {sb}{unit}"
 
 
 def _check_limit(rule: Rule, row: KpiRow, decide_on: str, level_pct: str) -> GateCheck:
     pct = rule.kind.endswith("_pct")
     up = rule.kind.startswith("increase")
-    unit = "%" if pct else (f" {row.unit}" if row.unit not in ("-", "") else "")
+    unit, factor = _shown(row)
     if pct:
         scale = 100.0 / abs(row.a) if math.isfinite(row.a) and row.a != 0 else math.nan
     else:
@@ -264,23 +292,26 @@ def _check_limit(rule: Rule, row: KpiRow, decide_on: str, level_pct: str) -> Gat
         est, low, high = -est, -high, -low
     # The change in the rule's direction: estimate, or the interval's nearer end.
     value = est if decide_on == "estimate" else low
-    direction = "rose" if up else "fell"
+    a, b = row.a * factor, row.b * factor
     if not math.isfinite(value):
         return GateCheck(
             rule.key, row.key, True,
-            f"{rule.key}: cannot check {row.key} (A = {_fmt(row.a)}, B = {_fmt(row.b)}, "
-            f"interval {_fmt(row.low)}..{_fmt(row.high)}); a gate does not pass what it cannot check.",
+            f"{rule.key}: cannot check {row.key} (A = {_fmt(a)}{unit}, B = {_fmt(b)}{unit}, "
+            f"interval {_fmt(row.low * factor)}..{_fmt(row.high * factor)}{unit}); "
+            "a gate does not pass what it cannot check.",
         )  # fmt: skip
     broken = value > rule.limit
+    direction = "rise" if up else "fall"
     what = (
-        "change"
+        direction
         if decide_on == "estimate"
-        else f"lower end of the {level_pct} interval of the change"
+        else f"lower end of the {level_pct} interval of the {direction}"
     )
-    msg = (
-        f"{rule.key}: {row.label} {direction} from {_fmt(row.a)} to {_fmt(row.b)} "
-        f"({what} {_fmt(value)}{unit}; limit {_fmt(rule.limit)}{unit})"
-    )
+    if pct:
+        amount = f"{_fmt(value)}% of A; limit {_fmt(rule.limit)}% of A"
+    else:
+        amount = f"{_fmt(value * factor)}{unit}; limit {_fmt(rule.limit * factor)}{unit}"
+    msg = f"{rule.key}: {change_words(row.label, a, b, unit)} ({what} {amount})"
     return GateCheck(rule.key, row.key, broken, msg)
 
 
@@ -333,17 +364,21 @@ def check_gate(comparison: Comparison, gate: Gate) -> list[GateCheck]:
                 broken = row.b > row.a
                 checks.append(
                     GateCheck(rule.key, row.key, broken,
-                              f"new_falls_allowed = false: falls per run A {_fmt(row.a)}, "
-                              f"B {_fmt(row.b)}" + (" — B falls more often" if broken else ""))
+                              "new_falls_allowed = false: "
+                              + change_words("falls per run", row.a, row.b)
+                              + (" — B falls more often" if broken else ""))
                 )  # fmt: skip
             elif rule.kind == "no_worse":
                 unchecked = row.verdict == NO_VERDICT
                 broken = row.verdict == WORSE or unchecked
                 why = "; cannot check it, so the rule is broken" if unchecked else ""
+                unit, f = _shown(row)
+                diff = snap_change(row.diff * f, row.a * f, row.b * f)
                 checks.append(
                     GateCheck(rule.key, row.key, broken,
                               f"no_worse: {row.label} verdict '{row.verdict}' (B - A "
-                              f"{_fmt(row.diff)}, {level_pct} interval {_fmt(row.low)}..{_fmt(row.high)}, "
+                              f"{_fmt(diff if diff is not None else math.nan)}{unit}, {level_pct} "
+                              f"interval {_fmt(row.low * f)}..{_fmt(row.high * f)}{unit}, "
                               f"adjusted p {_fmt(row.q)}; rests on {row.basis}){why}")
                 )  # fmt: skip
             else:

@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from analysis import catalogue as cat
+from analysis.display import SHARE, people, scalar_to_display
 from analysis.errors import ThresholdsError
 from analysis.profile import unit_registry
 
@@ -260,15 +261,35 @@ def load_limits(path: str | Path) -> Limits:
 
 
 def _fmt(value: float, spec: LimitSpec) -> str:
+    """A KPI or limit as a person reads it: deg for angles, % for shares, 3 digits."""
+    if "share" in spec.key:
+        shown, unit = scalar_to_display(value, SHARE)
+        return f"{people(shown)} {unit}"
     if spec.unit:
         ureg = unit_registry()
         shown = ureg.Quantity(value, spec.si_unit).to(spec.unit).magnitude
-        return f"{shown:.4g} {spec.unit}"
-    return f"{value:.4g}"
+        return f"{people(shown)} {spec.unit}"
+    return people(value)
 
 
-def check_limits(summary: Summary, limits: Limits, wheels: tuple[str, ...] = ()) -> list[str]:
-    """Return one plain sentence per broken limit (empty when every limit holds).
+@dataclass(frozen=True)
+class LimitCheck:
+    """One limit on one KPI value: whether it held, and a plain sentence saying so."""
+
+    key: str
+    label: str
+    held: bool
+    message: str
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON shape."""
+        return {"key": self.key, "label": self.label, "held": self.held, "message": self.message}
+
+
+def evaluate_limits(
+    summary: Summary, limits: Limits, wheels: tuple[str, ...] = ()
+) -> list[LimitCheck]:
+    """Every limit on every KPI it bounds, held or broken, in the order of the file.
 
     Parameters
     ----------
@@ -278,30 +299,55 @@ def check_limits(summary: Summary, limits: Limits, wheels: tuple[str, ...] = ())
         From :func:`load_limits`.
     wheels : tuple of str
         Names of the wheel actuators (for ``wheel_saturation_share_max``).
+
+    Returns
+    -------
+    list of LimitCheck
+        A limit whose detector did not run, or whose KPI has no value, is broken
+        (a gate fails closed). Values read in deg and % (3 significant digits).
     """
     skipped = {s["detector"]: s["reason"] for s in summary.get("skipped", [])}
-    broken: list[str] = []
+    out: list[LimitCheck] = []
     for key, limit in limits.values.items():
         spec = LIMIT_SPECS[key]
         found = spec.extract(summary, wheels)
         if found is None:
             why = skipped.get(spec.detector, "it has no stored result")
-            broken.append(
-                f"{key}: cannot be checked, detector {spec.detector} did not run ({why})."
-            )
+            out.append(
+                LimitCheck(
+                    key, spec.detector, False,
+                    f"{key}: cannot be checked, detector {spec.detector} did not run ({why}).",
+                )
+            )  # fmt: skip
             continue
         for label, value in found:
             if value is None:
-                broken.append(f"{key}: {label} has no value, so the limit cannot be checked.")
-            elif spec.bound == "max" and value > limit:
-                broken.append(
-                    f"{key}: {label} is {_fmt(value, spec)}, above the limit {_fmt(limit, spec)}."
-                )
+                msg = f"{key}: {label} has no value, so the limit cannot be checked."
+                out.append(LimitCheck(key, label, False, msg))
+                continue
+            shown, bound = _fmt(value, spec), _fmt(limit, spec)
+            if spec.bound == "max" and value > limit:
+                out.append(
+                    LimitCheck(key, label, False, f"{key}: {label} is {shown}, above the limit {bound}.")
+                )  # fmt: skip
             elif spec.bound == "min" and value < limit:
-                broken.append(
-                    f"{key}: {label} is {_fmt(value, spec)}, below the limit {_fmt(limit, spec)}."
-                )
-    return broken
+                out.append(
+                    LimitCheck(key, label, False, f"{key}: {label} is {shown}, below the limit {bound}.")
+                )  # fmt: skip
+            else:
+                side = "at most" if spec.bound == "max" else "at least"
+                out.append(
+                    LimitCheck(key, label, True, f"{key}: {label} is {shown}, {side} {bound}.")
+                )  # fmt: skip
+    return out
+
+
+def check_limits(summary: Summary, limits: Limits, wheels: tuple[str, ...] = ()) -> list[str]:
+    """Return one plain sentence per broken limit (empty when every limit holds).
+
+    See :func:`evaluate_limits`, which also lists the limits that held.
+    """
+    return [c.message for c in evaluate_limits(summary, limits, wheels) if not c.held]
 
 
 def headline_kpis(summary: Summary) -> dict[str, float | int | None]:

@@ -139,6 +139,24 @@ class ChannelMap:
         return dict(self.raw)
 
 
+def _read_as(unit: str, quantity: Any, si_unit: str, ureg: pint.UnitRegistry) -> str:
+    """' (pint reads 'Nm' as nanometer: did you mean 'N*m'?)', or '' when nothing fits.
+
+    A product of units written without '*' is read by pint as one prefixed unit
+    ('Nm' is nano-metre, 'Ns' nano-second); the fix offered is a '*' between the
+    letters that gives a unit of the right dimension.
+    """
+    read = f" (pint reads {unit!r} as {quantity.units})"
+    for i in range(1, len(unit)):
+        guess = f"{unit[:i]}*{unit[i:]}"
+        try:
+            if ureg.Unit(guess).is_compatible_with(ureg.Unit(si_unit)):
+                return f" (pint reads {unit!r} as {quantity.units}: did you mean {guess!r}?)"
+        except Exception:  # pint's parser errors: not a candidate
+            continue
+    return read
+
+
 def _unit_problem(
     unit: str, signal: str, si_unit: str, where: str, ureg: pint.UnitRegistry
 ) -> tuple[str | None, float]:
@@ -164,7 +182,8 @@ def _unit_problem(
     if not quantity.unitless and not quantity.units.is_compatible_with(ureg.Unit(si_unit)):
         return (
             f"{where}: unit {unit!r} has the wrong dimension for {signal!r}, "
-            f"which expects {si_unit!r} or a unit convertible to it.",
+            f"which expects {si_unit!r} or a unit convertible to it"
+            f"{_read_as(unit, quantity, si_unit, ureg)}.",
             1.0,
         )
     # pint treats the radian as dimensionless, so 'Hz' would pass for 'rad/s' with

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from analysis import catalogue
+from analysis.ingest.timebase import decimal_comma
 
 GUESS = "# GUESS: confirm"
 
@@ -53,6 +54,7 @@ _LEFT = {"l", "left", "lft"}
 _RIGHT = {"r", "right", "rgt"}
 _WHEEL = {"wheel", "whl", "wh", "drive"}
 _HIP = {"hip", "leg", "knee"}
+_LATERAL = {"y", "vy", "lat", "lateral", "side", "sideways"}
 
 
 def _tokens(name: str) -> list[str]:
@@ -107,6 +109,8 @@ def guess_signal(name: str, actuators: Sequence[str] = ()) -> str | None:
         actuator = f"wheel_{side}"
     elif tokens & _HIP and side and not tokens & {"len", "length", "height"}:
         actuator = f"hip_{side}"
+    elif tokens & _TORQUE and side:
+        actuator = f"wheel_{side}"  # a torque with a side and no joint named: the wheels
     if actuator and (not actuators or actuator in actuators):
         if tokens & _TORQUE:
             if tokens & _REQ:
@@ -122,9 +126,11 @@ def guess_signal(name: str, actuators: Sequence[str] = ()) -> str | None:
         return catalogue.leg_length(side)
     if tokens & {"height", "h"} and is_ref:
         return catalogue.HEIGHT_REF
-    velocity = tokens & {"vel", "speed", "vx", "vy"} or ("v" in tokens and tokens & {"x", "y"})
+    velocity = tokens & {"vel", "speed", "vx", "vy", "velocity"} or (
+        "v" in tokens and tokens & ({"x"} | _LATERAL)
+    )
     if velocity and not actuator:
-        lateral = "y" in tokens or "vy" in tokens
+        lateral = bool(tokens & _LATERAL)
         if is_ref:
             return None if lateral else catalogue.VEL_X_REF
         return catalogue.VEL_Y if lateral else catalogue.VEL_X
@@ -163,6 +169,16 @@ class FileHeader:
     first_row: dict[str, object]
 
 
+def file_glob(name: str) -> str:
+    """A glob for the file and its siblings of other runs: ``*_imu.csv*`` for
+    ``run7_imu.csv.gz``; ``*imu.csv*`` when the name has no ``_`` or ``-`` part."""
+    stem, _, rest = name.partition(".")
+    ext = rest.split(".")[0] if rest else ""
+    m = re.search(r"[_-][A-Za-z][A-Za-z0-9]*$", stem)
+    tail = m.group(0) if m else stem
+    return f"*{tail}.{ext}*" if ext else f"*{tail}*"
+
+
 def template(headers: Sequence[FileHeader], actuators: Sequence[str] = ()) -> str:
     """Channel-map TOML text for the files, every guess marked for the user."""
     out = [
@@ -194,10 +210,18 @@ def template(headers: Sequence[FileHeader], actuators: Sequence[str] = ()) -> st
         torques = sum(1 for s, _ in mapped.values() if "torque" in s)
         torque_file = bool(set(_tokens(h.path.name)) & _TORQUE)
         kind = "torque" if torque_file or (torques and torques >= len(mapped) / 2) else "state"
+        commas = [c for c, v in h.first_row.items() if decimal_comma(v)]
+        if commas:
+            out += [
+                f"# {h.path.name} writes numbers with a decimal comma ({commas[0]} = "
+                f"{h.first_row[commas[0]]!r}).",
+                "# Outrigger reads decimal points: export the log with '.' as the decimal",
+                "# mark, or convert it (replace each decimal ',' with '.' in number fields).",
+            ]
         out += [
             "[[source]]",
             f'name = "{name}"',
-            f'files = "{re.sub(r"[0-9]+", "*", h.path.name)}"   {GUESS}',
+            f'files = "{file_glob(h.path.name)}"   {GUESS}',
         ]
         out.append(f'kind = "{kind}"   {GUESS}')
         if time:

@@ -29,7 +29,7 @@ from __future__ import annotations
 import hashlib
 import os
 from collections.abc import Callable, Iterable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, Protocol
@@ -49,6 +49,13 @@ from analysis.ingest.channel_map import (
     load_channel_map,
 )
 from analysis.ingest.formats import hashed_while_read, iter_file
+from analysis.ingest.identity import (
+    default_run_name,
+    find_duplicate,
+    ingest_key,
+    not_applied,
+    same_files_run,
+)
 from analysis.ingest.order import (
     ROW_GROUP_ROWS,
     dictionary_columns,
@@ -95,6 +102,10 @@ class RunWriter(Protocol):
 
     def discard_staging(self, path: Path) -> None: ...
 
+    def list_runs(self) -> list[dict[str, Any]]: ...
+
+    def delete_run(self, run_id: str) -> None: ...
+
 
 #: Decompressed log text one ingest reads by default: the ratio to the server's default
 #: 2048 MiB upload limit (``--max-text-mb`` on the command line). [bytes]
@@ -123,6 +134,12 @@ class IngestOutcome:
     run_id: str
     report: dict[str, Any]
     duplicate_of: str | None = None
+    #: A stored run from the same files with another channel map or profile.
+    differs_from: str | None = None
+    #: Metadata given to a duplicate ingest that was not applied (see ``identity``).
+    not_applied: list[str] = field(default_factory=list)
+    #: The run this ingest replaced (``replace=``), now deleted.
+    replaced: str | None = None
 
 
 def sha256_file(path: Path) -> str:
@@ -348,6 +365,7 @@ def ingest_files(
     date: str | None = None,
     progress: Progress | None = None,
     max_text_bytes: int | None = DEFAULT_MAX_TEXT_BYTES,
+    replace: str | None = None,
 ) -> IngestOutcome:
     """Ingest the log files of one run into ``archive``.
 
@@ -370,6 +388,10 @@ def ingest_files(
         Most text read from the CSV and JSON Lines files together, counted after
         decompression while streaming; None for no cap. Every line is also at most
         :data:`analysis.ingest.read.MAX_LINE_BYTES` long. [bytes]
+    replace : str, optional
+        Id of a stored run this ingest replaces: it is deleted once the new run is
+        fully staged, just before the new run is committed; an identical ingest
+        (same files, map and profile) is stored again instead of being a duplicate.
 
     Returns
     -------
@@ -382,6 +404,8 @@ def ingest_files(
     """
     say = progress or (lambda fraction, message: None)
     _parse_date(date)  # a bad --date is refused before any work
+    if replace is not None:
+        archive.get_meta(replace)  # RunNotFoundError before any work
     cmap, prof, profile_text = _resolve(channel_map, profile)
     paths = [Path(f) for f in files]
     if not paths:
@@ -407,10 +431,34 @@ def ingest_files(
     late = {p for p in paths if hashed_while_read(infos[p])}
     say(0.0, "hashing source files")
     early = {p.name: sha256_file(p) for p in paths if p not in late}
+    map_dict, prof_dict = cmap.to_dict(), prof.to_dict()
+    given = {"name": name, "course": course, "controller": controller, "tags": list(tags),
+             "notes": notes}  # fmt: skip
+
+    def duplicate_check(
+        hashes: dict[str, str],
+    ) -> tuple[IngestOutcome | None, str, str, str | None]:
+        # The run's identity: its files, channel map and profile (a new map is a new run).
+        run_hash, files_hash = ingest_key(hashes, map_dict, prof_dict)
+        existing = find_duplicate(archive, run_hash, files_hash, map_dict, prof_dict)
+        if existing is not None and existing != replace:
+            meta = archive.get_meta(existing)
+            outcome = IngestOutcome(
+                existing, meta.get("ingest_report", {}), duplicate_of=existing,
+                not_applied=not_applied(meta, given),
+            )  # fmt: skip
+            return outcome, run_hash, files_hash, None
+        differs = None if existing else same_files_run(archive, files_hash, skip=replace)
+        return None, run_hash, files_hash, differs
+
+    run_hash = files_hash = ""
+    differs_from: str | None = None
     if not late:
-        duplicate = _duplicate(archive, early, paths)
+        duplicate, run_hash, files_hash, differs_from = duplicate_check(early)
         if duplicate is not None:
             return duplicate
+    if name is None or not name.strip():
+        name = default_run_name(paths)
 
     sources = {s.name: s for s in cmap.sources}
     types: dict[str, dict[str, pa.DataType]] = {}
@@ -466,9 +514,8 @@ def ingest_files(
                 done_bytes += info.size
             t_of[sname] = w.close()
         hashes = {p.name: early[p.name] for p in paths}
-        run_hash = combined_hash(hashes.values())
         if late:
-            duplicate = _duplicate(archive, hashes, paths)
+            duplicate, run_hash, files_hash, differs_from = duplicate_check(hashes)
             if duplicate is not None:
                 archive.discard_staging(staging)
                 return duplicate
@@ -525,6 +572,11 @@ def ingest_files(
             name=name, course=course, controller=controller, tags=list(tags), notes=notes, date=date,
             duration_s=max(float(t[-1]) for t in t_of.values()),
         )  # fmt: skip
+        meta["files_hash"] = files_hash
+        if replace is not None:
+            meta["replaces"] = replace
+            say(0.96, f"deleting run {replace}, which this ingest replaces")
+            archive.delete_run(replace)
         say(0.97, "storing run")
         run_id = archive.commit_run(staging, meta)
     except AlreadyStoredError as exc:  # another ingest of these files stored them first
@@ -535,7 +587,7 @@ def ingest_files(
         archive.discard_staging(staging)
         raise
     say(1.0, f"stored run {run_id}")
-    return IngestOutcome(run_id, report)
+    return IngestOutcome(run_id, report, differs_from=differs_from, replaced=replace)
 
 
 def _plausibility(

@@ -7,6 +7,7 @@ ns lose nothing before the subtraction.
 
 from __future__ import annotations
 
+import re
 from datetime import UTC, datetime
 from decimal import Decimal
 
@@ -45,6 +46,23 @@ def time_check(source: SourceSpec) -> TimeCheck:
     return TimeCheck(lo_s * per_s, hi_s * per_s, SPIKE_S * per_s, unit, where)
 
 
+#: A number written with a decimal comma: '0,123', '-12,5', '1.234,5' (common practice,
+#: no source: the convention of many European locales).
+DECIMAL_COMMA = re.compile(r"^[+-]?\d{1,3}(?:[.\s]?\d{3})*,\d+$|^[+-]?\d+,\d+$")
+
+
+def decimal_comma(value: object) -> bool:
+    """True when ``value`` is text of a number with a decimal comma ('0,123')."""
+    return isinstance(value, str) and bool(DECIMAL_COMMA.match(value.strip()))
+
+
+def _first_text(info: FileInfo, column: str) -> str | None:
+    if info.peek is None or column not in info.peek.column_names or not info.peek.num_rows:
+        return None
+    value = info.peek.column(column)[0].as_py()
+    return value if isinstance(value, str) else None
+
+
 def time_type(info: FileInfo, source: SourceSpec) -> pa.DataType:
     if source.time_unit == ISO8601:
         return pa.timestamp("ns", "UTC")
@@ -54,6 +72,14 @@ def time_type(info: FileInfo, source: SourceSpec) -> pa.DataType:
         t = info.peek.schema.field(source.time_column).type
     else:
         t = pa.float64()
+    first = _first_text(info, source.time_column) if pa.types.is_string(t) else None
+    if first is not None and decimal_comma(first):
+        raise IngestError(
+            f"{info.path.name}: time column {source.time_column!r} holds numbers with a decimal "
+            f"comma (first value {first!r}). Outrigger reads decimal points: export the log "
+            "with '.' as the decimal mark (and ',' or ';' between columns), or convert it, "
+            "e.g. replace each decimal ',' with '.' in the number fields."
+        )
     if pa.types.is_timestamp(t) or pa.types.is_string(t):
         raise IngestError(
             f"{info.path.name}: time column {source.time_column!r} holds date-time text or "

@@ -7,7 +7,7 @@ no arithmetic on signals happens here.
 from __future__ import annotations
 
 import re
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Depends, Query
 from fastapi.responses import HTMLResponse
@@ -17,6 +17,7 @@ from analysis.compare.compare import compare_archived
 from analysis.compare.lap_compare import display_lap_table
 from analysis.compare.segments import BLOCK_M
 from analysis.compare.view import overlay
+from analysis.display import display_comparison, display_overlay, export_value
 from analysis.errors import CompareError
 from server.deps import get_archive
 from server.report import build_report
@@ -76,18 +77,30 @@ def compare(
     ] = None,
     seed: int = 0,
     n_boot: int = 2000,
+    units: Annotated[
+        Literal["display", "si"],
+        Query(description="display: angles in deg, shares in % (as the page shows); si: stored"),
+    ] = "display",
 ) -> dict[str, Any]:
     """Compare runs of version A with runs of version B on one course.
 
     Returns ``comparison`` (alignment, segments, KPI rows overall and per
     segment with B - A, 95% interval and verdict) and ``charts`` (overlay traces
-    of both versions against course position, events, segment boundaries)."""
+    of both versions against course position, events, segment boundaries).
+    ``units=display`` (default) gives KPI values and chart traces as the page
+    shows them (deg, deg/s, %; each row keeps its ``si_unit``); ``units=si`` the
+    SI values. Numbers carry 6 significant digits."""
     comp, runs_a, runs_b = _run(archive, a, b, marks, seed, n_boot)
-    out = comp.to_dict()
+    comparison, charts = comp.to_dict(), overlay(comp, runs_a, runs_b)
+    laps_shown = display_lap_table(comparison["laps"])
+    if units == "display":
+        comparison, charts = display_comparison(comparison), display_overlay(charts)
+    else:
+        comparison["units"] = charts["units"] = "si"
     return {
-        "comparison": out,
-        "charts": overlay(comp, runs_a, runs_b),
-        "laps_shown": display_lap_table(out["laps"]),
+        "comparison": export_value(comparison),
+        "charts": export_value(charts),
+        "laps_shown": export_value(laps_shown),
     }
 
 

@@ -7,6 +7,7 @@ import json
 import os
 import zipfile
 from collections.abc import Iterator
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -18,7 +19,12 @@ from pydantic import BaseModel, Field
 from analysis.archive.store import Archive
 from analysis.detect.limits import not_run
 from analysis.detect.pipeline import analyse_run, headline_kpis, load_analysis
-from analysis.display import display_event_peak, display_headline
+from analysis.display import (
+    display_detector_kpis,
+    display_event_peak,
+    display_headline,
+    export_value,
+)
 from analysis.lap_kpis import display_laps
 from analysis.profile import Thresholds
 from server.deps import ApiError, forget_run, get_archive, get_jobs, require_write
@@ -29,8 +35,8 @@ router = APIRouter(prefix="/api/runs", tags=["runs"])
 ArchiveDep = Annotated[Archive, Depends(get_archive)]
 JobsDep = Annotated[JobManager, Depends(get_jobs)]
 
-#: Columns of the events CSV, in order.
-EVENT_CSV_COLUMNS = ("kind", "channel", "start_s", "end_s", "duration_s", "peak", "unit", "detail")
+#: First columns of the events CSV, in order; then ``peak [<unit>]`` and ``detail.<key>``.
+EVENT_CSV_COLUMNS = ("kind", "channel", "start_utc", "start_s", "end_s", "duration_s")
 
 #: Bytes read per step while streaming the zip.
 ZIP_CHUNK = 1 << 20
@@ -78,8 +84,9 @@ def get_run(run_id: str, archive: ArchiveDep) -> dict[str, Any]:
     detectors, thresholds used) and the headline KPIs; ``not_run`` names, per skipped
     detector, its headline KPIs and event kinds with the reason (shown as "not run").
 
-    Values are SI; ``headline_shown`` and each event's ``shown`` give them in the
-    units the page shows (angles in degrees, ``analysis.display``)."""
+    Values are SI; ``headline_shown``, ``kpis_shown`` and each event's ``shown``
+    give them in the units the page shows (angles in deg, rates in deg/s, shares
+    in %; ``analysis.display``)."""
     meta = archive.get_meta(run_id)
     analysis = load_analysis(archive, run_id)
     headline = headline_kpis(analysis) if analysis is not None else None
@@ -93,6 +100,7 @@ def get_run(run_id: str, archive: ArchiveDep) -> dict[str, Any]:
         "headline_shown": display_headline(headline),
         "laps_shown": display_laps(analysis.get("laps")) if analysis is not None else None,
         "not_run": not_run(analysis) if analysis is not None else None,
+        "kpis_shown": display_detector_kpis(analysis.get("kpis", {})) if analysis else None,
     }
 
 
@@ -142,24 +150,73 @@ def delete_run(
     return {"deleted": run_id}
 
 
-def events_csv_text(events: list[dict[str, Any]]) -> str:
-    """Events as CSV text with :data:`EVENT_CSV_COLUMNS`; ``detail`` as JSON."""
+def _utc(start: datetime | None, seconds: Any) -> str:
+    if start is None or seconds is None:
+        return ""
+    when = start + timedelta(seconds=float(seconds))
+    return when.isoformat(timespec="milliseconds").replace("+00:00", "Z")
+
+
+def _flat(value: Any) -> Any:
+    if isinstance(value, dict | list):
+        return json.dumps(value, sort_keys=True)
+    return export_value(value)
+
+
+def events_csv_text(events: list[dict[str, Any]], start: str | None = None) -> str:
+    """Events as CSV text: :data:`EVENT_CSV_COLUMNS`, one peak column per unit, flat detail.
+
+    Parameters
+    ----------
+    events : list of dict
+        Stored events (SI).
+    start : str, optional
+        The run's absolute start, ISO 8601 UTC; gives the ``start_utc`` column (empty
+        for a run timed from boot without a date).
+
+    Returns
+    -------
+    str
+        Columns ``kind, channel, start_utc, start_s, end_s, duration_s``, then
+        ``peak [<unit>]`` for each SI unit the peaks carry (each event fills the
+        column of its unit), then ``detail.<key>`` for every detail key. Numbers
+        carry 6 significant digits.
+    """
+    t0 = None
+    if start:
+        try:
+            t0 = datetime.fromisoformat(str(start).replace("Z", "+00:00")).astimezone(UTC)
+        except ValueError:
+            t0 = None
+    units: list[str] = []
+    keys: list[str] = []
+    for e in events:
+        raw = e.get("detail")
+        detail: dict[str, Any] = raw if isinstance(raw, dict) else {}
+        unit = str(detail.get("unit", "") or "-")
+        if unit not in units:
+            units.append(unit)
+        keys += [k for k in detail if k != "unit" and k not in keys]
+    peak_cols = {u: f"peak [{u}]" for u in units}
+    columns = [*EVENT_CSV_COLUMNS, *peak_cols.values(), *(f"detail.{k}" for k in sorted(keys))]
     rows = []
     for e in events:
-        detail = e.get("detail") or {}
-        rows.append(
-            {
-                "kind": e.get("kind"),
-                "channel": e.get("channel") or "",
-                "start_s": e.get("start_s"),
-                "end_s": e.get("end_s"),
-                "duration_s": e.get("duration_s"),
-                "peak": e.get("peak"),
-                "unit": detail.get("unit", "") if isinstance(detail, dict) else "",
-                "detail": json.dumps(detail, sort_keys=True),
-            }
-        )
-    frame = pd.DataFrame(rows, columns=list(EVENT_CSV_COLUMNS))
+        raw = e.get("detail")
+        detail = raw if isinstance(raw, dict) else {}
+        row: dict[str, Any] = {
+            "kind": e.get("kind"),
+            "channel": e.get("channel") or "",
+            "start_utc": _utc(t0, e.get("start_s")),
+            "start_s": export_value(e.get("start_s")),
+            "end_s": export_value(e.get("end_s")),
+            "duration_s": export_value(e.get("duration_s")),
+        }
+        row[peak_cols[str(detail.get("unit", "") or "-")]] = export_value(e.get("peak"))
+        for k, v in detail.items():
+            if k != "unit":
+                row[f"detail.{k}"] = _flat(v)
+        rows.append(row)
+    frame = pd.DataFrame(rows, columns=columns)
     return frame.to_csv(index=False, lineterminator="\n")
 
 
@@ -175,7 +232,7 @@ def events_csv(run_id: str, archive: ArchiveDep) -> Response:
             status=409,
         )
     return Response(
-        events_csv_text(analysis["events"]),
+        events_csv_text(analysis["events"], archive.get_meta(run_id).get("date")),
         media_type="text/csv; charset=utf-8",
         headers={"Content-Disposition": f'attachment; filename="{run_id}-events.csv"'},
     )

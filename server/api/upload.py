@@ -324,16 +324,29 @@ async def upload(request: Request, archive: ArchiveDep, jobs: JobsDep) -> dict[s
             max_text_bytes=text_limit,
         )
         if outcome.duplicate_of and archive.is_analysed(outcome.duplicate_of):
-            progress(1.0, f"these files are already stored as run {outcome.duplicate_of}")
+            said = f"these files are already stored as run {outcome.duplicate_of}"
+            if outcome.not_applied:
+                said += (
+                    "; not applied (the stored run keeps its own): "
+                    + "; ".join(outcome.not_applied)
+                    + ". Change them on the run's page (Edit)"
+                )
+            progress(1.0, said)
             return str(outcome.duplicate_of)
         # a new run, or one stored earlier whose analysis never ran: analyse it now
+        note = (
+            f"; the same files are stored as run {outcome.differs_from} with another channel "
+            "map or profile, so this is a new run"
+            if outcome.differs_from
+            else ""
+        )
 
         def analysis_progress(fraction: float, message: str) -> None:
             progress(INGEST_SHARE + (1 - INGEST_SHARE) * fraction, f"analysis: {message}")
 
         analyse_run(archive, outcome.run_id, progress=analysis_progress)
         forget_run(request, str(outcome.run_id))
-        progress(1.0, "ingested and analysed")
+        progress(1.0, "ingested and analysed" + note)
         return str(outcome.run_id)
 
     job = jobs.submit(

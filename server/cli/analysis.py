@@ -11,8 +11,9 @@ from analysis.archive.fleet import read_fleet
 from analysis.archive.store import Archive
 from analysis.catalogue import EVENT_KINDS
 from analysis.detect.batch import BatchOutcome, reanalyse
-from analysis.detect.limits import check_limits, load_limits
+from analysis.detect.limits import evaluate_limits, load_limits
 from analysis.detect.pipeline import analyse_run, load_analysis, sync_fleet
+from analysis.display import export_value
 from analysis.errors import ThresholdsError
 from analysis.profile import load_thresholds
 from server.cli.main import add_data_option, data_dir
@@ -107,7 +108,7 @@ def _analyse(args: argparse.Namespace) -> int:
     )
     result = analyse_run(archive, args.run, thresholds).to_json(args.run)
     if args.json:
-        json.dump(result, sys.stdout, indent=2)
+        json.dump(export_value(result), sys.stdout, indent=2)
         print()
     else:
         _print_summary(result)
@@ -172,7 +173,7 @@ def _fleet(args: argparse.Namespace) -> int:
         if wanted:
             table = table[table[col] == wanted]
     if args.csv:
-        table.to_csv(sys.stdout, index=False)
+        table.to_csv(sys.stdout, index=False, float_format="%.6g")
     else:
         print(table.to_string(index=False, max_colwidth=40))
     return 0
@@ -186,14 +187,21 @@ def _check(args: argparse.Namespace) -> int:
     if summary is None:
         summary = analyse_run(archive, args.run).to_json(args.run)
     wheels = tuple(a.name for a in archive.load_profile(args.run).wheels().values())
-    broken = check_limits(summary, limits, wheels)
+    checks = evaluate_limits(summary, limits, wheels)
+    broken = [c.message for c in checks if not c.held]
+    held = [c.message for c in checks if c.held]
     if args.json:
-        json.dump({"run": args.run, "passed": not broken, "broken": broken}, sys.stdout, indent=2)
+        json.dump(
+            {"run": args.run, "passed": not broken, "broken": broken, "held": held,
+             "checks": [c.to_dict() for c in checks]},
+            sys.stdout, indent=2,
+        )  # fmt: skip
         print()
-    elif broken:
-        print(f"run {args.run}: {len(broken)} limit(s) broken")
-        for line in broken:
-            print(f"  BROKEN {line}")
+        return 1 if broken else 0
+    if broken:
+        print(f"run {args.run}: {len(broken)} limit(s) broken, {len(held)} held")
     else:
-        print(f"run {args.run}: every limit in {args.limits} holds")
+        print(f"run {args.run}: every limit in {args.limits} holds ({len(held)} checked)")
+    for c in checks:
+        print(f"  {'held  ' if c.held else 'BROKEN'} {c.message}")
     return 1 if broken else 0

@@ -1,4 +1,4 @@
-"""Archive commands: ``ingest``, ``runs``, ``show``, ``map-template``.
+"""Archive commands: ``ingest``, ``runs``, ``show``, ``delete``, ``map-template``.
 
 Each command calls one ``analysis`` function and prints its result, as text
 for people or as JSON (``--json``) for scripts.
@@ -18,7 +18,7 @@ from typing import Any
 import pyarrow.parquet as pq
 
 from analysis.archive.store import Archive
-from analysis.errors import IngestError
+from analysis.errors import IngestError, OutriggerError
 from analysis.ingest.map_template import FileHeader, template
 from analysis.ingest.read import inspect_file
 from analysis.ingest.stream import DEFAULT_MAX_TEXT_BYTES, ingest_files
@@ -37,13 +37,19 @@ def register(subparsers: Any) -> None:
     p.add_argument("files", nargs="+", metavar="FILE", help="CSV (.gz), Parquet or JSON Lines log")
     p.add_argument("--map", required=True, metavar="MAP.toml", help="channel map")
     p.add_argument("--profile", required=True, metavar="ROBOT.toml", help="robot profile")
-    p.add_argument("--name", help="run name (default: the first file's name)")
+    p.add_argument("--name", help="run name (default: the common start of the file names)")
     p.add_argument("--course", help="course driven, e.g. gullhaven-loop")
     p.add_argument("--controller", help="controller version")
     p.add_argument("--tag", action="append", default=[], help="tag (repeatable)")
     p.add_argument("--notes", default="", help="free text")
     p.add_argument("--date", help="ISO 8601 start, for logs timed from boot")
     p.add_argument("--no-analyse", action="store_true", help="store only; do not analyse")
+    p.add_argument(
+        "--replace",
+        metavar="RUN",
+        help="replace stored run RUN (e.g. after fixing its channel map): RUN is deleted "
+        "once the new run is staged",
+    )
     p.add_argument(
         "--max-text-mb",
         type=int,
@@ -70,6 +76,17 @@ def register(subparsers: Any) -> None:
     p.add_argument("--json", action="store_true", help="print meta.json as stored")
     add_data_option(p)
     p.set_defaults(func=cmd_show)
+
+    p = subparsers.add_parser(
+        "delete",
+        help="delete a stored run and its files (asks for the id again)",
+        description="Delete a stored run, its files and results. This cannot be undone: "
+        "type the run id again when asked, or give --yes.",
+    )
+    p.add_argument("run", metavar="RUN", help="run id")
+    p.add_argument("--yes", action="store_true", help="do not ask; delete at once")
+    add_data_option(p)
+    p.set_defaults(func=cmd_delete)
 
     p = subparsers.add_parser(
         "map-template", help="write a starter channel map from the files' headers"
@@ -141,13 +158,14 @@ def cmd_ingest(args: argparse.Namespace) -> int:
         args.files,
         args.map,
         args.profile,
-        name=args.name or Path(args.files[0]).name.split(".")[0],
+        name=args.name,
         course=args.course,
         controller=args.controller,
         tags=args.tag,
         notes=args.notes,
         date=args.date,
         progress=_Bar(not args.quiet and not args.json),
+        replace=args.replace,
         max_text_bytes=_positive_mb(args.max_text_mb, "--max-text-mb"),
     )
     analysed: str | None = None
@@ -170,6 +188,9 @@ def cmd_ingest(args: argparse.Namespace) -> int:
                 {
                     "run_id": outcome.run_id,
                     "duplicate_of": outcome.duplicate_of,
+                    "differs_from": outcome.differs_from,
+                    "not_applied": outcome.not_applied,
+                    "replaced": outcome.replaced,
                     "analysis": analysed,
                     "report": outcome.report,
                 },
@@ -181,11 +202,29 @@ def cmd_ingest(args: argparse.Namespace) -> int:
         print(outcome.run_id)
         return 0
     if outcome.duplicate_of:
-        print(f"{outcome.run_id}: these files were ingested before; nothing new stored.")
+        print(
+            f"{outcome.run_id}: these files were ingested before with the same channel map and "
+            "profile; nothing new stored. To ingest them again, give --replace "
+            f"{outcome.run_id}."
+        )
+        if outcome.not_applied:
+            print(
+                "Not applied (the stored run keeps its own): "
+                + "; ".join(outcome.not_applied)
+                + ". Change them on the run's page (Edit)."
+            )
         if analysed == "done":
             print(f"{outcome.run_id}: it had not been analysed; analysed now.")
         return 0
     print(outcome.run_id)
+    if outcome.replaced:
+        print(f"replaces run {outcome.replaced}, which is deleted")
+    if outcome.differs_from:
+        print(
+            f"note: the same files are stored as run {outcome.differs_from} with another channel "
+            f"map or profile; this is a new run. `outrigger delete {outcome.differs_from}` "
+            "removes the old one."
+        )
     print("\n".join(_short_report(outcome.report)))
     if analysed and analysed != "done":
         print(f"analysis {analysed}")
@@ -212,6 +251,29 @@ def cmd_runs(args: argparse.Namespace) -> int:
             f"{(r['controller'] or '-')[:12]:12s} {r['duration_s'] or 0:7.1f} {dist:>8s} "
             f"{'y ' if r['analysed'] else 'n '} {','.join(r['tags'])} {r['name'] or ''}"
         )
+    return 0
+
+
+def cmd_delete(args: argparse.Namespace) -> int:
+    """``outrigger delete``: delete a run after the id is typed again (or ``--yes``)."""
+    archive = Archive(data_dir(args))
+    meta = archive.get_meta(args.run)  # RunNotFoundError (exit 2) before asking
+    if not args.yes:
+        print(
+            f"Deleting run {args.run} ({meta.get('name')}) and its files cannot be undone.",
+            file=sys.stderr,
+        )
+        try:
+            answer = input("Type the run id again to delete it: ")
+        except EOFError:
+            answer = ""
+        if answer.strip() != args.run:
+            raise OutriggerError(
+                f"Run {args.run} was not deleted: the id typed ({answer.strip()!r}) does not "
+                "match. Type it exactly, or give --yes."
+            )
+    archive.delete_run(args.run)
+    print(f"deleted run {args.run}")
     return 0
 
 

@@ -32,6 +32,7 @@ from analysis.compare.gate import GateCheck, check_gate, gate_from_mapping
 from analysis.compare.segments import BLOCK_M
 from analysis.compare.table import verdict_text
 from analysis.compare.view import overlay
+from analysis.display import display_kpi_row, export_value, people
 from analysis.errors import CompareError
 from server.cli.laps_text import compare_lap_lines
 from server.cli.main import add_data_option, data_dir
@@ -185,7 +186,11 @@ def read_gate_file(path: str) -> dict[str, Any]:
 
 
 def write_text_atomic(path: str, text: str) -> None:
-    """Write a file through a temporary file in the same folder, so nothing is half-written."""
+    """Write a file through a temporary file in the same folder, so nothing is half-written.
+
+    The file gets the permissions of any new file (0644 under the usual umask 022),
+    not the owner-only 0600 of the temporary file.
+    """
     target = Path(path)
     if not target.parent.is_dir():
         raise CompareError(f"Cannot write {path}: folder {target.parent} does not exist.")
@@ -193,25 +198,30 @@ def write_text_atomic(path: str, text: str) -> None:
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)
         os.replace(tmp, target)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
 
 
-def _fmt(x: float, digits: int = 4) -> str:
-    return "–" if x != x else f"{x:.{digits}g}"
-
-
 def _table(rows: list[KpiRow]) -> str:
+    """KPI rows as text, in the units a person reads (deg, %), 3 significant digits."""
     lines = [
-        f"{'KPI':34} {'A':>10} {'B':>10} {'B - A':>10}  {'95% interval':>23} {'adj. p':>7}  verdict"
+        f"{'KPI':38} {'A':>10} {'B':>10} {'B - A':>10}  {'95% interval':>23} {'adj. p':>7}  verdict"
     ]
-    for r in rows:
-        interval = f"{_fmt(r.low)} .. {_fmt(r.high)}" if r.low == r.low else "–"
+    for row in rows:
+        r = display_kpi_row(row.to_dict())
+        low, high = r["low"], r["high"]
+        interval = (
+            f"{people(low)} .. {people(high)}" if low is not None and high is not None else "–"
+        )
+        q = "–" if row.q != row.q else f"{row.q:.2g}"
         lines.append(
-            f"{r.key + ' [' + r.unit + ']':34} {_fmt(r.a):>10} {_fmt(r.b):>10} "
-            f"{_fmt(r.diff):>10}  {interval:>23} {_fmt(r.q, 2):>7}  {verdict_text(r)}"
+            f"{r['key'] + ' [' + r['unit'] + ']':38} {people(r['a']):>10} {people(r['b']):>10} "
+            f"{people(r['diff']):>10}  {interval:>23} {q:>7}  {verdict_text(row)}"
         )
     return "\n".join(lines)
 
@@ -270,7 +280,7 @@ def run_compare(args: argparse.Namespace) -> int:
                 "passed": not any(c.broken for c in checks),
                 "checks": [c.to_dict() for c in checks],
             }
-        json.dump(out, sys.stdout, indent=2, allow_nan=False)
+        json.dump(export_value(out), sys.stdout, indent=2, allow_nan=False)
         print()
     else:
         _print_text(comp, checks)

@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import argparse
+import errno
 import ipaddress
+import socket
 import sys
 from pathlib import Path
 from typing import Any
@@ -39,6 +41,49 @@ def open_host_caution(host: str, token: str | None) -> str:
     )
 
 
+def check_port(host: str, port: int) -> None:
+    """Refuse, saying so, a port that another program already listens on.
+
+    Raises
+    ------
+    ArchiveError
+        When ``host:port`` cannot be bound, with how to pick another port.
+    """
+    from analysis.errors import ArchiveError
+
+    family = socket.AF_INET6 if ":" in host else socket.AF_INET
+    with socket.socket(family, socket.SOCK_STREAM) as probe:
+        probe.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        try:
+            probe.bind((host, port))
+        except OSError as exc:
+            if exc.errno == errno.EADDRINUSE:
+                raise ArchiveError(
+                    f"Port {port} on {host} is already in use (another Outrigger or another "
+                    f"program). Pick another port: --port 8400, or `make demo PORT=8400`."
+                ) from exc
+            raise ArchiveError(f"Cannot listen on {host}:{port}: {exc.strerror}.") from exc
+
+
+def store_demo_configs(archive: Any, folder: Path) -> list[str]:
+    """Store the demo runs' channel map and robot profile as named configs (once).
+
+    The Upload page then offers them in its stored-map and stored-profile lists.
+    Returns the ``kind/name`` of each config stored now (none when already there).
+    """
+    from analysis.demo.load import read_demo_index
+
+    index = read_demo_index(folder)
+    stored = []
+    for kind, key in (("map", "map"), ("profile", "profile")):
+        path = folder / index[key]
+        name = f"demo-{path.stem}"
+        if name not in archive.list_configs(kind):
+            archive.save_config(kind, name, path.read_text(encoding="utf-8"))
+            stored.append(f"{kind}/{name}")
+    return stored
+
+
 def build_app(args: argparse.Namespace) -> Any:
     """The dashboard app for ``serve``/``demo`` options: served hosts from ``--host`` and
     ``--allow-host``, the token and the upload limit."""
@@ -58,6 +103,7 @@ def _serve(args: argparse.Namespace) -> int:  # pragma: no cover - runs until in
     import uvicorn
 
     host, port = args.host, args.port
+    check_port(host, port)
     app = build_app(args)
     if not is_loopback(host):
         print(open_host_caution(host, args.token), file=sys.stderr)
@@ -119,6 +165,8 @@ def cmd_demo(args: argparse.Namespace) -> int:
     print(f"Loading the demo runs from {DEMO_LOGS}/ into {data} ...")
     run_ids = load_demo_runs(archive, DEMO_LOGS)
     print(f"{len(run_ids)} demo run(s) ready: {', '.join(run_ids)}")
+    for name in store_demo_configs(archive, DEMO_LOGS):
+        print(f"stored {name} for the Upload page")
     if args.no_serve:
         return 0
     return _serve(args)

@@ -10,10 +10,17 @@ import pytest
 
 from analysis import catalogue as cat
 from analysis.display import (
+    display_comparison,
+    display_detector_kpis,
     display_event_peak,
     display_headline,
+    display_kpi_row,
+    display_overlay,
     display_unit,
+    export_value,
+    people,
     scalar_to_display,
+    snap_change,
     to_display,
 )
 
@@ -72,7 +79,11 @@ def test_headline_roll_error_rms_in_degrees_others_unchanged() -> None:
     # Reference library: pint (0.01 rad is about 0.573 deg).
     expected = UREG.Quantity(0.01, "rad").to("deg").magnitude
     assert shown["roll_error_rms"]["value"] == pytest.approx(expected, rel=1e-12)
-    assert shown["worst_saturation_share"] == {"value": 0.25, "unit": ""}
+    # A share of time is read in percent: 0.25 is 25 % (pint: dimensionless -> percent).
+    assert shown["worst_saturation_share"]["unit"] == "%"
+    assert shown["worst_saturation_share"]["value"] == pytest.approx(
+        UREG.Quantity(0.25, "").to("percent").magnitude, rel=1e-12
+    )
     assert shown["slip_events"] == {"value": 4, "unit": ""}
     assert shown["min_tip_margin"] == {"value": 0.3, "unit": ""}
     assert display_headline(None) is None
@@ -93,3 +104,77 @@ def test_event_peaks_follow_their_detail_unit() -> None:
         "peak": None,
         "unit": "deg",
     }
+
+
+@pytest.mark.parametrize(
+    ("value", "text"),
+    [
+        (0.34500000000000064, "0.345"),  # the float noise of the issue
+        (0.012345, "0.0123"),
+        (12345.6, "12300"),
+        (-1.5, "-1.5"),
+        (-0.0, "0"),
+        (2.1e-05, "2.1e-05"),
+        (None, "–"),
+        (float("nan"), "–"),
+    ],
+)
+def test_people_read_three_significant_digits(value, text) -> None:
+    # Hand-rounded to 3 significant digits (common practice, no source).
+    assert people(value) == text
+
+
+def test_exports_keep_six_significant_digits() -> None:
+    data = {"a": 0.34500000000000064, "b": [1 / 3, 2], "c": "x", "d": None, "e": True}
+    # By hand: 1/3 to 6 significant digits is 0.333333.
+    assert export_value(data) == {"a": 0.345, "b": [0.333333, 2], "c": "x", "d": None, "e": True}
+
+
+def test_round_off_is_no_change() -> None:
+    # 0.1 + 0.2 - 0.3 is 5.55e-17 in IEEE 754 doubles: round-off, not a change.
+    assert snap_change(0.1 + 0.2 - 0.3, 0.3, 0.1 + 0.2) == 0.0
+    assert snap_change(1e-3, 0.010, 0.011) == 1e-3
+    assert snap_change(None, 1.0, 1.0) is None
+
+
+def test_comparison_rows_are_shown_in_deg_and_percent() -> None:
+    roll = {"key": "roll_error_rms", "metric": "roll_error_rms", "unit": "rad", "a": 0.01,
+            "b": 0.02, "diff": 0.01, "diff_pct": 100.0, "low": 0.005, "high": None}  # fmt: skip
+    share = {"key": "wheel_l.saturation_share", "metric": "saturation_share", "unit": "-",
+             "a": 0.0095, "b": 0.0, "diff": -0.0095, "diff_pct": -100.0, "low": -0.01,
+             "high": 0.0}  # fmt: skip
+    shown = display_comparison({"kpis": [roll, share], "segment_kpis": {"S1": [roll]}})
+    r, s = shown["kpis"]
+    # Reference library: pint.
+    assert r["unit"] == "deg" and r["si_unit"] == "rad"
+    assert r["a"] == pytest.approx(UREG.Quantity(0.01, "rad").to("deg").magnitude, rel=1e-12)
+    assert r["high"] is None and r["diff_pct"] == 100.0
+    assert s["unit"] == "%" and s["a"] == pytest.approx(0.95, rel=1e-12)  # 0.0095 = 0.95 %
+    assert shown["segment_kpis"]["S1"][0]["unit"] == "deg"
+    assert shown["units"] == "display"
+    iae = display_kpi_row({"metric": "roll_error_iae", "unit": "rad*s", "a": 1.0, "b": 1.0,
+                           "diff": -3.553e-15, "diff_pct": -1e-13})  # fmt: skip
+    assert iae["unit"] == "deg*s" and iae["diff"] == 0.0 and iae["diff_pct"] == 0.0
+
+
+def test_overlay_traces_and_detector_kpis_are_shown_in_degrees() -> None:
+    view = {
+        "signals": [{"name": "roll_error", "label": "Roll error", "unit": "rad"},
+                    {"name": "tip_margin", "label": "Tip", "unit": "-"}],
+        "traces": [{"signals": {"roll_error": {"x": [0.0, 1.0], "y": [math.pi, None]},
+                                "tip_margin": {"x": [0.0], "y": [0.5]}}}],
+    }  # fmt: skip
+    shown = display_overlay(view)
+    assert shown["signals"][0]["unit"] == "deg" and shown["signals"][1]["unit"] == "-"
+    # Definition: pi rad = 180 deg.
+    assert shown["traces"][0]["signals"]["roll_error"]["y"] == [pytest.approx(180.0), None]
+    assert shown["traces"][0]["signals"]["tip_margin"]["y"] == [0.5]
+    kpis = display_detector_kpis(
+        {"roll": {"rms": math.pi, "lag_s": 0.1, "method": "x"},
+         "saturation": {"wheel_l": {"saturated_share": 0.5, "event_count": 3}}}
+    )  # fmt: skip
+    assert kpis["roll"]["rms"] == {"value": pytest.approx(180.0), "unit": "deg"}
+    assert kpis["roll"]["lag_s"] == {"value": 0.1, "unit": "s"}
+    assert kpis["roll"]["method"] == "x"
+    assert kpis["saturation"]["wheel_l"]["saturated_share"] == {"value": 50.0, "unit": "%"}
+    assert kpis["saturation"]["wheel_l"]["event_count"] == {"value": 3.0, "unit": ""}

@@ -121,10 +121,10 @@ def test_bad_input_is_refused_clearly_through_cli_and_api(matrix, name):
         job = got["job"]
         assert job["state"] == ("done" if stored else "failed"), job
         if not stored:
-            assert job["error"]["type"] != "InternalError"
-            assert words in job["error"]["message"]
-            assert "/tmp/" not in job["error"]["message"]
+            assert job["error"]["type"] != "/api.html#problem-internal"
+            assert words in job["error"]["detail"]
+            assert "/tmp/" not in job["error"]["detail"]
     else:
         # refused as it arrived (every input is under the upload limit)
         assert not stored and got["status"] == 400, got
-        assert words in got["body"]["error"]["message"]
+        assert words in got["body"]["detail"]

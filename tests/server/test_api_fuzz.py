@@ -5,8 +5,8 @@ requests, both schema-conforming (positive) and schema-violating (negative); eac
 request is sent in-process through the FastAPI TestClient (no socket). The properties:
 
 - no answer is a 5xx;
-- every 4xx carries the one error shape ``{"error": {"type", "message"}}`` with a
-  non-empty type and message;
+- every 4xx carries the one error shape, RFC 9457 problem details, with a
+  non-empty type, title and detail, naming no internal class or server path;
 - on a server started with a token, a write without the token never succeeds and the
   archive (every run file, meta.json, stored configs, catalog) hashes the same after
   all the requests;
@@ -95,19 +95,24 @@ def digest_change(before: dict[str, str], after: dict[str, str]) -> str:
 
 
 def error_shape_problem(response: Any) -> str | None:
-    """Why a 4xx body is not ``{"error": {"type", "message"}}`` with text in both, or None."""
+    """Why a 4xx body is not RFC 9457 problem details with text in each member, or None."""
+    if response.headers.get("content-type") != "application/problem+json":
+        return f"media type {response.headers.get('content-type')!r}, not application/problem+json"
     try:
         body = response.json()
     except ValueError:
         return f"not JSON: {response.text[:200]!r}"
-    error = body.get("error") if isinstance(body, dict) else None
-    if not isinstance(error, dict):
-        return f"no 'error' object: {body!r:.200}"
-    for key in ("type", "message"):
-        if not isinstance(error.get(key), str) or not error[key].strip():
-            return f"error.{key} missing or empty: {error!r:.200}"
-    if re.search(r"(?:^|: |; ): ", error["message"]):
-        return f"a part of the message names no place (': '): {error['message']!r:.200}"
+    if not isinstance(body, dict):
+        return f"not a problem object: {body!r:.200}"
+    for key in ("type", "title", "detail"):
+        if not isinstance(body.get(key), str) or not body[key].strip():
+            return f"{key} missing or empty: {body!r:.200}"
+    if body.get("status") != response.status_code:
+        return f"status {body.get('status')!r} is not the HTTP status {response.status_code}"
+    if re.search(r"(?:^|: |; ): ", body["detail"]):
+        return f"a part of the detail names no place (': '): {body['detail']!r:.200}"
+    if re.search(r"\b\w+Error\b|/tmp/|/home/|\.py\b", body["title"] + body["detail"]):
+        return f"names an internal class or server path: {body!r:.200}"
     return None
 
 
@@ -323,7 +328,7 @@ def test_refused_writes_with_the_token_leave_the_archive_as_it_was(
             if response.status_code == 202:
                 job = wait_job(client, response.json()["job"]["id"])
                 error = job.get("error") or {}
-                if error.get("type") == "InternalError":
+                if error.get("type") == "/api.html#problem-internal":
                     findings.add(label, request, f"its job failed internally: {job}")
             if refused:
                 change = digest_change(before, archive_digest(root))
@@ -352,7 +357,7 @@ def test_non_finite_window_is_a_clear_400(
     for query in ("t0=nan", "t1=inf", "t0=-inf&t1=1"):
         response = token_client.get(f"/api/runs/{run}/series?signals=roll&{query}")
         assert response.status_code == 400, response.text
-        assert "must be a finite time in seconds" in response.json()["error"]["message"]
+        assert "must be a finite time in seconds" in response.json()["detail"]
 
 
 def test_negative_bootstrap_seed_is_a_clear_400(
@@ -362,7 +367,7 @@ def test_negative_bootstrap_seed_is_a_clear_400(
     run = fuzz_archive.run_id
     response = token_client.get(f"/api/compare?a={run}&b={run}&seed=-1&n_boot=100")
     assert response.status_code == 400, response.text
-    assert "seed must be a whole number >= 0, found -1" in response.json()["error"]["message"]
+    assert "seed must be a whole number >= 0, found -1" in response.json()["detail"]
 
 
 def test_validation_errors_name_the_request_body(fuzz_archive: FuzzArchive, tmp_path: Path) -> None:
@@ -375,7 +380,7 @@ def test_validation_errors_name_the_request_body(fuzz_archive: FuzzArchive, tmp_
             f"/api/runs/{run}", content=b"{oops", headers={"content-type": "application/json"}
         )
     assert missing.status_code == 400
-    assert "request body: Field required" in missing.json()["error"]["message"]
+    assert "request body: Field required" in missing.json()["detail"]
     assert broken.status_code == 400
-    assert "request body: not valid JSON" in broken.json()["error"]["message"]
-    assert "at character 1" in broken.json()["error"]["message"]
+    assert "request body: not valid JSON" in broken.json()["detail"]
+    assert "at character 1" in broken.json()["detail"]

@@ -7,6 +7,7 @@ import io
 import sys
 import types
 import zipfile
+from datetime import datetime
 
 import numpy as np
 import pytest
@@ -29,10 +30,12 @@ HEADLINE_KEYS = {"worst_saturation_share", "slip_events", "min_tip_margin", "rol
 
 
 def _error(response) -> dict:
+    # RFC 9457 problem details: type, title, status, detail (and the request path).
+    assert response.headers["content-type"] == "application/problem+json"
     body = response.json()
-    assert set(body) == {"error"}, body
-    assert set(body["error"]) == {"type", "message"}
-    return body["error"]
+    assert set(body) == {"type", "title", "status", "detail", "instance"}, body
+    assert body["status"] == response.status_code
+    return body
 
 
 # --- runs ----------------------------------------------------------------------------
@@ -94,8 +97,8 @@ def test_unknown_run_is_404_with_the_error_shape(client: TestClient) -> None:
     response = client.get("/api/runs/no-such-run")
     assert response.status_code == 404
     error = _error(response)
-    assert error["type"] == "RunNotFoundError"
-    assert "no-such-run" in error["message"]
+    assert error["type"] == "/api.html#problem-run-not-found"
+    assert "no-such-run" in error["detail"]
 
 
 # --- charts and series -------------------------------------------------------------------
@@ -198,7 +201,7 @@ def test_derived_series_are_served_like_frame_columns(client: TestClient, stocke
 def test_series_bad_requests(client: TestClient, stocked: Stocked, params, message) -> None:
     response = client.get(f"/api/runs/{stocked.planted_id}/series", params=params)
     assert response.status_code == 400
-    assert message in _error(response)["message"]
+    assert message in _error(response)["detail"]
 
 
 # --- downloads --------------------------------------------------------------------------
@@ -212,16 +215,26 @@ def test_events_csv(client: TestClient, stocked: Stocked) -> None:
     rows = list(csv.DictReader(io.StringIO(response.text)))
     events = client.get(f"/api/runs/{stocked.demo_id}").json()["analysis"]["events"]
     assert len(rows) == len(events)
-    assert list(rows[0]) == [
-        "kind",
-        "channel",
-        "start_s",
-        "end_s",
-        "duration_s",
-        "peak",
-        "unit",
-        "detail",
-    ]
+    header = list(rows[0])
+    assert header[:6] == ["kind", "channel", "start_utc", "start_s", "end_s", "duration_s"]
+    # Peaks in the unit the header states, one column per unit; detail as flat columns.
+    peak_cols = [h for h in header if h.startswith("peak [")]
+    assert "peak [rad]" in peak_cols and "detail" not in header
+    assert any(h.startswith("detail.") for h in header)
+    for row, event in zip(rows, events, strict=True):
+        unit = (event.get("detail") or {}).get("unit") or "-"
+        if event["peak"] is not None:
+            # Six significant digits (export rounding), so rel 1e-5.
+            assert float(row[f"peak [{unit}]"]) == pytest.approx(event["peak"], rel=1e-5)
+        for other in peak_cols:
+            if other != f"peak [{unit}]":
+                assert row[other] == ""
+    # start_utc is the run's start plus start_s (ISO 8601, UTC).
+    start = datetime.fromisoformat(
+        client.get(f"/api/runs/{stocked.demo_id}").json()["run"]["date"].replace("Z", "+00:00")
+    )
+    first = datetime.fromisoformat(rows[0]["start_utc"].replace("Z", "+00:00"))
+    assert (first - start).total_seconds() == pytest.approx(events[0]["start_s"], abs=1e-3)
     assert float(rows[0]["start_s"]) == pytest.approx(events[0]["start_s"])
 
 
@@ -314,7 +327,7 @@ def test_internal_error_is_a_generic_500_and_the_server_goes_on(
         response = c.get("/api/runs")
         assert response.status_code == 500
         error = _error(response)
-        assert error["type"] == "InternalError"
+        assert error["type"] == "/api.html#problem-internal"
         assert "secret internal detail" not in response.text
         assert "Traceback" not in response.text
         monkeypatch.undo()

@@ -49,7 +49,7 @@ def test_unknown_unit_system_is_refused(client: TestClient, stocked: Stocked) ->
         f"/api/runs/{stocked.planted_id}/series", params={"signals": cat.ROLL, "units": "imperial"}
     )
     assert response.status_code == 400
-    assert "units" in response.json()["error"]["message"]
+    assert "units" in response.json()["detail"]
 
 
 def test_chart_plan_declares_shown_units_and_limit_lines_in_them(

@@ -19,8 +19,8 @@ def api(tmp_path: Path) -> Iterator[TestClient]:
 
 def _error(response) -> dict:
     body = response.json()
-    assert set(body) == {"error"}, body
-    return body["error"]
+    assert {"type", "title", "status", "detail"} <= set(body), body
+    return body
 
 
 def test_upload_a_demo_run_then_find_and_open_it(api: TestClient, demo_inputs: RunInputs) -> None:
@@ -51,6 +51,13 @@ def test_upload_a_demo_run_then_find_and_open_it(api: TestClient, demo_inputs: R
     assert again["run_id"] == run_id
     assert "already stored" in again["message"]
     assert len(api.get("/api/runs").json()["runs"]) == 1
+    # ... and a new name or tags brought with them are said not to be applied (item 6).
+    renamed = dict(fields, name="other name", tags="wet")
+    third = wait_job(api, api.post("/api/upload", files=parts, data=renamed).json()["job"]["id"])
+    assert third["run_id"] == run_id
+    assert "not applied" in third["message"]
+    assert "name 'other name' (stored: 'uploaded demo')" in third["message"]
+    assert api.get(f"/api/runs/{run_id}").json()["run"]["name"] == "uploaded demo"
 
 
 def test_upload_with_stored_map_and_profile(
@@ -67,14 +74,17 @@ def test_upload_with_stored_map_and_profile(
     data = {"map_name": "bench-map", "profile_name": "bench-profile"}
     job = wait_job(api, api.post("/api/upload", files=parts, data=data).json()["job"]["id"])
     assert job["state"] == "done", job
+    # No name given: the run is named after its file plant_state.csv (the fixture's one
+    # log), never "None" (issue 13, item 7).
+    assert api.get(f"/api/runs/{job['run_id']}").json()["run"]["name"] == "plant_state"
 
 
 def test_stored_profile_that_is_broken_is_refused(api: TestClient) -> None:
     response = api.put("/api/configs/profile/broken", content=b"[robot]\nname = 'x'\n")
     assert response.status_code == 400
     error = _error(response)
-    assert error["type"] == "ProfileError"
-    assert "wheel_radius_m" in error["message"]
+    assert error["type"] == "/api.html#problem-robot-profile"
+    assert "wheel_radius_m" in error["detail"]
     assert api.get("/api/configs/profile").json()["names"] == []
 
 
@@ -83,7 +93,7 @@ def test_unknown_stored_map_name(api: TestClient, planted_inputs: RunInputs) -> 
     parts.append(("profile_file", ("p.toml", planted_inputs.profile_path.read_bytes())))
     response = api.post("/api/upload", files=parts, data={"map_name": "nope"})
     assert response.status_code == 400
-    assert "No stored channel map named 'nope'" in _error(response)["message"]
+    assert "No stored channel map named 'nope'" in _error(response)["detail"]
 
 
 @pytest.mark.parametrize("bad_name", ["../x.csv", "a/b.csv", "..\\x.csv", ".hidden.csv"])
@@ -95,8 +105,8 @@ def test_path_tricks_in_file_names_are_refused(
     response = api.post("/api/upload", files=parts, data=fields)
     assert response.status_code == 400
     error = _error(response)
-    assert repr(bad_name) in error["message"]
-    assert "is not allowed" in error["message"]
+    assert repr(bad_name) in error["detail"]
+    assert "is not allowed" in error["detail"]
     # Nothing was written outside (or inside) the upload folder, and no run appeared.
     assert list(api.app.state.upload_root.iterdir()) == []  # type: ignore[attr-defined]
     assert api.get("/api/runs").json()["runs"] == []
@@ -111,8 +121,8 @@ def test_map_that_does_not_fit_the_files_fails_the_job_with_the_columns(
     parts.append(("map_file", ("wrong-map.toml", wrong.encode())))
     job = wait_job(api, api.post("/api/upload", files=parts, data=fields).json()["job"]["id"])
     assert job["state"] == "failed"
-    assert job["error"]["type"] == "ChannelMapError"
-    assert "imu_roll_deg" in job["error"]["message"]
+    assert job["error"]["type"] == "/api.html#problem-channel-map"
+    assert "imu_roll_deg" in job["error"]["detail"]
     assert api.get("/api/runs").json()["runs"] == []
 
 
@@ -127,8 +137,8 @@ def test_map_with_a_wrong_unit_is_refused_before_any_job(
     response = api.post("/api/upload", files=parts, data=fields)
     assert response.status_code == 400
     error = _error(response)
-    assert error["type"] == "ChannelMapError"
-    assert "roll" in error["message"]
+    assert error["type"] == "/api.html#problem-channel-map"
+    assert "roll" in error["detail"]
     assert api.get("/api/jobs").json()["jobs"] == []
 
 
@@ -139,8 +149,8 @@ def test_garbage_log_file_fails_the_job_with_the_ingest_message(
     parts[0] = ("files", ("junk_state.csv", bytes(range(256)) * 40))
     job = wait_job(api, api.post("/api/upload", files=parts, data=fields).json()["job"]["id"])
     assert job["state"] == "failed"
-    assert job["error"]["type"] in ("IngestError", "ChannelMapError")
-    assert "junk_state.csv" in job["error"]["message"]
+    assert job["error"]["type"] in ("/api.html#problem-log-file", "/api.html#problem-channel-map")
+    assert "junk_state.csv" in job["error"]["detail"]
     assert api.get("/api/runs").json()["runs"] == []
 
 
@@ -151,8 +161,8 @@ def test_upload_larger_than_the_limit_is_413(tmp_path: Path, planted_inputs: Run
         response = c.post("/api/upload", files=parts, data=fields)
         assert response.status_code == 413
         error = _error(response)
-        assert "larger than this server's limit of 1 MiB" in error["message"]
-        assert "--max-upload-mb" in error["message"]
+        assert "larger than this server's limit of 1 MiB" in error["detail"]
+        assert "--max-upload-mb" in error["detail"]
         assert list(c.app.state.upload_root.iterdir()) == []  # type: ignore[attr-defined]
 
 
@@ -176,7 +186,7 @@ def test_streamed_upload_without_length_is_cut_at_the_limit(tmp_path: Path) -> N
             headers={"Content-Type": f"multipart/form-data; boundary={boundary}"},
         )
         assert response.status_code == 413
-        assert "limit of 1 MiB" in _error(response)["message"]
+        assert "limit of 1 MiB" in _error(response)["detail"]
 
 
 @pytest.mark.parametrize(
@@ -192,16 +202,16 @@ def test_missing_parts(api: TestClient, planted_inputs: RunInputs, drop: str, me
     parts = [p for p in parts if p[0] != drop]
     response = api.post("/api/upload", files=parts, data=fields)
     assert response.status_code == 400
-    assert message in _error(response)["message"]
+    assert message in _error(response)["detail"]
 
 
 def test_upload_must_be_multipart(api: TestClient) -> None:
     response = api.post("/api/upload", json={"files": []})
     assert response.status_code == 400
-    assert "multipart/form-data" in _error(response)["message"]
+    assert "multipart/form-data" in _error(response)["detail"]
 
 
 def test_unknown_job_is_404(api: TestClient) -> None:
     response = api.get("/api/jobs/0123456789ab")
     assert response.status_code == 404
-    assert "No job '0123456789ab'" in _error(response)["message"]
+    assert "No job '0123456789ab'" in _error(response)["detail"]

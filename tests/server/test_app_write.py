@@ -37,8 +37,8 @@ def api(one_run: tuple[Path, str]) -> Iterator[TestClient]:
 
 def _error(response) -> dict:
     body = response.json()
-    assert set(body) == {"error"}, body
-    return body["error"]
+    assert {"type", "title", "status", "detail"} <= set(body), body
+    return body
 
 
 def test_edit_name_notes_and_tags(api: TestClient, one_run: tuple[Path, str]) -> None:
@@ -64,17 +64,17 @@ def test_edit_rejects_empty_tags_and_wrong_types(api: TestClient, one_run) -> No
     run_id = one_run[1]
     response = api.patch(f"/api/runs/{run_id}", json={"tags": ["ok", "  "]})
     assert response.status_code == 400
-    assert "Tags must be 1 to 64 characters" in _error(response)["message"]
+    assert "Tags must be 1 to 64 characters" in _error(response)["detail"]
     response = api.patch(f"/api/runs/{run_id}", json={"tags": "not-a-list"})
     assert response.status_code == 400
-    assert "tags" in _error(response)["message"]
+    assert "tags" in _error(response)["detail"]
 
 
 def test_delete_needs_the_run_id_as_confirmation(api: TestClient, one_run) -> None:
     run_id = one_run[1]
     response = api.delete(f"/api/runs/{run_id}")
     assert response.status_code == 400
-    message = _error(response)["message"]
+    message = _error(response)["detail"]
     assert "cannot be undone" in message and f"?confirm={run_id}" in message
     response = api.delete(f"/api/runs/{run_id}", params={"confirm": "something-else"})
     assert response.status_code == 400
@@ -136,8 +136,8 @@ def test_reanalyse_validation_errors_are_400(api: TestClient, one_run, body, mes
     response = api.post(f"/api/runs/{one_run[1]}/analyse", json=body)
     assert response.status_code == 400
     error = _error(response)
-    assert error["type"] == "ThresholdsError"
-    assert message in error["message"]
+    assert error["type"] == "/api.html#problem-thresholds"
+    assert message in error["detail"]
     assert api.get("/api/jobs").json()["jobs"] == []
 
 
@@ -162,13 +162,13 @@ def test_token_protects_writes_and_leaves_reads_open(
             response = getattr(c, method)(url, **kwargs)
             assert response.status_code == 401, (method, url, response.text)
             assert response.headers["www-authenticate"] == "Bearer"
-            assert "Authorization: Bearer <token>" in _error(response)["message"]
+            assert "Authorization: Bearer <token>" in _error(response)["detail"]
 
         wrong = c.patch(
             f"/api/runs/{run_id}", json={"name": "x"}, headers={"Authorization": "Bearer nope"}
         )
         assert wrong.status_code == 401
-        assert "does not match" in _error(wrong)["message"]
+        assert "does not match" in _error(wrong)["detail"]
 
         ok = c.patch(
             f"/api/runs/{run_id}",

@@ -26,8 +26,9 @@ def api(tmp_path: Path) -> Iterator[TestClient]:
 def _error(response, status: int = 400) -> str:
     assert response.status_code == status, response.text
     body = response.json()
-    assert set(body) == {"error"} and set(body["error"]) == {"type", "message"}
-    message: str = body["error"]["message"]
+    # RFC 9457 problem details (issue 13, item 15).
+    assert {"type", "title", "status", "detail"} <= set(body), body
+    message: str = body["detail"]
     # never a server path (archive, upload folder, temp folder)
     assert not re.search(r"(?<![\w.])/(tmp|work|home|root|var|srv)/", message), message
     return message

@@ -38,8 +38,9 @@ def test_cross_site_form_post_is_refused_and_stores_nothing(api, planted_inputs:
     parts, fields = upload_form(planted_inputs)
     response = api.post("/api/upload", files=parts, data=fields, headers={"Origin": EVIL})
     assert response.status_code == 403
-    error = response.json()["error"]
-    assert error["type"] == "OriginError" and "evil.example" in error["message"]
+    error = response.json()
+    assert response.headers["content-type"] == "application/problem+json"
+    assert error["type"] == "/api.html#problem-other-site" and "evil.example" in error["detail"]
     assert api.get("/api/jobs").json()["jobs"] == []
     assert api.get("/api/runs").json()["runs"] == []
     for method in ("put", "patch", "delete"):
@@ -72,7 +73,7 @@ def test_serve_answers_only_the_host_names_it_serves(tmp_path):
             assert c.get("/api/runs", headers={"Host": host}).status_code == 200, host
         refused = c.get("/api/runs", headers={"Host": "rebind.evil.example:8321"})
         assert refused.status_code == 400
-        msg = refused.json()["error"]["message"]
+        msg = refused.json()["detail"]
         assert "rebind.evil.example" in msg and "--allow-host" in msg
         assert c.get("/", headers={"Host": "rebind.evil.example"}).status_code == 400
     with _served(tmp_path, "--allow-host", "robot-lab.local", "--host", "10.1.2.3") as c:

@@ -137,12 +137,12 @@ def test_run_page_draws_every_timeline_and_zooms_to_events(
     page.wait_for_function("() => document.body.dataset.window.split(',')[0] !== '0'")
     assert any("t0=" in url for url in series_requests)
 
-    # '.' steps to the next event, ',' back.
-    page.locator("body").press(".")
+    # ']' steps to the next event, '[' back (issue 13, item 15).
+    page.locator("body").press("]")
     second = analysis["events"][1]
     _wait_for_range_around(page, second["start_s"], second["end_s"])
     assert page.locator("#events tr.event-row.active").get_attribute("data-index") == "1"
-    page.locator("body").press(",")
+    page.locator("body").press("[")
     _wait_for_range_around(page, first["start_s"], first["end_s"])
     page.screenshot(path=str(artifacts / "run-page.png"), full_page=True)
     assert page.page_errors == []
@@ -263,7 +263,9 @@ def test_upload_error_is_shown_in_plain_words(
     page.click("#submit")
     page.wait_for_selector("#error:not([hidden])", timeout=60_000)
     text = page.locator("#error").inner_text()
-    assert "ChannelMapError" in text
+    # The problem's title in plain words; no internal class name or server path (item 9).
+    assert "The channel map has a problem" in text
+    assert "Error" not in text and "/tmp/" not in text
     assert "when" in text
     assert "Traceback" not in text
 
@@ -312,7 +314,8 @@ def test_an_unknown_run_is_said_in_plain_words(page: Any, live: LiveServer) -> N
     page.goto(f"{live.url}/run.html?id=20990101-0000-abcdef")
     page.wait_for_selector("#error:not([hidden])", timeout=30_000)
     text = page.locator("#error").inner_text()
-    assert "RunNotFoundError" in text and "20990101-0000-abcdef" in text
+    assert "No such run" in text and "20990101-0000-abcdef" in text
+    assert "RunNotFoundError" not in text
     assert page.page_errors == []  # said once, on the page; no unhandled rejection
 
 
@@ -343,6 +346,20 @@ def test_shift_drag_pans_and_png_saves_the_chart(
     assert download.value.suggested_filename == f"{uploaded}-roll.png"
     # PNG signature (ISO/IEC 15948, section 5.2): the first eight bytes of every PNG file.
     assert path is not None and path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    # The image carries a title, the run id, the window and the legend above the chart
+    # (issue 13, item 11): taller than the chart's canvas. IHDR height: bytes 20-24, big
+    # endian (ISO/IEC 15948, section 11.2.2).
+    png_height = int.from_bytes(path.read_bytes()[20:24], "big")
+    canvas_height = page.eval_on_selector("#chart-roll canvas", "c => c.height")
+    assert png_height > canvas_height
+    header = page.evaluate(
+        "() => { const t = document.getElementById('charts').timelines;"
+        " return t.pngHeader(t.panels.find(p => p.id === 'roll')); }"
+    )
+    assert header["lines"][0] == page.locator(".panel h3", has_text="oll").first.inner_text()
+    assert uploaded in header["lines"][1] and "32.0" in header["lines"][1]
+    assert "42.0" in header["lines"][1] and " s" in header["lines"][1]
+    assert len(header["legend"]) >= 2
     assert page.page_errors == []
 
 
@@ -369,8 +386,9 @@ def test_window_csv_saves_the_samples_the_charts_show(
         "**/window.csv?*",
         lambda route: route.fulfill(
             status=400,
-            content_type="application/json",
-            body='{"error": {"type": "RequestError", "message": "Choose a shorter window."}}',
+            content_type="application/problem+json",
+            body='{"type": "/api.html#problem-request-refused", "title": "The request was '
+            'refused", "status": 400, "detail": "Choose a shorter window."}',
         ),
     )
     page.click("#dl-window")

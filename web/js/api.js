@@ -1,15 +1,24 @@
 // Talking to the Outrigger server: JSON in, one error shape out.
-// Every error the server sends is {"error": {"type": ..., "message": ...}};
-// pages show the message as text, never as HTML.
+// Every error the server sends is an RFC 9457 problem details object
+// (application/problem+json: type, title, status, detail); pages show the title and
+// the detail as text, never as HTML, and never an internal class name.
 
 const TOKEN_KEY = "outrigger.writeToken";
 
 export class ApiError extends Error {
-  constructor(status, type, message) {
+  // title: the problem's short sentence for people; message: its detail.
+  constructor(status, title, message, problemType = "about:blank") {
     super(message);
     this.status = status;
-    this.type = type;
+    this.title = title;
+    this.problemType = problemType;
   }
+}
+
+// An ApiError from a problem details object (RFC 9457), or null when it is not one.
+export function fromProblem(body, status) {
+  if (!body || typeof body !== "object" || typeof body.detail !== "string") return null;
+  return new ApiError(body.status || status, body.title || "Error", body.detail, body.type || "about:blank");
 }
 
 export function writeToken() {
@@ -27,18 +36,13 @@ export function authHeaders() {
 }
 
 async function errorFrom(response) {
-  let type = "HTTPError";
-  let message = `The server answered ${response.status} ${response.statusText}.`;
   try {
-    const body = await response.json();
-    if (body && body.error) {
-      type = body.error.type || type;
-      message = body.error.message || message;
-    }
+    const problem = fromProblem(await response.json(), response.status);
+    if (problem) return problem;
   } catch (_) {
     // not JSON: keep the generic message, never show a raw body
   }
-  return new ApiError(response.status, type, message);
+  return new ApiError(response.status, "The server refused the request", `The server answered ${response.status} ${response.statusText}.`);
 }
 
 export async function getJSON(url, options = {}) {
@@ -81,12 +85,13 @@ export function postForm(url, form, onProgress) {
       } catch (_) {
         body = null;
       }
+      const problem = xhr.status >= 400 ? fromProblem(body, xhr.status) : null;
       if (xhr.status >= 200 && xhr.status < 300 && body) resolve(body);
-      else if (body && body.error) reject(new ApiError(xhr.status, body.error.type, body.error.message));
-      else reject(new ApiError(xhr.status, "HTTPError", `The server answered ${xhr.status}.`));
+      else if (problem) reject(problem);
+      else reject(new ApiError(xhr.status, "The server refused the upload", `The server answered ${xhr.status}.`));
     };
     xhr.onerror = () =>
-      reject(new ApiError(0, "NetworkError", "The upload was cut off. Is the server still running, and is the upload within its size limit?"));
+      reject(new ApiError(0, "The upload did not reach the server", "The upload was cut off. Is the server still running, and is the upload within its size limit?"));
     xhr.send(form);
   });
 }
@@ -112,7 +117,7 @@ export function showError(element, error) {
   element.hidden = false;
   element.replaceChildren();
   const title = document.createElement("strong");
-  title.textContent = error.type ? `${error.type}: ` : "Error: ";
+  title.textContent = error.title ? `${error.title}: ` : "Error: ";
   const text = document.createElement("span");
   text.className = "error-text";
   text.textContent = error.message || String(error);

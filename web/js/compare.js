@@ -11,6 +11,8 @@ const busy = document.getElementById("busy");
 const result = document.getElementById("result");
 const reportLink = document.getElementById("report-link");
 const DASH = { A: "solid", B: "dash" };
+const INK = "#24323A";
+const GRID = "#E2E5E1";
 const COLOUR = { A: RUN_COLOURS.a, B: RUN_COLOURS.b };
 
 // Plotly renders a few HTML-like tags in legend text: escape user text for it.
@@ -102,8 +104,8 @@ function kpiTable(table, rows) {
         el("td", {}, r.label),
         el("td", {}, r.unit),
         el("td", {}, r.better),
-        el("td", { className: "num" }, fmt(r.a, 4)),
-        el("td", { className: "num" }, fmt(r.b, 4)),
+        el("td", { className: "num" }, fmt(r.a, 3)),
+        el("td", { className: "num" }, fmt(r.b, 3)),
         el("td", { className: "num" }, fmt(r.diff, 3)),
         el("td", { className: "num" }, r.diff_pct === null ? "–" : fmt(r.diff_pct, 3)),
         el("td", { className: "num" }, interval(r)),
@@ -139,7 +141,7 @@ function showSegments(comp) {
   card.hidden = !comp.same_course || comp.segments.length === 0;
   if (card.hidden) return;
   const select = document.getElementById("segment-select");
-  select.replaceChildren(...comp.segments.map((s) => el("option", { value: s.name }, `${s.name} · ${s.kind} · ${fmt(s.start_m, 4)}–${fmt(s.end_m, 4)} m`)));
+  select.replaceChildren(...comp.segments.map((s) => el("option", { value: s.name }, `${s.name} · ${s.kind} · ${fmt(s.start_m, 3)}–${fmt(s.end_m, 3)} m`)));
   const draw = () => kpiTable(document.getElementById("segment-table"), comp.segment_kpis[select.value] || []);
   select.onchange = draw;
   draw();
@@ -184,7 +186,9 @@ function charts(data) {
     el("span", {}, "Events (A lower half, B upper half):"),
     ...kinds.map((k) => el("span", {}, el("span", { className: "swatch", style: { background: eventColour(k) } }), ` ${kindLabel(k)}`)),
   );
-  const config = { displaylogo: false, responsive: true };
+  // The project's own chart look: no stock toolbar or logo; titles, keys and colours
+  // as on the Run page (the key of runs and event kinds sits above the charts).
+  const config = { displayModeBar: false, displaylogo: false, responsive: true };
   const plots = [];
   for (const sig of data.signals) {
     const div = el("div", { className: "chart", dataset: { signal: sig.name } });
@@ -215,12 +219,14 @@ function charts(data) {
       });
     }
     const layout = {
-      title: { text: plotText(`${sig.label} [${sig.unit}]`), font: { size: 13 } },
+      title: { text: plotText(`${sig.label} [${sig.unit}]`), font: { size: 13 }, x: 0, xanchor: "left" },
       margin: { l: 60, r: 16, t: 32, b: 34 },
-      xaxis: { title: { text: "course position [m]" }, range: data.stretch_m },
+      xaxis: { title: { text: "course position [m]" }, range: data.stretch_m, gridcolor: GRID, zeroline: false },
+      yaxis: { gridcolor: GRID, zeroline: false },
       plot_bgcolor: "#FFFFFF",
-      showlegend: true,
-      legend: { orientation: "h", y: -0.3 },
+      paper_bgcolor: "#FFFFFF",
+      font: { family: "system-ui, -apple-system, 'Segoe UI', sans-serif", color: INK, size: 12 },
+      showlegend: false,
       shapes,
     };
     plots.push(Plotly.newPlot(div, traces, layout, config));

@@ -10,7 +10,7 @@ export const HEADLINE = [
     kind: "saturation",
     label: "saturated",
     title: "Share of time the most-saturated actuator was saturated",
-    format: (v) => `${fmt(100 * v, 2)} %`,
+    format: (v, unit) => (unit === "%" ? `${fmt(v, 3)} %` : `${fmt(100 * v, 3)} %`),
   },
   {
     key: "slip_events",
@@ -24,14 +24,14 @@ export const HEADLINE = [
     kind: "low_tip_margin",
     label: "min tip margin",
     title: "Lowest lateral tip-over margin (model estimate): 1 centred, 0 inner wheel unloads",
-    format: (v) => fmt(v, 2),
+    format: (v) => fmt(v, 3),
   },
   {
     key: "roll_error_rms",
     kind: "roll_error",
     label: "roll err RMS",
     title: "RMS of roll reference minus roll",
-    format: (v, unit) => `${fmt(v, 2)} ${unit}`.trim(),
+    format: (v, unit) => `${fmt(v, 3)} ${unit}`.trim(),
   },
 ];
 

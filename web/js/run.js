@@ -1,6 +1,6 @@
 // Run page: facts, KPIs, stacked timelines, event list with keyboard stepping,
 // ingest report, skipped detectors, thresholds and re-analysis, edit and delete.
-import { el, fmt, fmtDuration, getJSON, readJSON, sendJSON, serverInfo, showError, waitForJob } from "./api.js";
+import { el, fmt, fmtDuration, fromProblem, getJSON, readJSON, sendJSON, serverInfo, showError, waitForJob } from "./api.js";
 import { badges } from "./kpis.js";
 import { lapCard, lapStrip } from "./laps.js";
 import { initLayout } from "./layout.js";
@@ -28,7 +28,7 @@ function showHead(meta) {
     meta.controller && `controller ${meta.controller}`,
     meta.date && meta.date.replace("T", " ").replace("+00:00", " UTC"),
     meta.duration_s !== undefined && fmtDuration(meta.duration_s),
-    meta.distance_m !== undefined && meta.distance_m !== null && `${fmt(meta.distance_m, 4)} m travelled`,
+    meta.distance_m !== undefined && meta.distance_m !== null && `${fmt(meta.distance_m, 3)} m travelled`,
     `id ${meta.run_id}`,
   ].filter(Boolean);
   document.getElementById("run-facts").textContent = facts.join(" · ");
@@ -40,7 +40,7 @@ function showHead(meta) {
 }
 
 // ----- KPIs ---------------------------------------------------------------------
-function showKpis(headline, shown, analysis, notRun = null) {
+function showKpis(headline, shown, analysis, notRun = null, kpisShown = null) {
   const strip = document.getElementById("kpis");
   strip.replaceChildren(badges(headline, shown, notRun ? notRun.kpis : null));
   if (analysis) {
@@ -62,7 +62,7 @@ function showKpis(headline, shown, analysis, notRun = null) {
     strip.append(summary);
   }
   const detail = document.getElementById("kpi-detail");
-  detail.replaceChildren(analysis ? valueView(analysis.kpis) : el("p", { className: "empty" }, "Not analysed."));
+  detail.replaceChildren(analysis ? valueView(kpisShown || analysis.kpis) : el("p", { className: "empty" }, "Not analysed."));
 }
 
 // A generic, text-only view of nested JSON (ingest report, KPIs).
@@ -70,15 +70,19 @@ function valueView(value, depth = 0) {
   if (value === null || value === undefined) return el("span", { className: "muted" }, "–");
   if (Array.isArray(value)) {
     if (!value.length) return el("span", { className: "muted" }, "none");
-    if (value.every((v) => v === null || typeof v !== "object")) return el("span", {}, value.map((v) => (typeof v === "number" ? fmt(v, 4) : String(v))).join(", "));
+    if (value.every((v) => v === null || typeof v !== "object")) return el("span", {}, value.map((v) => (typeof v === "number" ? fmt(v, 3) : String(v))).join(", "));
     return el("ol", { className: "plain-list" }, ...value.map((v) => el("li", {}, valueView(v, depth + 1))));
+  }
+  if (typeof value === "object" && Object.keys(value).length === 2 && "value" in value && "unit" in value) {
+    // A number the server converted for display (analysis.display): value and unit.
+    return el("span", { className: "kpi-value" }, `${fmt(value.value, 3)} ${value.unit}`.trim());
   }
   if (typeof value === "object") {
     const dl = el("dl", { className: depth ? "kv nested" : "kv" });
     for (const [k, v] of Object.entries(value)) dl.append(el("dt", {}, k.replace(/_/g, " ")), el("dd", {}, valueView(v, depth + 1)));
     return dl;
   }
-  if (typeof value === "number") return el("span", {}, fmt(value, 4));
+  if (typeof value === "number") return el("span", {}, fmt(value, 3));
   if (typeof value === "boolean") return el("span", {}, value ? "yes" : "no");
   return el("span", { className: "pre" }, String(value));
 }
@@ -166,10 +170,10 @@ document.addEventListener("keydown", (ev) => {
   const target = ev.target;
   if (target && (target.tagName === "INPUT" || target.tagName === "TEXTAREA" || target.tagName === "SELECT" || target.isContentEditable)) return;
   if (ev.ctrlKey || ev.metaKey || ev.altKey) return;
-  if (ev.key === ".") {
+  if (ev.key === "]") {
     selectEvent(current + 1);
     ev.preventDefault();
-  } else if (ev.key === ",") {
+  } else if (ev.key === "[") {
     selectEvent(current < 0 ? visibleEvents.length - 1 : current - 1);
     ev.preventDefault();
   } else if (ev.key === "0" && timelines) {
@@ -221,7 +225,7 @@ async function reanalyse() {
       bar.value = j.progress;
       text.textContent = j.message;
     });
-    if (finished.state === "failed") throw Object.assign(new Error(finished.error.message), { type: finished.error.type });
+    if (finished.state === "failed") throw fromProblem(finished.error, 422);
     text.textContent = "done; reloading";
     await load();
     text.textContent = "done";
@@ -332,7 +336,7 @@ async function load() {
     if (opening) timelines.setRange(timelines.clamp(opening));
   });
   showHead(run);
-  showKpis(data.headline, data.headline_shown, analysis, data.not_run);
+  showKpis(data.headline, data.headline_shown, analysis, data.not_run, data.kpis_shown);
   lapStrip(document.getElementById("lap-strip"), data.laps_shown, (range) => {
     if (timelines) timelines.setRange(timelines.clamp(range));
   });

@@ -472,7 +472,7 @@ export class StripChart {
     const lines = [`t = ${t.toFixed(3)} s`];
     for (const v of values) {
       const row = this.rows[v.row];
-      const shown = v.value === null ? "no data" : `${Number(v.value.toPrecision(4))} ${v.unit || ""}`.trim();
+      const shown = v.value === null ? "no data" : `${Number(v.value.toPrecision(3))} ${v.unit || ""}`.trim();
       lines.push(`${row ? row.label : ""} · ${v.name}: ${shown}`);
     }
     this.tip.replaceChildren(...lines.map((text) => Object.assign(document.createElement("div"), { textContent: text })));
@@ -484,15 +484,53 @@ export class StripChart {
     this.tip.style.top = `${Math.max(0, Math.min(y + 10, this.height - (this.tip.offsetHeight || 0)))}px`;
   }
 
-  // The chart as a PNG data URL (white background, for reports and tickets).
-  toPNG() {
+  // The chart as a PNG data URL (white background, for reports and tickets). With a
+  // header {lines: [text, ...], legend: [{label, color, dash, box}]} the image carries
+  // those lines (title, run id, time window) and the legend above the chart.
+  toPNG(header = null) {
+    const ratio = this.canvas.width / Math.max(1, this.width);
+    const lineH = Math.round(18 * ratio);
+    const lines = header ? header.lines || [] : [];
+    const legend = header ? header.legend || [] : [];
+    const top = header ? Math.round((lines.length + (legend.length ? 1 : 0)) * lineH + 8 * ratio) : 0;
     const out = document.createElement("canvas");
     out.width = this.canvas.width;
-    out.height = this.canvas.height;
+    out.height = this.canvas.height + top;
     const ctx = out.getContext("2d");
     ctx.fillStyle = "#FFFFFF";
     ctx.fillRect(0, 0, out.width, out.height);
-    ctx.drawImage(this.canvas, 0, 0);
+    ctx.textBaseline = "middle";
+    let y = Math.round(lineH / 2 + 4 * ratio);
+    lines.forEach((text, i) => {
+      ctx.font = `${i === 0 ? "600 " : ""}${Math.round(13 * ratio)}px system-ui, sans-serif`;
+      ctx.fillStyle = i === 0 ? "#24323A" : "#4A5A63";
+      ctx.fillText(text, 8 * ratio, y);
+      y += lineH;
+    });
+    if (legend.length) {
+      ctx.font = `${Math.round(12 * ratio)}px system-ui, sans-serif`;
+      let x = 8 * ratio;
+      for (const item of legend) {
+        if (item.box) {
+          ctx.fillStyle = item.color;
+          ctx.fillRect(x, y - 5 * ratio, 10 * ratio, 10 * ratio);
+        } else {
+          ctx.strokeStyle = item.color;
+          ctx.lineWidth = 2 * ratio;
+          ctx.setLineDash(item.dash === "dot" ? [2 * ratio, 3 * ratio] : item.dash === "dash" ? [6 * ratio, 4 * ratio] : []);
+          ctx.beginPath();
+          ctx.moveTo(x, y);
+          ctx.lineTo(x + 18 * ratio, y);
+          ctx.stroke();
+          ctx.setLineDash([]);
+        }
+        x += (item.box ? 14 : 22) * ratio;
+        ctx.fillStyle = "#24323A";
+        ctx.fillText(item.label, x, y);
+        x += ctx.measureText(item.label).width + 14 * ratio;
+      }
+    }
+    ctx.drawImage(this.canvas, 0, top);
     return out.toDataURL("image/png");
   }
 }

@@ -111,6 +111,22 @@ export class Timelines {
     return out;
   }
 
+  // What a saved PNG carries above the chart: the panel title, the run id, the time
+  // window shown, and the legend of traces and event kinds.
+  pngHeader(panel) {
+    const range = this.shown ? this.shown() : null;
+    const window = range ? `time ${range[0].toFixed(2)} – ${range[1].toFixed(2)} s` : "whole run";
+    const traces = [...new Map(panel.rows.flatMap((r) => r.traces).map((tr) => [tr.label, tr])).values()];
+    const legend = [
+      ...traces.map((tr) => {
+        const style = TRACE_STYLES[tr.style] || TRACE_STYLES.main;
+        return { label: tr.label, color: style.color, dash: style.dash };
+      }),
+      ...panel.event_kinds.map((kind) => ({ label: kindLabel(kind), color: eventColour(kind), box: true })),
+    ];
+    return { lines: [panel.title, `run ${this.runId} · ${window}`], legend };
+  }
+
   // ----- drawing ---------------------------------------------------------------
   panelBox(panel) {
     const kinds = el(
@@ -128,7 +144,7 @@ export class Timelines {
       }),
     );
     const png = () => {
-      const a = el("a", { href: this.charts.get(panel.id).toPNG(), download: `${this.runId}-${panel.id}.png` });
+      const a = el("a", { href: this.charts.get(panel.id).toPNG(this.pngHeader(panel)), download: `${this.runId}-${panel.id}.png` });
       a.click();
     };
     const tools = el(

@@ -1,6 +1,6 @@
 // Upload page: pick or drop files, choose or upload a map and profile, send with a
 // progress bar, then follow the ingest/analysis job and link to the run.
-import { ApiError, authHeaders, el, getJSON, postForm, showError, waitForJob } from "./api.js";
+import { ApiError, authHeaders, el, fromProblem, getJSON, postForm, showError, waitForJob } from "./api.js";
 import { initLayout } from "./layout.js";
 
 const form = document.getElementById("upload-form");
@@ -57,6 +57,17 @@ async function loadStored(kind, select) {
   }
 }
 
+// Courses of the stored runs, offered by the course field (a new name can still be typed).
+async function loadCourses() {
+  try {
+    const { runs } = await getJSON("/api/runs");
+    const courses = [...new Set(runs.map((r) => r.course).filter(Boolean))].sort();
+    document.getElementById("course-list").replaceChildren(...courses.map((c) => el("option", { value: c })));
+  } catch (err) {
+    showError(errorBox, err);
+  }
+}
+
 function configPart(kind) {
   const select = document.getElementById(`${kind}-name`);
   const file = document.getElementById(`${kind}-file`).files[0] || null;
@@ -67,7 +78,7 @@ function configPart(kind) {
 
 async function keepConfig(kind, part) {
   if (!part.keep || !part.file) return;
-  if (!part.keepName) throw new ApiError(400, "RequestError", `Give a name to keep the ${kind === "map" ? "channel map" : "robot profile"} under, or untick 'keep'.`);
+  if (!part.keepName) throw new ApiError(400, "Something is missing", `Give a name to keep the ${kind === "map" ? "channel map" : "robot profile"} under, or untick 'keep'.`);
   const response = await fetch(`/api/configs/${kind}/${encodeURIComponent(part.keepName)}`, {
     method: "PUT",
     headers: { ...authHeaders(), "Content-Type": "text/plain" },
@@ -75,8 +86,7 @@ async function keepConfig(kind, part) {
   });
   if (!response.ok) {
     const body = await response.json().catch(() => null);
-    const e = body && body.error ? body.error : { type: "HTTPError", message: `The server answered ${response.status}.` };
-    throw new ApiError(response.status, e.type, e.message);
+    throw fromProblem(body, response.status) || new ApiError(response.status, "The server refused the file", `The server answered ${response.status}.`);
   }
 }
 
@@ -90,14 +100,14 @@ form.addEventListener("submit", async (ev) => {
   errorBox.hidden = true;
   done.hidden = true;
   try {
-    if (!logs.length) throw new ApiError(400, "RequestError", "Choose at least one log file.");
+    if (!logs.length) throw new ApiError(400, "Something is missing", "Choose at least one log file.");
     const map = configPart("map");
     const profile = configPart("profile");
-    if (!map.file && !map.stored) throw new ApiError(400, "RequestError", "Choose a stored channel map or upload one.");
-    if (!profile.file && !profile.stored) throw new ApiError(400, "RequestError", "Choose a stored robot profile or upload one.");
+    if (!map.file && !map.stored) throw new ApiError(400, "Something is missing", "Choose a stored channel map or upload one.");
+    if (!profile.file && !profile.stored) throw new ApiError(400, "Something is missing", "Choose a stored robot profile or upload one.");
     const total = logs.reduce((s, f) => s + f.size, 0);
     if (maxUploadMb && total > maxUploadMb * 1048576) {
-      throw new ApiError(413, "ApiError", `These files add up to ${(total / 1048576).toFixed(1)} MiB; this server accepts at most ${maxUploadMb} MiB per upload. Split the run, or restart the server with a larger --max-upload-mb.`);
+      throw new ApiError(413, "The upload is too large", `These files add up to ${(total / 1048576).toFixed(1)} MiB; this server accepts at most ${maxUploadMb} MiB per upload. Split the run, or restart the server with a larger --max-upload-mb.`);
     }
     submit.disabled = true;
     await keepConfig("map", map);
@@ -107,6 +117,8 @@ form.addEventListener("submit", async (ev) => {
     for (const [key, value] of new FormData(form).entries()) {
       if (typeof value === "string" && value.trim()) data.append(key, value.trim());
     }
+    // The start field is a UTC wall time without a zone: send it as ISO 8601 UTC.
+    if (data.has("date")) data.set("date", `${data.get("date")}${data.get("date").length === 16 ? ":00" : ""}Z`);
     data.delete("files");
     for (const f of logs) data.append("files", f, f.name);
     if (map.file) data.append("map_file", map.file, map.file.name);
@@ -126,11 +138,13 @@ form.addEventListener("submit", async (ev) => {
     sendText.textContent = "sent";
     const finished = await waitForJob(job.id, setJob);
     if (finished.state === "failed") {
-      throw new ApiError(422, finished.error.type, finished.error.message);
+      throw fromProblem(finished.error, 422);
     }
     done.hidden = false;
     done.replaceChildren(
-      finished.message.includes("already stored") ? "These files were already stored. " : "Ready. ",
+      finished.message.includes("already stored") || finished.message.includes("same files")
+        ? `${finished.message[0].toUpperCase()}${finished.message.slice(1)}. `
+        : "Ready. ",
       el("a", { id: "run-link", href: `/run.html?id=${encodeURIComponent(finished.run_id)}` }, "Open the run"),
     );
   } catch (err) {
@@ -144,4 +158,5 @@ initLayout().then((info) => {
   if (info) maxUploadMb = info.features.max_upload_mb;
 });
 loadStored("map", document.getElementById("map-name"));
+loadCourses();
 loadStored("profile", document.getElementById("profile-name"));

@@ -44,7 +44,8 @@ def test_wheel_share_names_the_wheel_and_ignores_the_hip():
     limits = limits_from_mapping({"wheel_saturation_share_max": 0.02})
     broken = check_limits(SUMMARY, limits, ("wheel_l", "wheel_r"))
     assert len(broken) == 1
-    assert "wheel_l" in broken[0] and "0.031" in broken[0] and "0.02" in broken[0]
+    # Shares read in percent: 0.031 is 3.1 %, the limit 0.02 is 2 % (issue 13, item 1).
+    assert "wheel_l" in broken[0] and "3.1 %" in broken[0] and "limit 2 %" in broken[0]
 
 
 def test_min_bound_and_degrees_are_converted():

@@ -93,4 +93,27 @@ def test_report_download(api, stocked_compare) -> None:
 def test_bad_requests(api, params, status, message) -> None:
     r = api.get("/api/compare", params=params)
     assert r.status_code == status
-    assert message in r.json()["error"]["message"]
+    assert message in r.json()["detail"]
+
+
+def test_compare_is_shown_in_deg_and_percent_and_si_on_request(api, stocked_compare) -> None:
+    import pint
+
+    s = stocked_compare
+    params = {"a": s.a, "b": s.b, "n_boot": 300}
+    shown = api.get("/api/compare", params=params).json()
+    si = api.get("/api/compare", params={**params, "units": "si"}).json()
+    assert shown["comparison"]["units"] == "display" and si["comparison"]["units"] == "si"
+    rows = {r["key"]: r for r in shown["comparison"]["kpis"]}
+    rows_si = {r["key"]: r for r in si["comparison"]["kpis"]}
+    assert rows["roll_error_rms"]["unit"] == "deg" and rows_si["roll_error_rms"]["unit"] == "rad"
+    assert rows["wheel_l.saturation_share"]["unit"] == "%"
+    assert rows_si["wheel_l.saturation_share"]["unit"] == "-"
+    # Reference library: pint (rad -> deg); both sides carry 6 significant digits.
+    deg = pint.UnitRegistry().Quantity(rows_si["roll_error_rms"]["a"], "rad").to("deg").magnitude
+    assert rows["roll_error_rms"]["a"] == pytest.approx(deg, rel=2e-6)
+    sig = {x["name"]: x for x in shown["charts"]["signals"]}
+    assert sig["roll_error"]["unit"] == "deg"
+    assert {x["name"]: x for x in si["charts"]["signals"]}["roll_error"]["unit"] == "rad"
+    bad = api.get("/api/compare", params={**params, "units": "imperial"})
+    assert bad.status_code == 400

@@ -67,7 +67,7 @@ def test_bad_windows_are_refused_in_plain_words(
 ) -> None:
     response = client.get(f"/api/runs/{stocked.planted_id}/window.csv", params=params)
     assert response.status_code == 400
-    assert words in response.json()["error"]["message"]
+    assert words in response.json()["detail"]
 
 
 def test_a_window_too_large_is_refused_with_what_to_do(
@@ -78,7 +78,7 @@ def test_a_window_too_large_is_refused_with_what_to_do(
         f"/api/runs/{stocked.planted_id}/window.csv", params={"t0": 0, "t1": 20, "signals": "roll"}
     )
     assert response.status_code == 400
-    message = response.json()["error"]["message"]
+    message = response.json()["detail"]
     assert "shorter window" in message and "files.zip" in message
 
 

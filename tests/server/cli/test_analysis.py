@@ -37,6 +37,20 @@ def test_analyse_json(archive_with_run, capsys):
     assert {e["kind"] for e in out["events"]} >= {"saturation", "slip", "low_tip_margin"}
     assert out["skipped"] == []
 
+    # --json keeps full precision rounded to 6 significant digits (issue 13, item 4).
+    def floats(x):
+        if isinstance(x, float):
+            yield x
+        elif isinstance(x, dict):
+            for v in x.values():
+                yield from floats(v)
+        elif isinstance(x, list):
+            for v in x:
+                yield from floats(v)
+
+    values = list(floats(out))
+    assert values and all(float(f"{v:.6g}") == v for v in values)
+
 
 def test_analyse_with_thresholds_replaces_results(archive_with_run, tmp_path, capsys):
     root, run_id = archive_with_run
@@ -62,7 +76,14 @@ def test_check_passes_and_fails(archive_with_run, tmp_path, capsys):
     strict.write_text("[limits]\ntip_margin_min = 0.3\nfalls_max = 0\n")
     assert main(["check", run_id, "--limits", str(strict), "--data", str(root)]) == 1
     out = capsys.readouterr().out
-    assert "BROKEN tip_margin_min" in out and "falls_max" not in out
+    assert "BROKEN tip_margin_min" in out
+    # The limits that held are listed too (issue 13, item 10).
+    assert "held   falls_max: falls is 0, at most 0." in out
+    assert "1 limit(s) broken, 1 held" in out
+    assert main(["check", run_id, "--limits", str(strict), "--data", str(root), "--json"]) == 1
+    data = json.loads(capsys.readouterr().out)
+    assert [c["held"] for c in data["checks"]] == [False, True]
+    assert data["held"] == ["falls_max: falls is 0, at most 0."]
 
 
 def test_check_bad_limits_file_exits_2(archive_with_run, tmp_path, capsys):

@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import json
+import os
+import stat
 from pathlib import Path
 from typing import Any
 
@@ -73,10 +75,30 @@ def test_compare_prints_kpis(archive, capsys) -> None:
     code = main(["compare", "a1", "b1", "--n-boot", "300"])
     out = capsys.readouterr().out
     assert code == 0
-    assert "roll_error_rms [rad]" in out and "worse" in out
     assert "Verdicts rest on: 1 run per version: within-run spread only" in out
     assert "adj. p" in out and "no verdict (indicative)" in out
+    # One display convention in text: angles in deg, shares in % (issue 13, item 1).
+    assert "roll_error_rms [deg]" in out and "worse" in out
+    assert "roll_error_iae [deg*s]" in out
+    assert "saturation_share [%]" in out
+    assert "[rad" not in out
     assert "Segment S1" in out
+
+
+def test_compare_text_rounds_for_people_and_json_to_6_digits(archive, capsys) -> None:
+    assert main(["compare", "a1", "b1", "--n-boot", "300"]) == 0
+    out = capsys.readouterr().out
+    table = [line for line in out.splitlines() if line.startswith("roll_error_rms ")][0]
+    numbers = table.split()[2:5]  # A, B, B - A
+    for text in numbers:
+        digits = text.lstrip("-").replace(".", "").lstrip("0")
+        assert len(digits) <= 3, table  # 3 significant digits at most
+    assert main(["compare", "a1", "b1", "--json", "--n-boot", "300"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    row = {r["key"]: r for r in data["kpis"]}["roll_error_rms"]
+    assert row["unit"] == "rad"  # --json stays SI
+    for key in ("a", "b", "diff", "low", "high"):
+        assert float(f"{row[key]:.6g}") == row[key]  # rounded to 6 significant digits
 
 
 def test_compare_json_of_sets(archive, capsys) -> None:
@@ -146,6 +168,17 @@ def test_report_is_written_self_contained(archive, tmp_path, capsys) -> None:
     assert "Verdicts rest on: <strong>1 run per version: within-run spread only</strong>" in text
     assert "no verdict (indicative)" in text and "adj. p" in text
     assert not list(tmp_path.glob(".report-*"))  # no temporary left behind
+
+
+def test_report_gets_normal_file_permissions(archive, tmp_path) -> None:
+    out = tmp_path / "report.html"
+    old = os.umask(0o022)
+    try:
+        assert main(["compare", "a1", "b1", "--report", str(out), "--n-boot", "300"]) == 0
+    finally:
+        os.umask(old)
+    # Under umask 022 a new file is 0644 (POSIX open(2) with mode 0666; common practice).
+    assert stat.S_IMODE(out.stat().st_mode) == 0o644
 
 
 def test_report_escapes_user_text(archive, runs, tmp_path) -> None:
