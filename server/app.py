@@ -27,7 +27,7 @@ from fastapi.staticfiles import StaticFiles
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from analysis import __version__
-from analysis.archive.store import Archive
+from analysis.archive.objstore import open_archive
 from analysis.errors import ArchiveError, OutriggerError
 from server.api import configs as routes_configs
 from server.api import export as routes_export
@@ -130,7 +130,7 @@ def create_app(
         raise ArchiveError(f"--max-upload-mb must be a positive number, found {max_upload_mb}.")
     if cache_mb < 0:
         raise ArchiveError(f"The chart cache size must be 0 (off) or more MiB, found {cache_mb}.")
-    archive = Archive(Path(data_dir))
+    archive = open_archive(data_dir)
     web = Path(web_dir) if web_dir is not None else WEB_DIR
     if not (web / "index.html").is_file():
         raise ArchiveError(f"The dashboard pages were not found in {web} (no index.html).")

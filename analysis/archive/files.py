@@ -65,9 +65,13 @@ def write_frame(frame: pd.DataFrame, path: Path) -> None:
 
 
 def read_frame(
-    path: Path, columns: list[str] | None = None, filters: list[Any] | None = None
+    path: Path | str,
+    columns: list[str] | None = None,
+    filters: list[Any] | None = None,
+    filesystem: Any = None,
 ) -> pd.DataFrame:
-    table = pq.read_table(path, columns=columns, filters=filters)
+    """Parquet written by :func:`write_frame` back to a DataFrame (``filesystem``: pyarrow's)."""
+    table = pq.read_table(path, columns=columns, filters=filters, filesystem=filesystem)
     meta = table.schema.metadata or {}
     frame = table.to_pandas()
     with suppress(ValueError, TypeError):

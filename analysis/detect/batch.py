@@ -15,7 +15,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from analysis.archive.store import Archive
+from analysis.archive.objstore import open_archive
 from analysis.detect.pipeline import analyse_run
 from analysis.errors import OutriggerError
 
@@ -40,7 +40,7 @@ def analyse_one(root: str, run_id: str) -> BatchOutcome:
         The run.
     """
     try:
-        result = analyse_run(Archive(root), run_id)
+        result = analyse_run(open_archive(root), run_id)
     except OutriggerError as exc:
         return BatchOutcome(run_id, None, str(exc))
     return BatchOutcome(run_id, len(result.events))

@@ -17,7 +17,7 @@ from typing import Any
 
 import pyarrow.parquet as pq
 
-from analysis.archive.store import Archive
+from analysis.archive.objstore import open_archive
 from analysis.errors import IngestError
 from analysis.ingest.map_template import FileHeader, template
 from analysis.ingest.read import inspect_file
@@ -112,7 +112,7 @@ def _short_report(report: dict[str, Any]) -> list[str]:
 
 def cmd_ingest(args: argparse.Namespace) -> int:
     """``outrigger ingest``."""
-    archive = Archive(data_dir(args))
+    archive = open_archive(data_dir(args))
     outcome = ingest_files(
         archive,
         args.files,
@@ -165,7 +165,7 @@ def cmd_ingest(args: argparse.Namespace) -> int:
 
 def cmd_runs(args: argparse.Namespace) -> int:
     """``outrigger runs``."""
-    runs = Archive(data_dir(args)).list_runs(
+    runs = open_archive(data_dir(args)).list_runs(
         course=args.course, controller=args.controller, tag=args.tag
     )
     if args.json:
@@ -188,7 +188,7 @@ def cmd_runs(args: argparse.Namespace) -> int:
 
 def cmd_show(args: argparse.Namespace) -> int:
     """``outrigger show``."""
-    meta = Archive(data_dir(args)).get_meta(args.run)
+    meta = open_archive(data_dir(args)).get_meta(args.run)
     if args.json:
         print(json.dumps(meta, indent=1))
         return 0
