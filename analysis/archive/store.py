@@ -96,6 +96,11 @@ class Archive:
     is_local = True
 
     def __init__(self, root: str | os.PathLike[str]) -> None:
+        if "://" in str(root):
+            raise ArchiveError(
+                f"{root} is a URI, not a folder; open it with "
+                f"analysis.archive.objstore.open_archive (s3://BUCKET/PREFIX is supported)."
+            )
         self.root = Path(root)
         try:
             for sub in ("runs", "staging", "configs/profiles", "configs/maps"):

@@ -25,10 +25,7 @@ from analysis.archive.store import Archive
 from analysis.detect.pipeline import analyse_run, load_analysis
 from analysis.errors import ArchiveError, RunNotFoundError
 from analysis.ingest.stream import ingest_files
-from tests.s3_server import s3_endpoint, s3_root
 from tests.server.dashboard_fixtures import RunInputs, write_planted_inputs
-
-__all__ = ["s3_endpoint", "s3_root"]
 
 REPO = Path(__file__).resolve().parents[3]
 
