@@ -46,8 +46,12 @@ def write_json(path: Path, data: dict[str, Any]) -> None:
     os.replace(tmp, path)
 
 
-def write_frame(frame: pd.DataFrame, path: Path) -> None:
-    """DataFrame to Parquet; object columns of dicts/lists are stored as JSON text."""
+def write_frame(frame: pd.DataFrame, path: Path | str, filesystem: Any = None) -> None:
+    """DataFrame to Parquet; object columns of dicts/lists are stored as JSON text.
+
+    ``filesystem`` (pyarrow's) writes straight into an object store, where one
+    upload appears whole when complete.
+    """
     frame = frame.copy()
     json_cols = []
     for col in frame.columns:
@@ -61,7 +65,7 @@ def write_frame(frame: pd.DataFrame, path: Path) -> None:
     table = table.replace_schema_metadata(
         {**(table.schema.metadata or {}), _JSON_COLUMNS_KEY: json.dumps(json_cols).encode()}
     )
-    pq.write_table(table, path, compression="zstd")
+    pq.write_table(table, path, compression="zstd", filesystem=filesystem)
 
 
 def read_frame(

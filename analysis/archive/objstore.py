@@ -415,16 +415,13 @@ class ObjectArchive(Archive):
         old = self._pointer_or_none(run_id)
         token = f"{time.time_ns():x}-{secrets.token_hex(4)}"
         folder = run / "results" / token
-        scratch = Path(tempfile.mkdtemp(prefix="outrigger-results-"))
         try:
             for name, frame in (("events.parquet", events), ("series.parquet", series)):
-                write_frame(frame, scratch / name)  # JSON columns as in the local archive
-                (folder / name).upload(scratch / name)
+                # straight into the store; JSON columns as in the local archive
+                write_frame(frame, (folder / name).path, filesystem=folder.fs)
             self._write_json(run / POINTER, {"objects": token, "summary": summary})
         except OSError as exc:
             raise ArchiveError(f"Cannot store the results of run {run_id}: {exc}") from exc
-        finally:
-            shutil.rmtree(scratch, ignore_errors=True)
         if overview is not None:  # derived data: when this fails it is rebuilt on first use
             try:
                 stamp = overview_fingerprint(self, run_id, series_path=folder / "series.parquet")

@@ -49,7 +49,11 @@ def _run(capsys: pytest.CaptureFixture[str], *args: str) -> tuple[int, str]:
 
 
 def test_every_command_on_s3_matches_the_local_archive(
-    s3_root: str, two_inputs: list[RunInputs], tmp_path: Path, capsys: pytest.CaptureFixture[str]
+    s3_root: str,
+    two_inputs: list[RunInputs],
+    tmp_path: Path,
+    capsys: pytest.CaptureFixture[str],
+    monkeypatch: pytest.MonkeyPatch,
 ) -> None:
     local = str(tmp_path / "local")
     ids: dict[str, list[str]] = {}
@@ -64,6 +68,10 @@ def test_every_command_on_s3_matches_the_local_archive(
     listed = json.loads(out)
     assert code == 0 and [r["run_id"] for r in listed] == [a, b]
     assert all(r["analysed"] for r in listed)
+    # OUTRIGGER_DATA may name the store as well
+    monkeypatch.setenv("OUTRIGGER_DATA", s3_root)
+    code, out = _run(capsys, "runs", "--json")
+    assert code == 0 and [r["run_id"] for r in json.loads(out)] == [a, b]
     code, out = _run(capsys, "show", a, "--json", "--data", s3_root)
     assert code == 0 and json.loads(out)["run_id"] == a
 
