@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import json
 import logging
+import os
 import secrets
 import shutil
 import tempfile
@@ -45,7 +46,7 @@ from analysis.archive.files import json_safe, read_frame, write_frame
 from analysis.archive.fleet import delete_fleet_rows
 from analysis.archive.location import Location, is_uri
 from analysis.archive.overview_store import overview_fingerprint, write_overview
-from analysis.archive.store import CONFIG_KINDS, CONFIG_NAME_RE, RUN_ID_RE, Archive
+from analysis.archive.store import CONFIG_KINDS, CONFIG_NAME_RE, RUN_ID_RE, Archive, _pid_alive
 from analysis.catalogue import T
 from analysis.errors import ArchiveError, ChannelMapError, ProfileError, RunNotFoundError
 from analysis.ingest.channel_map import parse_channel_map
@@ -58,6 +59,10 @@ log = logging.getLogger("outrigger.archive")
 ID_HASH_DIGITS = 16
 #: Objects of unfinished ingests and replaced results older than this are swept. [s]
 SWEEP_AGE_S = 3600.0
+#: A manifest this old is cached by size and time (clock skew and 1 s time steps). [s]
+CACHE_AFTER_S = 5.0
+#: Local staging folders: ``<tmp>/outrigger-staging-<pid>-<hex>``.
+STAGING_PREFIX = "outrigger-staging-"
 META = "meta.json"
 POINTER = "results/summary.json"
 
@@ -96,6 +101,7 @@ class ObjectArchive(Archive):
             )
         self._metas: dict[str, tuple[Any, dict[str, Any]]] = {}
         self._local = Path(tempfile.mkdtemp(prefix="outrigger-objstore-"))
+        self._clean_staging()
 
     def __del__(self) -> None:
         shutil.rmtree(getattr(self, "_local", ""), ignore_errors=True)
@@ -122,13 +128,17 @@ class ObjectArchive(Archive):
 
     def new_staging(self) -> Path:
         """A local staging folder: the run is built on disk, then uploaded."""
-        return Path(tempfile.mkdtemp(prefix="outrigger-staging-"))
+        return Path(tempfile.mkdtemp(prefix=f"{STAGING_PREFIX}{os.getpid()}-"))
 
     def discard_staging(self, path: Path) -> None:
         shutil.rmtree(path, ignore_errors=True)
 
     def _clean_staging(self) -> None:
-        pass
+        """Remove local staging folders of ingests whose process is gone (killed)."""
+        for entry in Path(tempfile.gettempdir()).glob(f"{STAGING_PREFIX}*"):
+            pid_text = entry.name[len(STAGING_PREFIX) :].split("-", 1)[0]
+            if pid_text.isdigit() and not _pid_alive(int(pid_text)):
+                shutil.rmtree(entry, ignore_errors=True)
 
     def _reconcile(self) -> None:
         pass
@@ -159,12 +169,18 @@ class ObjectArchive(Archive):
         return set(self._listing()[0])
 
     def _meta_from(self, run_id: str, info: pafs.FileInfo) -> dict[str, Any]:
+        """The manifest, read once and then kept while its size and time stay the same.
+
+        Stores give times to the second, so a manifest is kept only once it is
+        :data:`CACHE_AFTER_S` old: a later rewrite then always shows a later time.
+        """
         key = (info.size, info.mtime_ns)
         cached = self._metas.get(run_id)
         if cached is not None and cached[0] == key:
             return dict(cached[1])
         meta = self._read_json(self.loc / "runs" / run_id / META)
-        self._metas[run_id] = (key, meta)
+        if info.mtime_ns is not None and time.time_ns() - info.mtime_ns > CACHE_AFTER_S * 1e9:
+            self._metas[run_id] = (key, meta)
         return dict(meta)
 
     def _read_json(self, loc: Location) -> dict[str, Any]:

@@ -12,6 +12,7 @@ import os
 import signal
 import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 
@@ -152,7 +153,10 @@ def test_a_killed_ingest_leaves_no_visible_run(s3_root, planted, tmp_path):
     finally:
         proc.kill()
         proc.wait()
+    staged = list(Path(tempfile.gettempdir()).glob(f"outrigger-staging-{proc.pid}-*"))
+    assert staged, "the killed ingest had a local staging folder"
     store = open_archive(s3_root)
+    assert not any(p.exists() for p in staged)  # removed: its process is gone
     left = list((store.loc / "runs").walk())
     assert left, "the killed ingest had written a stream object"
     assert store.list_runs() == []  # ... but no manifest, so no run
