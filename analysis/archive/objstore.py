@@ -337,6 +337,10 @@ class ObjectArchive(Archive):
 
         return sorted(out, key=order)
 
+    def is_analysed(self, run_id: str) -> bool:
+        """True when the run has stored analysis results (its results pointer exists)."""
+        return (self._run_dir(run_id) / POINTER).is_file()
+
     def get_meta(self, run_id: str) -> dict[str, Any]:
         loc = self._run_loc(run_id) / META
         info = loc.info()

@@ -98,7 +98,9 @@ def test_ingest_and_analyse_give_what_the_local_archive_gives(s3_root, planted, 
 def test_reanalysis_replaces_results_through_one_pointer(s3_root, planted):
     store = open_archive(s3_root)
     run_id = _ingest(store, planted)
+    assert not store.is_analysed(run_id)
     analyse_run(store, run_id)
+    assert store.is_analysed(run_id)
     first = store.series_location(run_id)
     analyse_run(store, run_id)
     second = store.series_location(run_id)
