@@ -245,3 +245,30 @@ def test_fleet_tables_in_the_store_answer_sql(s3_root, planted, tmp_path):
         .items()
     )
     assert rows == expected and len(rows) > 0
+
+
+def test_duckdb_reads_the_fleet_tables_with_its_own_s3_reader(s3_root, s3_endpoint, planted):
+    """DuckDB's httpfs reader with its S3 settings, where the extension can be installed."""
+    duckdb = pytest.importorskip("duckdb")
+    con = duckdb.connect()
+    try:
+        con.execute("INSTALL httpfs")
+        con.execute("LOAD httpfs")
+    except duckdb.Error as exc:  # downloaded on first use; impossible without internet
+        pytest.skip(f"DuckDB's httpfs extension cannot be installed here ({exc})")
+    store = open_archive(s3_root)
+    run_id = _ingest(store, planted)
+    analyse_run(store, run_id)
+    host = s3_endpoint.split("://", 1)[1]
+    con.execute(
+        f"SET s3_endpoint = '{host}'; SET s3_use_ssl = false; SET s3_url_style = 'path';"
+        f"SET s3_region = '{os.environ['AWS_REGION']}';"
+        f"SET s3_access_key_id = '{os.environ['AWS_ACCESS_KEY_ID']}';"
+        f"SET s3_secret_access_key = '{os.environ['AWS_SECRET_ACCESS_KEY']}';"
+    )
+    rows = con.sql(
+        f"SELECT run_id, count(*) FROM read_parquet('{s3_root}/fleet/events/*/*.parquet', "
+        "hive_partitioning = true) GROUP BY run_id"
+    ).fetchall()
+    events = (load_analysis(store, run_id) or {})["events"]
+    assert rows == [(run_id, len(events))] and len(events) > 0
