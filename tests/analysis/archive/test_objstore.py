@@ -22,6 +22,7 @@ import pytest
 
 from analysis.archive.location import Location
 from analysis.archive.objstore import ObjectArchive, open_archive
+from analysis.archive.overview_store import read_overview
 from analysis.archive.store import Archive
 from analysis.detect.pipeline import analyse_run, load_analysis
 from analysis.errors import ArchiveError, RunNotFoundError
@@ -84,6 +85,8 @@ def test_ingest_and_analyse_give_what_the_local_archive_gives(s3_root, planted, 
     assert got["events"] == expected["events"]
     assert got["kpis"] == expected["kpis"]
     assert store.list_runs()[0]["analysed"] is True
+    # The chart overview stored with the results is current (not rebuilt on first use).
+    assert read_overview(store, run_id) is not None
     # Nothing of the object-store archive is written to the working folder.
     assert not Path("catalog.sqlite").exists()
 
