@@ -4,8 +4,10 @@ The analysis of one run is a pure function of that run and the thresholds
 (:func:`analysis.detect.pipeline.analyse_run`), and each run's results are replaced
 atomically in its own folder, so re-analysing a fleet after a detector change
 is a map over run ids. With a ``dask.distributed`` client the map runs on an
-existing cluster (whose workers must see the same archive folder); without
-one it runs here, one run after another.
+existing cluster, whose workers must see the same archive folder or, for an
+archive on an object store (``s3://BUCKET/PREFIX``), only the store itself (with
+the AWS_* variables set on every worker); without one it runs here, one run
+after another.
 """
 
 from __future__ import annotations
