@@ -8,7 +8,7 @@ folder renames). What makes it safe instead:
   uploads its stream files to ``runs/<id>/streams/``, and only then puts
   ``runs/<id>/meta.json``, the manifest. A run exists exactly when its manifest
   does; objects without one (a killed ingest) are never listed and are swept
-  later (:meth:`ObjectArchive.sweep`).
+  by a later ingest once an hour old (:meth:`ObjectArchive.sweep`).
 - **The catalog is the set of manifests.** Listing the runs lists the
   ``meta.json`` objects and reads each (cached by size and time), so two
   archives on two machines see the same runs and nothing can go out of step.
@@ -33,7 +33,7 @@ import tempfile
 import time
 import tomllib
 from collections.abc import Iterator
-from contextlib import contextmanager, suppress
+from contextlib import contextmanager
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -201,20 +201,22 @@ class ObjectArchive(Archive):
         self.sweep()
         return len(self._folder_ids())
 
-    def sweep(self, min_age_s: float = SWEEP_AGE_S) -> list[str]:
+    def sweep(self, min_age_s: float = SWEEP_AGE_S, results: bool = True) -> list[str]:
         """Delete objects no manifest or results pointer refers to, older than ``min_age_s``.
 
         Such objects are left by a killed ingest (streams without a manifest)
-        or a killed analysis (results not, or no longer, pointed to). Younger
-        ones may belong to work still in progress and are kept.
+        or, with ``results``, a killed analysis (results not, or no longer,
+        pointed to). Younger ones may belong to work still in progress and are
+        kept. Returns the deleted keys.
         """
         manifests, analysed = self._listing()
-        tokens = {}
-        for run_id in analysed:
+        tokens: dict[str, str | None] = {}
+        unknown = set()
+        for run_id in analysed if results else ():
             try:
-                tokens[run_id] = self._pointer(run_id).get("objects")
+                tokens[run_id] = str(self._pointer(run_id).get("objects"))
             except (RunNotFoundError, ArchiveError):
-                continue
+                unknown.add(run_id)  # pointer unreadable now: leave its results alone
         now_ns = time.time_ns()
         base = f"{self.loc.path}/runs/"
         removed = []
@@ -223,10 +225,14 @@ class ObjectArchive(Archive):
                 continue
             run_id, _, rest = info.path[len(base) :].partition("/")
             parts = rest.split("/")
-            orphan = run_id not in manifests or (
-                parts[0] == "results" and len(parts) == 3 and parts[1] != tokens.get(run_id)
+            stale_results = (
+                results
+                and run_id not in unknown
+                and parts[0] == "results"
+                and len(parts) == 3
+                and parts[1] != tokens.get(run_id)
             )
-            if orphan:
+            if run_id not in manifests or stale_results:
                 self.loc.fs.delete_file(info.path)
                 removed.append(info.path)
         return removed
@@ -270,23 +276,21 @@ class ObjectArchive(Archive):
                 "nothing was changed."
             )
         meta["run_id"] = run_id
-        uploaded: list[Location] = []
+        # On failure the objects already uploaded stay: without a manifest they are never
+        # listed, and deleting them could hit the same keys of a concurrent ingest of the
+        # same files that did finish. The next ingest sweeps them once an hour old.
         try:
             for path in sorted(p for p in staging.rglob("*") if p.is_file()):
                 rel = path.relative_to(staging).as_posix()
-                if rel == META:
-                    continue
-                dest = target / rel
-                dest.upload(path)
-                uploaded.append(dest)
+                if rel != META:
+                    (target / rel).upload(path)
             self._write_json(target / META, meta)  # last: now the run exists
-        except BaseException as exc:
-            for dest in uploaded:
-                with suppress(OSError):  # invisible without a manifest; swept later
-                    dest.unlink()
-            if isinstance(exc, OSError):
-                raise ArchiveError(f"Cannot store run {run_id} in {self.loc}: {exc}") from exc
-            raise
+        except OSError as exc:
+            raise ArchiveError(f"Cannot store run {run_id} in {self.loc}: {exc}") from exc
+        try:  # leftovers of killed ingests (an hour old) go with the next ingest
+            self.sweep(SWEEP_AGE_S, results=False)
+        except (OSError, ArchiveError) as exc:
+            log.warning("Leftover objects in %s not swept (%s).", self.loc, exc)
         return run_id
 
     # --- runs ---------------------------------------------------------------------------

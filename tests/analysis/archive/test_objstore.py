@@ -20,6 +20,7 @@ import pandas as pd
 import pyarrow.fs as pafs
 import pytest
 
+from analysis.archive import objstore
 from analysis.archive.location import Location
 from analysis.archive.objstore import ObjectArchive, open_archive
 from analysis.archive.overview_store import read_overview
@@ -127,6 +128,7 @@ def test_meta_edit_and_delete(s3_root, planted):
 
 _KILLED = """
 import os, sys, time
+from analysis.archive import objstore
 from analysis.archive.location import Location
 from analysis.archive.objstore import open_archive
 from analysis.ingest.stream import ingest_files
@@ -141,7 +143,7 @@ ingest_files(open_archive(sys.argv[2]), [sys.argv[3]], sys.argv[4], sys.argv[5])
 """
 
 
-def test_a_killed_ingest_leaves_no_visible_run(s3_root, planted, tmp_path):
+def test_a_killed_ingest_leaves_no_visible_run(s3_root, planted, tmp_path, monkeypatch):
     marker = tmp_path / "uploaded"
     proc = subprocess.Popen(
         [sys.executable, "-c", _KILLED, str(marker), s3_root, str(planted.logs[0]),
@@ -167,11 +169,15 @@ def test_a_killed_ingest_leaves_no_visible_run(s3_root, planted, tmp_path):
     assert store.list_runs() == []  # ... but no manifest, so no run
     assert store.find_by_hash("x") is None
     assert store.sweep(min_age_s=3600) == []  # too young: could be an ingest in progress
-    assert len(store.sweep(min_age_s=0)) == len(left)
-    assert list((store.loc / "runs").walk()) == []
-    # The same files ingest cleanly afterwards.
+    # The next ingest (of other files) sweeps leftovers older than SWEEP_AGE_S (made 0 here).
+    monkeypatch.setattr(objstore, "SWEEP_AGE_S", 0.0)
+    other = _ingest(store, shifted_inputs(planted, tmp_path / "other", 60.0))
+    keys = {i.path for i in (store.loc / "runs").walk()}
+    assert not keys & {i.path for i in left}
+    assert all(f"/runs/{other}/" in k for k in keys)
+    # The killed ingest's files ingest cleanly afterwards.
     run_id = _ingest(store, planted)
-    assert [r["run_id"] for r in store.list_runs()] == [run_id]
+    assert sorted(r["run_id"] for r in store.list_runs()) == sorted([run_id, other])
 
 
 def _cli(*args: str) -> subprocess.Popen[str]:
