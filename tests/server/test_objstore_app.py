@@ -172,3 +172,28 @@ def test_the_dashboard_on_s3_uploads_shows_edits_and_deletes(
     assert gone.status_code in (200, 204), gone.text
     assert [r["run_id"] for r in api.get("/api/runs").json()["runs"]] == [other["run_id"]]
     assert api.get(f"/api/runs/{run_id}").status_code == 404
+
+
+def test_a_missing_bucket_exits_2_with_what_to_do(
+    s3_endpoint: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    code, out = _run(capsys, "runs", "--data", "s3://no-such-bucket-q7/archive")
+    assert code == 2
+    assert "bucket 'no-such-bucket-q7'" in out and "Create it first" in out
+
+
+def test_a_bad_upload_stores_nothing_in_the_store(
+    api: TestClient, s3_root: str, two_inputs: list[RunInputs]
+) -> None:
+    parts, fields = upload_form(two_inputs[0])
+    # A right header, then one row in ten garbled: refused after the rows were streamed.
+    lines = two_inputs[0].logs[0].read_bytes().splitlines()
+    bad = [b"x,y" if i % 10 == 5 else line for i, line in enumerate(lines)]
+    parts[0] = ("files", ("plant_state.csv", b"\n".join(bad) + b"\n"))
+    response = api.post("/api/upload", files=parts, data=fields)
+    assert response.status_code == 202, response.text
+    job = wait_job(api, response.json()["job"]["id"])
+    assert job["state"] == "failed", job
+    assert job["error"]["type"] == "IngestError" and "plant_state.csv" in job["error"]["message"]
+    assert api.get("/api/runs").json()["runs"] == []
+    assert list((ObjectArchive(s3_root).loc / "runs").walk()) == []
