@@ -100,11 +100,13 @@ class ObjectArchive(Archive):
                 f"(the archive never creates buckets)."
             )
         self._metas: dict[str, tuple[Any, dict[str, Any]]] = {}
-        self._local = Path(tempfile.mkdtemp(prefix="outrigger-objstore-"))
+        self._local: Path | None = None  # local copies of stored configs, made on first use
         self._clean_staging()
 
     def __del__(self) -> None:
-        shutil.rmtree(getattr(self, "_local", ""), ignore_errors=True)
+        local = getattr(self, "_local", None)
+        if local is not None:
+            shutil.rmtree(local, ignore_errors=True)
 
     # --- plumbing ---------------------------------------------------------------------
 
@@ -528,6 +530,8 @@ class ObjectArchive(Archive):
             error = ProfileError if kind == "profile" else ChannelMapError
             stored = ", ".join(self.list_configs(kind)) or "none"
             raise error(f"No stored {kind} named {name!r} (stored: {stored}).") from None
+        if self._local is None:
+            self._local = Path(tempfile.mkdtemp(prefix="outrigger-objstore-"))
         path = self._local / CONFIG_KINDS[kind] / f"{name}.toml"
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_bytes(text)
