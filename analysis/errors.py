@@ -44,3 +44,16 @@ class ArchiveError(OutriggerError):
 
 class CompareError(OutriggerError):
     """Two runs cannot be compared as asked (e.g. not the same course)."""
+
+
+class AlreadyStoredError(OutriggerError):
+    """The same source files were stored as another run meanwhile (found when committing).
+
+    ``run_id`` is that run's id; the ingest reports it instead of storing a copy.
+    """
+
+    status = 409
+
+    def __init__(self, run_id: str) -> None:
+        super().__init__(f"These files are already stored as run {run_id}; nothing new stored.")
+        self.run_id = run_id

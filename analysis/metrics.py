@@ -244,6 +244,11 @@ def time_where(t: np.ndarray, condition: np.ndarray, valid: np.ndarray) -> tuple
     return inside, (inside / total if total > 0 else float("nan"))
 
 
+#: Largest uniform grid :func:`lag_by_xcorr` builds, in points per sample of the input: the
+#: memory of an analysis follows the run's sample count, never its duration. [-]
+MAX_GRID_FACTOR = 8
+
+
 @dataclass(frozen=True)
 class LagEstimate:
     """Result of :func:`lag_by_xcorr`.
@@ -344,7 +349,15 @@ def lag_by_xcorr(t: np.ndarray, ref: np.ndarray, y: np.ndarray, max_lag_s: float
         r_ok, v_ok = np.isfinite(ref), np.isfinite(y)
         r, v = np.where(r_ok, ref, 0.0), np.where(v_ok, y, 0.0)
     else:
-        n = int(np.floor((t[-1] - t[0]) / dt)) + 1
+        n = int(min(np.floor((t[-1] - t[0]) / dt), MAX_GRID_FACTOR * t.size)) + 1
+        if n > MAX_GRID_FACTOR * t.size:  # the grid is bounded by the samples, never by time
+            return LagEstimate(
+                float("nan"),
+                float("nan"),
+                False,
+                f"the {t.size} samples span {t[-1] - t[0]:.3g} s, mostly gaps: a uniform grid "
+                f"would hold more than {MAX_GRID_FACTOR} points per sample",
+            )
         grid = t[0] + dt * np.arange(n)
         r, r_ok = _uniform(t, ref, grid)
         v, v_ok = _uniform(t, y, grid)

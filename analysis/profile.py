@@ -87,7 +87,8 @@ THRESHOLD_SPECS: dict[str, ThresholdSpec] = {
             "m/s",
             "m/s",
             0.1,
-            "Slip also needs |rim - contact speed| above this, so sensor noise at walking pace is no slip.",
+            "Slip also needs |rim - contact speed|, low-passed at 10 Hz, above this, so sensor "
+            "noise at walking pace is no slip.",
         ),
         ThresholdSpec(
             "slip_min_ref_speed_m_s",
@@ -380,6 +381,11 @@ def _read_toml(path: Path, error: type[Exception], what: str) -> dict[str, Any]:
         raise error(f"The {what} {path} is not valid TOML: {exc}. Fix the line it names.") from exc
     except UnicodeDecodeError as exc:
         raise error(f"The {what} {path} is not UTF-8 text TOML.") from exc
+    except RecursionError as exc:
+        raise error(
+            f"The {what} {path.name} is nested too deeply to read (arrays or tables inside "
+            "each other hundreds of levels deep); see the README for its layout."
+        ) from exc
 
 
 def _number(table: Mapping[str, Any], key: str, where: str, *, positive: bool = True) -> float:

@@ -167,7 +167,16 @@ def _zooms(page: Any, starts: tuple[float, ...]) -> tuple[list[float], list[floa
     return refresh, whole, fetch
 
 
-def browser_figures(base: str, run_id: str, cache: Any) -> dict[str, float]:
+def _in_run(hour_s: float, duration_s: float) -> float:
+    """A time picked for the one-hour run, at the same share of a run of ``duration_s``.
+
+    The 10 s zoom window that starts there stays inside the run (a window past the end
+    draws nothing new, and the page would never report a redraw).
+    """
+    return max(0.0, min(hour_s * duration_s / 3600.0, duration_s - 10.0))
+
+
+def browser_figures(base: str, run_id: str, cache: Any, duration_s: float) -> dict[str, float]:
     """The Run page in headless Chromium with a browser profile on disk, as a user has.
 
     * first visit: empty profile (nothing compiled or cached by the browser), server
@@ -218,7 +227,8 @@ def browser_figures(base: str, run_id: str, cache: Any) -> dict[str, float]:
                 page.close()
                 page, ms, _ = _page_load(context, base, run_id)
                 warm.append(ms)
-                r, w, f = _zooms(page, (600.0 + 700 * i, 1800.0 + 300 * i, 2900.0 - 200 * i))
+                hour = (600.0 + 700 * i, 1800.0 + 300 * i, 2900.0 - 200 * i)
+                r, w, f = _zooms(page, tuple(_in_run(x, duration_s) for x in hour))
                 refresh += r
                 whole += w
                 fetch += f
@@ -317,11 +327,14 @@ def main() -> None:
             cache.wait_warm()
             warm_up_s = time.perf_counter() - t0
             page_s, page_bytes = timed_get(client, url, every)
-            zoom_s, zoom_bytes = timed_get(client, url, {**every, "t0": 1800, "t1": 1810})
+            z0 = _in_run(1800.0, 60.0 * args.minutes)
+            zoom_s, zoom_bytes = timed_get(client, url, {**every, "t0": z0, "t1": z0 + 10})
             sub_s, sub_bytes = timed_get(
                 client, url, {"signals": ",".join(FULL_SIGNALS), "points": PAGE_POINTS}
             )
-        figures = {} if args.no_browser else browser_figures(base, run_id, cache)
+        figures = (
+            {} if args.no_browser else browser_figures(base, run_id, cache, 60.0 * args.minutes)
+        )
     finally:
         server.should_exit = True
         thread.join(timeout=10)

@@ -11,9 +11,10 @@ from __future__ import annotations
 
 import importlib
 import logging
+import os
 import shutil
 import tempfile
-from collections.abc import AsyncIterator, Mapping
+from collections.abc import AsyncIterator, Collection, Mapping
 from contextlib import asynccontextmanager
 from pathlib import Path
 from types import ModuleType
@@ -36,8 +37,14 @@ from server.api import meta as routes_meta
 from server.api import runs as routes_runs
 from server.api import series as routes_series
 from server.api import upload as routes_upload
-from server.jobs import JobManager
+from server.jobs import JobManager, submit_pending_analysis
 from server.run_cache import DEFAULT_CACHE_MB, RunCache
+from server.security import (
+    SecurityMiddleware,
+    content_security_policy,
+    page_script_hashes,
+    scrub_paths,
+)
 
 log = logging.getLogger("outrigger.server")
 
@@ -110,6 +117,8 @@ def create_app(
     max_upload_mb: int = 2048,
     web_dir: Path | None = None,
     cache_mb: int = DEFAULT_CACHE_MB,
+    allowed_hosts: Collection[str] | None = None,
+    analyse_pending: bool = False,
 ) -> FastAPI:
     """Build the dashboard application.
 
@@ -125,6 +134,14 @@ def create_app(
         Folder of the static pages; the bundled ``web/`` by default.
     cache_mb : int
         Bound on the in-memory chart columns of recent runs; 0 turns the cache off. [MiB]
+    allowed_hosts : collection of str, optional
+        Host names answered (``Host`` header); any other gets 400. ``outrigger serve``
+        passes :func:`server.security.served_hosts`; None (an app built in-process,
+        e.g. by tests) answers any. Writes from another site's page (``Origin``) are
+        refused either way, and every answer carries the security headers.
+    analyse_pending : bool
+        On start, analyse (as one background job) every stored run without results,
+        e.g. one whose ingest was interrupted before its analysis.
     """
     if max_upload_mb <= 0:
         raise ArchiveError(f"--max-upload-mb must be a positive number, found {max_upload_mb}.")
@@ -136,10 +153,19 @@ def create_app(
         raise ArchiveError(f"The dashboard pages were not found in {web} (no index.html).")
     plotly_path = plotly_js_path()
     optional = _load_optional(OPTIONAL_ROUTERS)
-    upload_root = Path(tempfile.mkdtemp(prefix="outrigger-upload-"))
+    # Under the archive's staging folder, named after this process: a server killed
+    # mid-upload leaves it there, and the next Archive opened on this folder removes it.
+    if archive.is_local:
+        upload_root = Path(
+            tempfile.mkdtemp(prefix=f"{os.getpid()}-upload-", dir=archive.root / "staging")
+        )
+    else:  # object store: a local staging folder, likewise removed once its process is gone
+        upload_root = archive.new_staging()
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        if analyse_pending:
+            submit_pending_analysis(app.state.jobs, archive)
         yield
         app.state.jobs.shutdown()
         shutil.rmtree(upload_root, ignore_errors=True)
@@ -153,7 +179,14 @@ def create_app(
     )
     app.state.archive = archive
     app.state.token = token or None
-    app.state.jobs = JobManager()
+    places = {str(upload_root): "the upload", str(archive.root): "the archive"}
+    if archive.is_local:
+        places[str(archive.root.resolve())] = "the archive"
+
+    def scrub(message: str) -> str:
+        return scrub_paths(message, places)
+
+    app.state.jobs = JobManager(scrub=scrub)
     app.state.run_cache = RunCache(int(cache_mb) * 1024 * 1024)
     app.state.max_upload_bytes = int(max_upload_mb) * 1024 * 1024
     app.state.upload_root = upload_root
@@ -167,7 +200,21 @@ def create_app(
     async def outrigger_error(request: Request, exc: OutriggerError) -> JSONResponse:
         headers = {"WWW-Authenticate": "Bearer"} if exc.status == 401 else None
         return JSONResponse(
-            error_body(type(exc).__name__, str(exc)), status_code=exc.status, headers=headers
+            error_body(type(exc).__name__, scrub(str(exc))),
+            status_code=exc.status,
+            headers=headers,
+        )
+
+    @app.exception_handler(RecursionError)
+    async def too_deep(request: Request, exc: RecursionError) -> JSONResponse:
+        return JSONResponse(
+            error_body(
+                "RequestError",
+                "The request holds data nested too deeply to read (hundreds of levels of "
+                "lists or tables inside each other). Send it flat, as the API reference "
+                "(/api.html) shows.",
+            ),
+            status_code=400,
         )
 
     @app.exception_handler(StarletteHTTPException)
@@ -211,4 +258,14 @@ def create_app(
         )
 
     app.mount("/", StaticFiles(directory=web, html=True), name="web")
+
+    def refusal(kind: str, message: str, status: int) -> JSONResponse:
+        return JSONResponse(error_body(kind, message), status_code=status)
+
+    app.add_middleware(
+        SecurityMiddleware,
+        hosts=None if allowed_hosts is None else frozenset(h.lower() for h in allowed_hosts),
+        csp=content_security_policy(page_script_hashes(web)),
+        error=refusal,
+    )
     return app

@@ -17,9 +17,12 @@ from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from analysis.errors import OutriggerError
+
+if TYPE_CHECKING:
+    from analysis.archive.store import Archive
 
 log = logging.getLogger("outrigger.jobs")
 
@@ -71,9 +74,12 @@ class JobManager:
     workers : int
         Threads; 1 by default so two ingests never compete for the disk and
         the 2-core test machines stay responsive. [-]
+    scrub : callable, optional
+        Applied to a failed job's message (the server removes its own paths).
     """
 
-    def __init__(self, workers: int = 1) -> None:
+    def __init__(self, workers: int = 1, scrub: Callable[[str], str] | None = None) -> None:
+        self._scrub = scrub or (lambda message: message)
         self._pool = ThreadPoolExecutor(max_workers=workers, thread_name_prefix="outrigger-job")
         self._jobs: dict[str, Job] = {}
         self._lock = threading.Lock()
@@ -122,7 +128,8 @@ class JobManager:
         try:
             run_id = func(progress)
         except OutriggerError as exc:
-            self._finish(job, FAILED, error={"type": type(exc).__name__, "message": str(exc)})
+            message = self._scrub(str(exc))
+            self._finish(job, FAILED, error={"type": type(exc).__name__, "message": message})
         except Exception:
             log.exception("job %s (%s) failed", job.id, job.kind)
             self._finish(
@@ -157,3 +164,29 @@ class JobManager:
             finished.sort(key=lambda j: j.created_at)
             for j in finished[: len(finished) - KEEP_FINISHED]:
                 del self._jobs[j.id]
+
+
+def submit_pending_analysis(jobs: JobManager, archive: Archive) -> Job | None:
+    """Queue one job that analyses every stored run without results; None if there is none.
+
+    A run is stored before it is analysed, so an ingest cut short in between (a
+    killed process, a full disk) leaves a run without results; the server picks
+    such runs up when it starts. A run whose analysis fails is logged and skipped.
+    """
+    pending = [r["run_id"] for r in archive.list_runs() if not r.get("analysed")]
+    if not pending:
+        return None
+
+    def work(progress: Progress) -> str | None:
+        from analysis.detect.pipeline import analyse_run
+
+        for k, run_id in enumerate(pending):
+            progress(k / len(pending), f"analysing run {run_id} (stored, not analysed)")
+            try:
+                analyse_run(archive, run_id)
+            except Exception:
+                log.exception("analysis of the pending run %s failed", run_id)
+        progress(1.0, f"analysed {len(pending)} pending run(s)")
+        return None
+
+    return jobs.submit("analyse-pending", work, info={"runs": pending})

@@ -48,7 +48,13 @@ from analysis.archive.location import Location, is_uri
 from analysis.archive.overview_store import overview_fingerprint, write_overview
 from analysis.archive.store import CONFIG_KINDS, CONFIG_NAME_RE, RUN_ID_RE, Archive, _pid_alive
 from analysis.catalogue import T
-from analysis.errors import ArchiveError, ChannelMapError, ProfileError, RunNotFoundError
+from analysis.errors import (
+    AlreadyStoredError,
+    ArchiveError,
+    ChannelMapError,
+    ProfileError,
+    RunNotFoundError,
+)
 from analysis.ingest.channel_map import parse_channel_map
 from analysis.overview import RunOverview
 from analysis.profile import profile_from_dict
@@ -254,9 +260,9 @@ class ObjectArchive(Archive):
     def commit_run(self, staging: Path, meta: dict[str, Any]) -> str:
         """Upload a staged run's files, then its manifest (last: the run becomes visible).
 
-        The id is ``<date>-<time>-<16 hex digits of the source hash>``; a
-        manifest already there under that id with the same source hash means a
-        concurrent ingest of the same files won: its run is kept and its id returned.
+        The id is ``<date>-<time>-<16 hex digits of the source hash>``. Raises
+        :class:`AlreadyStoredError` (nothing changed) when a manifest of the same
+        source files is there already: another ingest of these files stored them first.
         """
         when = meta.get("date") or meta.get("ingested_at")
         try:
@@ -271,7 +277,7 @@ class ObjectArchive(Archive):
                 break
             other = self._read_json(target / META)
             if other.get("source_hash") == digest:
-                return run_id  # the same files, stored meanwhile by another ingest
+                raise AlreadyStoredError(run_id)
         else:
             raise ArchiveError(
                 f"Run {run_id} already exists in {self.loc} with other source files; "

@@ -6,6 +6,7 @@ Layout under the root (default ``./outrigger-data``)::
     runs/<run_id>/streams/<name>.parquet one file per source, column t first
     runs/<run_id>/results/               events.parquet, series.parquet, summary.json
     catalog.sqlite                       index for filtering; rebuilt from the folders
+    catalog.lock                         held while a run is committed (one run per log)
     configs/profiles/<name>.toml         robot profiles kept on the server
     configs/maps/<name>.toml             channel maps kept on the server
     staging/<pid>-<hex>/                 work in progress; renamed into place
@@ -13,11 +14,17 @@ Layout under the root (default ``./outrigger-data``)::
 Every write is staged and renamed into place, so a failing or killed ingest or
 analysis leaves no partial run; staging folders of processes that no longer
 run are removed when an :class:`Archive` is opened, and the catalog is brought
-in line with the run folders.
+in line with the run folders. New results replace old ones in two renames; the
+old ones wait in ``runs/<id>/.results-previous-<pid>`` between them, and an open
+after a crash in that moment puts them back. A source hash is stored once: the
+commit checks and inserts under ``catalog.lock``, and the catalog's unique index
+on ``source_hash`` refuses a second row.
 """
 
 from __future__ import annotations
 
+import contextlib
+import fcntl
 import json
 import os
 import re
@@ -45,7 +52,13 @@ from analysis.archive.files import (
 )
 from analysis.archive.fleet import delete_fleet_rows
 from analysis.archive.overview_store import overview_fingerprint, place_overview, write_overview
-from analysis.errors import ArchiveError, ChannelMapError, ProfileError, RunNotFoundError
+from analysis.errors import (
+    AlreadyStoredError,
+    ArchiveError,
+    ChannelMapError,
+    ProfileError,
+    RunNotFoundError,
+)
 from analysis.ingest.channel_map import parse_channel_map
 from analysis.overview import RunOverview
 from analysis.profile import (
@@ -53,7 +66,9 @@ from analysis.profile import (
     profile_from_dict,
 )
 
-RUN_ID_RE = re.compile(r"^[a-z0-9-]+$")
+#: A run id: lower-case letters, digits and '-', at most 100 characters (ids the archive
+#: gives are 20 to 78 long).
+RUN_ID_RE = re.compile(r"^[a-z0-9-]{1,100}$")
 CONFIG_NAME_RE = re.compile(r"^[A-Za-z0-9_-]{1,80}$")
 CONFIG_KINDS = {"profile": "profiles", "map": "maps"}
 #: As-of join tolerance, in periods of the joined stream: one period plus half a
@@ -70,6 +85,14 @@ CREATE TABLE IF NOT EXISTS run_tags (run_id TEXT NOT NULL, tag TEXT NOT NULL);
 CREATE INDEX IF NOT EXISTS run_tags_tag ON run_tags (tag);
 CREATE INDEX IF NOT EXISTS runs_hash ON runs (source_hash);
 """
+#: One run per set of source files. Created apart: an archive holding duplicates from
+#: before this constraint keeps working (its later copies are catalogued without a hash).
+_UNIQUE_HASH = (
+    "CREATE UNIQUE INDEX IF NOT EXISTS runs_source_hash_unique ON runs (source_hash) "
+    "WHERE source_hash IS NOT NULL"
+)
+#: Prefix of the previous results while new ones are put in place (``<prefix><pid>``).
+ASIDE_PREFIX = ".results-previous-"
 
 
 def _pid_alive(pid: int) -> bool:
@@ -116,12 +139,17 @@ class Archive:
         try:
             with self._db() as con:
                 con.executescript(_SCHEMA)
+            with contextlib.suppress(sqlite3.IntegrityError), self._db() as con:
+                con.execute(_UNIQUE_HASH)
         except sqlite3.DatabaseError as exc:
             raise ArchiveError(
                 f"The catalog {self._catalog} is unusable ({exc}). Move it away; "
                 f"Archive.rebuild_catalog() recreates it from the run folders."
             ) from exc
+        self._lock_path = self.root / "catalog.lock"
+        self._lock_path.touch(exist_ok=True)
         self._clean_staging()
+        self._recover_results()
         self._reconcile()
 
     # --- plumbing ---------------------------------------------------------------------
@@ -131,13 +159,43 @@ class Archive:
         with closing(sqlite3.connect(self._catalog, timeout=30)) as con, con:
             yield con
 
+    @contextmanager
+    def _commit_lock(self) -> Iterator[None]:
+        """Exclusive lock of the archive's run list, across threads and processes."""
+        with self._lock_path.open("a") as fh:
+            fcntl.flock(fh.fileno(), fcntl.LOCK_EX)
+            try:
+                yield
+            finally:
+                fcntl.flock(fh.fileno(), fcntl.LOCK_UN)
+
+    def _recover_results(self) -> None:
+        """Finish or undo a results swap that a crash interrupted (see :meth:`write_results`).
+
+        A run with an aside copy of its previous results (left by a process that no
+        longer runs) and no ``results/`` gets the copy back; when ``results/`` is
+        there, the new results were placed and the copy is removed.
+        """
+        for aside in (self.root / "runs").glob(f"*/{ASIDE_PREFIX}*"):
+            pid_text = aside.name[len(ASIDE_PREFIX) :]
+            if pid_text.isdigit() and _pid_alive(int(pid_text)) and int(pid_text) != os.getpid():
+                continue  # another process is between its two renames right now
+            current = aside.parent / "results"
+            if current.exists():
+                shutil.rmtree(aside, ignore_errors=True)
+            else:
+                os.rename(aside, current)
+
     def _run_dir(self, run_id: str) -> Path:
         if not isinstance(run_id, str) or not RUN_ID_RE.match(run_id):
-            raise RunNotFoundError(f"{run_id!r} is not a run id (lower-case letters, digits, '-').")
+            shown = repr(run_id[:40]) + ("..." if len(str(run_id)) > 40 else "")
+            raise RunNotFoundError(
+                f"{shown} is not a run id (lower-case letters, digits and '-', at most 100)."
+            )
         path = self.root / "runs" / run_id
         if not (path / "meta.json").is_file():
             raise RunNotFoundError(
-                f"No run {run_id!r} in the archive {self.root}. `outrigger runs` lists the runs."
+                f"No run {run_id!r} in the archive. `outrigger runs` lists the runs."
             )
         return path
 
@@ -187,7 +245,16 @@ class Archive:
         run_id = meta["run_id"]
         analysed = (self.root / "runs" / run_id / "results" / "summary.json").is_file()
         tags = [str(t) for t in meta.get("tags") or []]
+        source_hash = meta.get("source_hash")
         with self._db() as con:
+            holder = con.execute(
+                "SELECT run_id FROM runs WHERE source_hash = ? AND run_id != ?",
+                (source_hash, run_id),
+            ).fetchone()
+            if holder is not None:
+                # A copy stored before hashes were unique: listed, but not as the holder of
+                # the hash (a REPLACE would silently drop the other run's row).
+                source_hash = None
             con.execute("DELETE FROM run_tags WHERE run_id = ?", (run_id,))
             con.execute(
                 "INSERT OR REPLACE INTO runs VALUES (?,?,?,?,?,?,?,?,?,?,?,?)",
@@ -195,7 +262,7 @@ class Archive:
                     run_id, meta.get("name"), meta.get("course"), meta.get("controller"),
                     meta.get("date"), meta.get("duration_s"), meta.get("distance_m"),
                     json.dumps(tags), meta.get("ingested_at"), int(analysed),
-                    meta.get("source_hash"), meta.get("notes"),
+                    source_hash, meta.get("notes"),
                 ),
             )  # fmt: skip
             con.executemany("INSERT INTO run_tags VALUES (?, ?)", [(run_id, t) for t in tags])
@@ -226,13 +293,32 @@ class Archive:
         return row[0] if row else None
 
     def commit_run(self, staging: Path, meta: dict[str, Any]) -> str:
-        """Give a staged run its id, write its meta.json, rename it into place, catalog it."""
+        """Give a staged run its id, write its meta.json, rename it into place, catalog it.
+
+        Raises :class:`AlreadyStoredError` (nothing changed) when a run of the same source
+        files is stored already, possibly by another process a moment before.
+        """
         when = meta.get("date") or meta.get("ingested_at")
         try:
             stamp = datetime.fromisoformat(str(when).replace("Z", "+00:00")).astimezone(UTC)
         except ValueError:
             stamp = datetime.now(UTC)
         digest = str(meta["source_hash"])
+        with self._commit_lock():
+            # Check and insert under one lock: of two ingests of the same files, the
+            # second finds the first's run here and stores nothing.
+            with self._db() as con:
+                row = con.execute(
+                    "SELECT run_id FROM runs WHERE source_hash = ?", (digest,)
+                ).fetchone()
+            existing = row[0] if row else None
+            if existing is not None and (self.root / "runs" / existing / "meta.json").is_file():
+                raise AlreadyStoredError(existing)
+            return self._commit_locked(staging, meta, stamp, digest)
+
+    def _commit_locked(
+        self, staging: Path, meta: dict[str, Any], stamp: datetime, digest: str
+    ) -> str:
         for length in (6, 10, 16, 64):
             run_id = f"{stamp:%Y%m%d-%H%M}-{digest[:length]}"
             target = self.root / "runs" / run_id
@@ -306,6 +392,10 @@ class Archive:
             d["analysed"] = bool(r[9])
             out.append(d)
         return out
+
+    def is_analysed(self, run_id: str) -> bool:
+        """True when the run has stored analysis results."""
+        return (self._run_dir(run_id) / "results" / "summary.json").is_file()
 
     def get_meta(self, run_id: str) -> dict[str, Any]:
         """The run's meta.json as a dict."""
@@ -495,7 +585,10 @@ class Archive:
             if overview is not None:
                 stamp = overview_fingerprint(self, run_id, series_path=new / "series.parquet")
                 write_overview(self, run_id, overview, stamp, folder=staging)
-            old = self.root / "staging" / f"{os.getpid()}-old-{secrets.token_hex(4)}"
+            # Aside inside the run's own folder, named after this process: a crash between
+            # the two renames leaves it there, and the next open puts it back.
+            old = run_dir / f"{ASIDE_PREFIX}{os.getpid()}"
+            shutil.rmtree(old, ignore_errors=True)
             current = run_dir / "results"
             if current.exists():
                 os.rename(current, old)
@@ -560,6 +653,11 @@ class Archive:
                 data = tomllib.loads(text)
             except tomllib.TOMLDecodeError as exc:
                 raise ProfileError(f"Profile {name!r} is not valid TOML: {exc}.") from exc
+            except RecursionError as exc:
+                raise ProfileError(
+                    f"Profile {name!r} is nested too deeply to read (arrays or tables inside "
+                    "each other hundreds of levels deep); see the README for its layout."
+                ) from exc
             profile_from_dict(data, source=f"profile {name!r}")
         else:
             parse_channel_map(text, origin=f"channel map {name!r}")

@@ -77,6 +77,9 @@ class RunData:
         The robot the run was driven with.
     meta : dict
         Run metadata (``name``, ``course``, ``controller``, ...).
+    skipped : dict
+        Detectors the analysis skipped: name -> reason. Their KPIs are left out
+        of a comparison ("not run"), never counted as 0.
     """
 
     run_id: str
@@ -85,6 +88,7 @@ class RunData:
     events: list[Event]
     profile: RobotProfile
     meta: dict[str, Any] = field(default_factory=dict)
+    skipped: dict[str, str] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -195,8 +199,11 @@ def kpi_definitions(runs: Sequence[RunData], tip_edges: np.ndarray | None) -> li
                Statistic("ratio", "dist", "time")),
         KpiDef("time_to_complete", "time_to_complete", None, "Time to complete", "s", LOWER,
                Statistic("total", "time")),
-        KpiDef("falls", "falls", None, "Falls", "count", LOWER, Statistic("total", "falls")),
     ]  # fmt: skip
+    if not any("balance" in r.skipped for r in runs):  # falls come from events: 0 if never looked
+        out.append(
+            KpiDef("falls", "falls", None, "Falls", "count", LOWER, Statistic("total", "falls"))
+        )
     for a in actuators:
         if all(
             _torque_name(r.frame, a) is not None

@@ -126,7 +126,11 @@ that keeps the kinematic identities Outrigger's detectors rely on, and plants ev
 for them to find: wheel saturation on the sprint, hip saturation where the left wheel
 drops off a kerb, wheel spin on a wet plate under the right wheel, low tip-over margin
 in the fast harbour bend (controller 1.4 leans too little), and a lateral shove that
-knocks the roll off its reference.
+knocks the roll off its reference. The logs carry what sensors would report, not the
+true states: attitude-filter noise and drift, gyro noise and bias, accelerometer noise
+and wheel vibration, a lagging velocity estimate, quantised encoders, time stamp
+jitter, an occasional dropped row, and a noisy measured torque
+(`analysis/demo/sensors.py` names each effect and its size).
 
 Course segments, in driving order: {segs}.
 

@@ -310,7 +310,20 @@ _HILL = Course(
     ),
 )
 
-COURSES: dict[str, Course] = {c.name: c for c in (_LOOP, _HILL)}
+#: Noise only: constant-speed straights and one steady full circle, no feature, speeds
+#: and radius chosen so that no detector's threshold is reached by the true states.
+_QUIET = Course(
+    name="gullhaven-quiet",
+    site="Gullhaven test yard",
+    segments=(
+        Segment("quiet straight", speed=1.5, length=30.0),
+        Segment("steady circle", speed=1.5, radius=6.0, angle_deg=360.0),
+        Segment("fast straight", speed=2.5, length=45.0),
+    ),
+    features=(),
+)
+
+COURSES: dict[str, Course] = {c.name: c for c in (_LOOP, _HILL, _QUIET)}
 
 
 def course_plan(name: str) -> Course:

@@ -2,10 +2,13 @@
 
 :func:`simulate_run` drives the invented robot Marram-2 over a demo course with
 one of two lean-controller versions (:mod:`analysis.demo.sim` holds the model,
-:mod:`analysis.demo.course` the robot, controllers and courses), adds sensor
-noise, and returns the canonical SI analysis frame, the noise-free true series
-and the list of events the drive planted (computed from the true states with the
-detectors' own event rule). :func:`foreign_tables` writes the same run in the
+:mod:`analysis.demo.course` the robot, controllers and courses), measures it
+with the sensor model of :mod:`analysis.demo.sensors` (attitude-filter noise and
+drift, gyro noise and bias, vibration, estimator lag, encoder quantisation, time
+stamp jitter, dropped rows, measured torque), and returns the canonical SI
+analysis frame, the noise-free true series and the list of events the drive
+planted (from the true states, by the README's definitions, in
+:mod:`analysis.demo.truth`, which shares no code with the detectors). :func:`foreign_tables` writes the same run in the
 "foreign" log layout of the bundled demo files (own column names, degrees, rpm,
 mm, g0, microsecond epoch stamps, state and torque at different rates), and
 :func:`channel_map_toml` is the channel map that reads that layout.
@@ -28,13 +31,15 @@ import pandas as pd
 from analysis import catalogue as cat
 from analysis.demo import course as dc
 from analysis.demo import sim as ds
-from analysis.demo.sim import PlantedEvent
+from analysis.demo.sensors import SensorModel, measure_state, measure_torque, stamp_and_drop
+from analysis.demo.truth import DEFINITIONS, PlantedEvent, planted_truth
 from analysis.errors import OutriggerError
 from analysis.profile import RobotProfile, profile_from_dict, unit_registry
 
 __all__ = [
     "DemoRun",
     "PlantedEvent",
+    "SensorModel",
     "channel_map_toml",
     "demo_profile",
     "foreign_tables",
@@ -89,34 +94,32 @@ class DemoRun:
 
 # --- the foreign layout ---------------------------------------------------------------
 # (raw column, canonical signal, unit, scale, decimals, noise sigma in SI)
-_STATE_COLUMNS: list[tuple[str, str, str, float, int, float]] = [
-    ("imu_roll_deg", cat.ROLL, "deg", 1.0, 3, np.deg2rad(0.005)),
-    ("imu_pitch_deg", cat.PITCH, "deg", -1.0, 3, np.deg2rad(0.005)),  # log: nose up positive
-    ("imu_yaw_deg", cat.YAW, "deg", 1.0, 2, np.deg2rad(0.05)),
-    ("gyro_x_dps", cat.ROLL_RATE, "deg/s", 1.0, 2, np.deg2rad(0.15)),
-    ("gyro_y_dps", cat.PITCH_RATE, "deg/s", -1.0, 2, np.deg2rad(0.15)),
-    ("gyro_z_dps", cat.YAW_RATE, "deg/s", 1.0, 2, np.deg2rad(0.15)),
-    ("acc_x_g", cat.ACCEL_X, "g0", 1.0, 4, 0.04),
-    ("acc_y_g", cat.ACCEL_Y, "g0", 1.0, 4, 0.04),
-    ("acc_z_g", cat.ACCEL_Z, "g0", 1.0, 4, 0.04),
-    ("vx_est", cat.VEL_X, "m/s", 1.0, 3, 0.01),
-    ("vy_est", cat.VEL_Y, "m/s", 1.0, 3, 0.01),
-    ("leg_l_mm", cat.LEG_L_LENGTH, "mm", 1.0, 2, 1e-4),
-    ("leg_r_mm", cat.LEG_R_LENGTH, "mm", 1.0, 2, 1e-4),
-    ("whl_l_rpm", "wheel_l.vel", "rpm", 1.0, 2, 0.02),
-    ("whl_r_rpm", "wheel_r.vel", "rpm", 1.0, 2, 0.02),
-    ("hip_l_deg", "hip_l.pos", "deg", 1.0, 3, np.deg2rad(0.01)),
-    ("hip_r_deg", "hip_r.pos", "deg", 1.0, 3, np.deg2rad(0.01)),
-    ("lean_cmd_deg", cat.ROLL_REF, "deg", 1.0, 3, 0.0),
-    ("pitch_cmd_deg", cat.PITCH_REF, "deg", -1.0, 3, 0.0),
-    ("height_cmd_mm", cat.HEIGHT_REF, "mm", 1.0, 2, 0.0),
-    ("vx_cmd", cat.VEL_X_REF, "m/s", 1.0, 3, 0.0),
-    ("yaw_rate_cmd_dps", cat.YAW_RATE_REF, "deg/s", 1.0, 2, 0.0),
+_STATE_COLUMNS: list[tuple[str, str, str, float, int]] = [
+    ("imu_roll_deg", cat.ROLL, "deg", 1.0, 3),
+    ("imu_pitch_deg", cat.PITCH, "deg", -1.0, 3),  # log: nose up positive
+    ("imu_yaw_deg", cat.YAW, "deg", 1.0, 2),
+    ("gyro_x_dps", cat.ROLL_RATE, "deg/s", 1.0, 2),
+    ("gyro_y_dps", cat.PITCH_RATE, "deg/s", -1.0, 2),
+    ("gyro_z_dps", cat.YAW_RATE, "deg/s", 1.0, 2),
+    ("acc_x_g", cat.ACCEL_X, "g0", 1.0, 4),
+    ("acc_y_g", cat.ACCEL_Y, "g0", 1.0, 4),
+    ("acc_z_g", cat.ACCEL_Z, "g0", 1.0, 4),
+    ("vx_est", cat.VEL_X, "m/s", 1.0, 3),
+    ("vy_est", cat.VEL_Y, "m/s", 1.0, 3),
+    ("leg_l_mm", cat.LEG_L_LENGTH, "mm", 1.0, 1),
+    ("leg_r_mm", cat.LEG_R_LENGTH, "mm", 1.0, 1),
+    ("whl_l_rpm", "wheel_l.vel", "rpm", 1.0, 2),
+    ("whl_r_rpm", "wheel_r.vel", "rpm", 1.0, 2),
+    ("hip_l_deg", "hip_l.pos", "deg", 1.0, 3),
+    ("hip_r_deg", "hip_r.pos", "deg", 1.0, 3),
+    ("lean_cmd_deg", cat.ROLL_REF, "deg", 1.0, 3),
+    ("pitch_cmd_deg", cat.PITCH_REF, "deg", -1.0, 3),
+    ("height_cmd_mm", cat.HEIGHT_REF, "mm", 1.0, 1),
+    ("vx_cmd", cat.VEL_X_REF, "m/s", 1.0, 3),
+    ("yaw_rate_cmd_dps", cat.YAW_RATE_REF, "deg/s", 1.0, 2),
 ]
 _TORQUE_PREFIX = {"wheel_l": "wl", "wheel_r": "wr", "hip_l": "hl", "hip_r": "hr"}
 _TORQUE_QUANTITY = {cat.TORQUE_REQ: "req", cat.TORQUE_CMD: "cmd", cat.TORQUE: "meas"}
-_TORQUE_NOISE = {"wheel": 0.03, "hip": 0.06}  # N*m, measured-torque noise
-_TORQUE_LAG_S = 0.005  # s, current loop of the drives
 _EXTRA_STATE = ("batt_v", "ctrl_mode")
 
 
@@ -145,7 +148,7 @@ def channel_map_toml() -> str:
         "",
         "[source.columns]",
     ]
-    for raw, signal, unit, scale, _, _ in _STATE_COLUMNS:
+    for raw, signal, unit, scale, _ in _STATE_COLUMNS:
         extra = ", scale = -1" if scale == -1.0 else ""
         note = "   # log: nose up positive" if scale == -1.0 else ""
         lines.append(f'{raw} = {{ signal = "{signal}", unit = "{unit}"{extra} }}{note}')
@@ -186,15 +189,6 @@ def _si_unit(signal: str) -> str:
     return entry.unit
 
 
-def _lag(x: np.ndarray, tau_s: float, dt: float) -> np.ndarray:
-    """First-order lag, starting at the first value."""
-    from scipy.signal import lfilter, lfilter_zi
-
-    a = float(np.exp(-dt / tau_s))
-    zi = lfilter_zi([1.0 - a], [1.0, -a]) * (x[0] if x.size else 0.0)
-    return lfilter([1.0 - a], [1.0, -a], x, zi=zi)[0]
-
-
 def simulate_run(
     controller: str = "lean-ctl 2.0",
     *,
@@ -207,6 +201,8 @@ def simulate_run(
     start_offset_m: float = 0.0,
     fall: bool = False,
     name: str | None = None,
+    sensors: SensorModel | None = None,
+    stand_s: float = ds.T_STAND,
 ) -> DemoRun:
     """Simulate Marram-2 driving a demo course; return frame, truth and true series.
 
@@ -224,7 +220,8 @@ def simulate_run(
     start_utc : datetime or None
         Absolute time of the first state sample (default: an invented test day).
     course : str
-        "gullhaven-loop" or "gullhaven-hill".
+        "gullhaven-loop", "gullhaven-hill" or "gullhaven-quiet" (noise only:
+        constant-speed straights and a steady circle, nothing planted).
     start_offset_m : float
         Start this far before the course start (a straight approach). [m]
     fall : bool
@@ -232,7 +229,15 @@ def simulate_run(
         robot tips forward onto its bumper; the run ends 2 s after it comes to rest.
     name : str or None
         Run name (default from course, controller and seed).
+    sensors : SensorModel or None
+        What the logs carry instead of the true states (:mod:`analysis.demo.sensors`);
+        None for the default model, ``SensorModel.ideal()`` for the true states.
+    stand_s : float
+        Time the robot stands balancing before it drives off; with ``duration_s``
+        at most this long the run is a robot standing still. [s]
     """
+    if stand_s < 0:
+        raise OutriggerError(f"stand_s must be >= 0 s, found {stand_s}.")
     ctl = dc.controller_params(controller)
     plan = dc.course_plan(course)
     if state_rate_hz <= 0 or torque_rate_hz <= 0:
@@ -247,6 +252,7 @@ def simulate_run(
         )
     if duration_s is not None and duration_s <= 0:
         raise OutriggerError(f"duration_s must be > 0 s or None, found {duration_s}.")
+    sensors = SensorModel() if sensors is None else sensors
     dt = 1.0 / state_rate_hz
     fall_at = (0.6 * duration_s if duration_s is not None else 60.0) if fall else None
     st = ds.simulate_states(
@@ -257,17 +263,18 @@ def simulate_run(
         duration_s=None if fall else duration_s,
         start_offset_m=start_offset_m,
         fall_at_s=fall_at,
+        stand_s=stand_s,
     )
     true = ds.derive_true(st, dt)
     t = st["t"]
     step = int(round(ratio))
     tq_index = np.arange(0, t.size, step)
     t_tq = t[tq_index] + TORQUE_STAMP_OFFSET_US * 1e-6
-    truth = ds.planted_truth(t, st, true, t_tq, tq_index)
+    truth = planted_truth(t, st, true, t_tq, tq_index)
     start = start_utc or DEFAULT_START
     if start.tzinfo is None:
         raise OutriggerError(f"start_utc must carry a time zone (UTC), found {start.isoformat()}.")
-    raw = _foreign(st, true, seed, dt, tq_index, start)
+    raw = _foreign(st, true, seed, dt, tq_index, start, sensors)
     frame = _frame_from_foreign(raw)
     series = _true_series(st, true)
     return DemoRun(
@@ -290,6 +297,8 @@ def _true_series(st: dict[str, np.ndarray], true: dict[str, np.ndarray]) -> pd.D
         cat.T: st["t"],
         "distance": st["s"],
         "segment": st["segment"].astype(int),
+        "curvature": st["kappa"],
+        cat.VEL_X_REF: st["vref"],
         cat.ROLL: st["phi"],
         cat.ROLL_REF: st["phi_ref"],
         cat.PITCH: st["theta"],
@@ -298,7 +307,7 @@ def _true_series(st: dict[str, np.ndarray], true: dict[str, np.ndarray]) -> pd.D
         cat.LEG_L_LENGTH: st["L_l"],
         cat.LEG_R_LENGTH: st["L_r"],
     }
-    floor = ds.Thresholds.defaults().slip_min_ref_speed
+    floor = DEFINITIONS.slip_min_ref_speed
     for key, val in true.items():
         cols[key] = val
     for side in ("l", "r"):
@@ -319,8 +328,9 @@ def _foreign(
     dt: float,
     tq_index: np.ndarray,
     start: datetime,
+    sensors: SensorModel,
 ) -> dict[str, pd.DataFrame]:
-    """The run in the foreign layout: noisy, in log units, rounded, with epoch stamps."""
+    """The run in the foreign layout: measured by the sensor model, in log units, rounded."""
     t = st["t"]
     n = t.size
     yaw = np.cumsum(true["yaw_rate"]) * dt
@@ -331,7 +341,7 @@ def _foreign(
     si: dict[str, np.ndarray] = {
         cat.ROLL: st["phi"],
         cat.PITCH: st["theta"],
-        cat.YAW: np.angle(np.exp(1j * yaw)),  # wrapped to (-pi, pi]
+        cat.YAW: yaw,
         cat.ROLL_RATE: st["dphi"],
         cat.PITCH_RATE: st["dtheta"],
         cat.YAW_RATE: true["yaw_rate"],
@@ -352,12 +362,13 @@ def _foreign(
         cat.VEL_X_REF: st["vref"],
         cat.YAW_RATE_REF: st["kappa"] * st["vref"],
     }
+    si = measure_state(si, st["v"], st["v"] / dc.WHEEL_RADIUS, dt, seed, sensors)
+    si[cat.YAW] = np.angle(np.exp(1j * si[cat.YAW]))  # wrapped to (-pi, pi]
     start_us = int(round(start.timestamp() * 1e6))
-    state: dict[str, np.ndarray] = {"stamp_us": start_us + np.round(t * 1e6).astype(np.int64)}
-    for k, (raw, signal, unit, scale, decimals, sigma) in enumerate(_STATE_COLUMNS):
+    stamps, keep = stamp_and_drop(t, dt, seed, 0, sensors)
+    state: dict[str, np.ndarray] = {"stamp_us": start_us + np.round(stamps * 1e6).astype(np.int64)}
+    for raw, signal, unit, scale, decimals in _STATE_COLUMNS:
         value = si[signal]
-        if sigma > 0:
-            value = value + sigma * ds._rng(seed, 100 + k).standard_normal(n)
         state[raw] = np.round(value * _factor(_si_unit(signal), unit) * scale, decimals) + 0.0
     load = sum(np.abs(st[f"{a}_cmd"]) for a in dc.ACTUATORS)
     batt = 50.4 - 0.004 * t - 0.05 * load + 0.02 * ds._rng(seed, 150).standard_normal(n)
@@ -366,19 +377,23 @@ def _foreign(
     mode = np.where(np.abs(st["theta"]) > np.deg2rad(45.0), 4, mode)
     state["ctrl_mode"] = mode.astype(np.int64)
 
+    t_tq = t[tq_index]
+    dt_tq = dt * (tq_index[1] - tq_index[0]) if tq_index.size > 1 else dt
+    stamps_tq, keep_tq = stamp_and_drop(t_tq, dt_tq, seed, 1, sensors)
     torque: dict[str, np.ndarray] = {
-        "t_us": start_us + np.round(t[tq_index] * 1e6).astype(np.int64) + TORQUE_STAMP_OFFSET_US
+        "t_us": start_us + np.round(stamps_tq * 1e6).astype(np.int64) + TORQUE_STAMP_OFFSET_US
     }
     for k, act in enumerate(dc.ACTUATORS):
         prefix = _TORQUE_PREFIX[act]
-        role = "wheel" if act.startswith("wheel") else "hip"
+        peak = dc.WHEEL_PEAK if act.startswith("wheel") else dc.HIP_PEAK
         cmd = st[f"{act}_cmd"]
-        meas = _lag(cmd, _TORQUE_LAG_S, dt)[tq_index]
-        meas = meas + _TORQUE_NOISE[role] * ds._rng(seed, 200 + k).standard_normal(tq_index.size)
+        meas = measure_torque(cmd, peak, dt, seed, k, sensors)[tq_index]
         torque[f"{prefix}_tq_req"] = np.round(st[f"{act}_req"][tq_index], 3)
         torque[f"{prefix}_tq_cmd"] = np.round(cmd[tq_index], 3)
         torque[f"{prefix}_tq_meas"] = np.round(meas, 3)
-    return {"state": pd.DataFrame(state), "torque": pd.DataFrame(torque)}
+    state_table = pd.DataFrame(state)[keep].reset_index(drop=True)
+    torque_table = pd.DataFrame(torque)[keep_tq].reset_index(drop=True)
+    return {"state": state_table, "torque": torque_table}
 
 
 def _frame_from_foreign(raw: dict[str, pd.DataFrame]) -> pd.DataFrame:
@@ -388,7 +403,7 @@ def _frame_from_foreign(raw: dict[str, pd.DataFrame]) -> pd.DataFrame:
     origin = min(int(state["stamp_us"].iloc[0]), int(torque["t_us"].iloc[0]))
     t = (state["stamp_us"].to_numpy() - origin) * 1e-6
     cols: dict[str, np.ndarray] = {cat.T: t}
-    for raw_name, signal, unit, scale, _, _ in _STATE_COLUMNS:
+    for raw_name, signal, unit, scale, _ in _STATE_COLUMNS:
         value = state[raw_name].to_numpy(dtype=float) * scale
         cols[signal] = np.asarray(ureg.Quantity(value, unit).to(_si_unit(signal)).magnitude)
     t_tq = (torque["t_us"].to_numpy() - origin) * 1e-6

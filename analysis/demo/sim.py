@@ -28,7 +28,6 @@ References
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
 from scipy.signal import lfilter
@@ -36,8 +35,6 @@ from scipy.signal import lfilter
 from analysis import catalogue as cat
 from analysis.catalogue import G0
 from analysis.demo import course as dc
-from analysis.events import find_intervals
-from analysis.profile import Thresholds
 
 T_STAND = 1.5  # s standing still, balancing, before driving off
 T_TAIL = 2.0  # s standing still after the course end
@@ -49,21 +46,6 @@ HEIGHT_RATE = 0.1  # m/s, rate limit of the height reference
 STEP_ROLL = 2.0  # rad/s^2, roll push when one wheel drops off the kerb
 STEP_ROLL_S = 0.15  # s
 FALL_LIMIT = np.deg2rad(80.0)  # rad, pitch where the fallen robot rests on its bumper
-
-
-@dataclass
-class PlantedEvent:
-    """One interval of something the generator caused, from its true states.
-
-    ``kind`` is a key of ``catalogue.EVENT_KINDS``; ``channel`` an actuator or
-    wheel name, or None for whole-robot events; ``start_s`` and ``end_s`` the
-    first and last sample times of the interval. [s]
-    """
-
-    kind: str
-    channel: str | None
-    start_s: float
-    end_s: float
 
 
 def _sign(x: float) -> float:
@@ -94,6 +76,7 @@ def simulate_states(
     duration_s: float | None,
     start_offset_m: float,
     fall_at_s: float | None,
+    stand_s: float = T_STAND,
 ) -> dict[str, np.ndarray]:
     """Integrate the drive; return the true state histories (SI), one value per step.
 
@@ -184,7 +167,7 @@ def simulate_states(
         kappa = at("curvature", s)
         faulted = fall_at_s is not None and t >= fall_at_s
         # --- speed reference and wheel torque request --------------------------------
-        vlim = 0.0 if t < T_STAND else at("speed", s)
+        vlim = 0.0 if t < stand_s else at("speed", s)
         vnew = max(0.0, min(vlim, vref + lists["accel"][gi] * dt))
         a_ff = (vnew - vref) / dt
         vref = vnew
@@ -364,75 +347,3 @@ def derive_true(st: dict[str, np.ndarray], dt: float) -> dict[str, np.ndarray]:
     out[cat.TIP_MARGIN] = 1.0 - np.abs(zmp) / (b / 2.0)
     out[cat.ROLL_ERROR] = st["phi_ref"] - phi
     return out
-
-
-def planted_truth(
-    t: np.ndarray,
-    st: dict[str, np.ndarray],
-    true: dict[str, np.ndarray],
-    t_torque: np.ndarray,
-    torque_index: np.ndarray,
-    thresholds: Thresholds | None = None,
-) -> list[PlantedEvent]:
-    """The events the run holds, from its true states, with the detectors' event rule.
-
-    Each kind uses :func:`analysis.events.find_intervals` with the default
-    thresholds (hysteresis, minimum duration, merge gap): saturation where
-    ``|req| - |cmd| > eps`` (on the torque log's time base), slip where the true
-    slip ratio ``|slip| / max(|v_contact|, floor)`` passes ``slip_ratio_on`` while
-    ``|slip|`` exceeds ``slip_speed_min``, yaw slip where the wheel yaw rate
-    departs from the true yaw rate, low tip margin, roll error outside the band,
-    pitch excursion and fall from the true pitch.
-    """
-    th = thresholds or Thresholds.defaults()
-
-    def hold(
-        tt: np.ndarray, value: np.ndarray, on: float, off: float, above: bool = True
-    ) -> list[tuple[int, int]]:
-        return find_intervals(
-            tt,
-            value,
-            on,
-            off,
-            min_duration_s=th.min_duration_s,
-            merge_gap_s=th.merge_gap_s,
-            above=above,
-        )
-
-    events: list[PlantedEvent] = []
-
-    def add(kind: str, channel: str | None, tt: np.ndarray, spans: list[tuple[int, int]]) -> None:
-        events.extend(PlantedEvent(kind, channel, float(tt[a]), float(tt[e])) for a, e in spans)
-
-    for act in dc.ACTUATORS:
-        req = st[f"{act}_req"][torque_index]
-        cmd = st[f"{act}_cmd"][torque_index]
-        excess = np.abs(req) - np.abs(cmd)
-        eps = th.saturation_eps
-        add(cat.SATURATION, act, t_torque, hold(t_torque, excess, eps, eps))
-    for side in ("l", "r"):
-        wheel = f"wheel_{side}"
-        slip = true[f"{wheel}.{cat.SLIP_SPEED}"]
-        v_c = true[f"{wheel}.{cat.CONTACT_SPEED}"]
-        ratio = np.abs(slip) / np.maximum(np.abs(v_c), th.slip_min_ref_speed)
-        ratio = np.where(np.abs(slip) > th.slip_speed_min, ratio, 0.0)
-        spans = hold(t, ratio, th.slip_ratio_on, th.slip_ratio_off)
-        add(cat.SLIP, wheel, t, spans)
-    diff = np.abs(true[cat.YAW_RATE_WHEELS] - true["yaw_rate"])
-    add(
-        cat.YAW_SLIP,
-        None,
-        t,
-        hold(t, diff, th.yaw_rate_diff_on, th.yaw_rate_diff_off),
-    )
-    margin = true[cat.TIP_MARGIN]
-    spans = hold(t, margin, th.tip_margin_on, th.tip_margin_off, above=False)
-    add(cat.LOW_TIP_MARGIN, None, t, spans)
-    err = np.abs(true[cat.ROLL_ERROR])
-    add(cat.ROLL_ERROR, None, t, hold(t, err, th.roll_band, th.roll_band))
-    pitch = np.abs(st["theta"])
-    add(cat.PITCH_EXCURSION, None, t, hold(t, pitch, th.pitch_limit, th.pitch_limit))
-    add(cat.FALL, None, t, hold(t, pitch, th.fall_pitch, th.fall_pitch))
-    order = list(cat.EVENT_KINDS)
-    events.sort(key=lambda e: (order.index(e.kind), e.channel or "", e.start_s))
-    return events

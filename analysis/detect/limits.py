@@ -15,6 +15,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from analysis import catalogue as cat
 from analysis.errors import ThresholdsError
 from analysis.profile import unit_registry
 
@@ -319,4 +320,52 @@ def headline_kpis(summary: Summary) -> dict[str, float | int | None]:
         "slip_events": int(slip[0][1] or 0) if slip else None,
         "min_tip_margin": tip[0][1] if tip else None,
         "roll_error_rms": roll[0][1] if roll else None,
+    }
+
+
+#: The detector behind each headline KPI.
+HEADLINE_DETECTORS = {
+    "worst_saturation_share": "saturation",
+    "slip_events": "slip",
+    "min_tip_margin": "tip",
+    "roll_error_rms": "roll",
+}
+
+#: The event kinds each detector reports (``catalogue.EVENT_KINDS``).
+DETECTOR_KINDS = {
+    "saturation": (cat.SATURATION,),
+    "slip": (cat.SLIP, cat.YAW_SLIP),
+    "tip": (cat.LOW_TIP_MARGIN,),
+    "roll": (cat.ROLL_ERROR,),
+    "balance": (cat.PITCH_EXCURSION, cat.FALL),
+}
+
+
+def not_run(summary: Summary) -> dict[str, dict[str, str]]:
+    """What a stored analysis could not say because a detector was skipped.
+
+    A skipped detector's headline KPI and event counts must read "not run", never
+    0 or a blank that looks like a clean result.
+
+    Parameters
+    ----------
+    summary : mapping
+        A stored analysis (``analysis.detect.pipeline.load_analysis``).
+
+    Returns
+    -------
+    dict
+        ``{"detectors": {detector: reason}, "kpis": {headline key: reason},
+        "event_kinds": {kind: reason}}``, each empty when every detector ran.
+    """
+    skipped = {s["detector"]: s["reason"] for s in summary.get("skipped", [])}
+    return {
+        "detectors": skipped,
+        "kpis": {k: skipped[d] for k, d in HEADLINE_DETECTORS.items() if d in skipped},
+        "event_kinds": {
+            kind: skipped[d]
+            for d, kinds in DETECTOR_KINDS.items()
+            if d in skipped
+            for kind in kinds
+        },
     }

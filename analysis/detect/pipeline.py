@@ -51,7 +51,7 @@ if TYPE_CHECKING:
     from analysis.archive.store import Archive
 
 #: Bumped whenever a detector's definition changes, so stored results say what made them.
-ANALYSIS_VERSION = f"{__version__}+detectors.2"
+ANALYSIS_VERSION = f"{__version__}+detectors.3"
 
 Detector = Callable[[pd.DataFrame, RobotProfile, Thresholds | None], DetectorResult]
 

@@ -17,6 +17,7 @@ no hand-written factor table.
 from __future__ import annotations
 
 import fnmatch
+import math
 import os
 import re
 import tomllib
@@ -46,6 +47,9 @@ DELIMITERS = (",", ";", "\t")
 _STREAM_NAME = re.compile(r"^[A-Za-z0-9_]+$")
 _SOURCE_KEYS = {"name", "files", "kind", "time_column", "time_unit", "time_origin", "delimiter"}
 _COLUMN_KEYS = {"signal", "unit", "scale"}
+#: Smallest and largest magnitude of a column's ``scale``; beyond them it is a mistake
+#: (units are converted through ``unit``, the scale only flips signs or corrects). [-]
+MIN_SCALE, MAX_SCALE = 1e-6, 1e6
 
 
 @dataclass(frozen=True)
@@ -326,8 +330,17 @@ def channel_map_from_dict(
                 problems.append(problem)
                 continue
             scale = spec.get("scale", 1.0)
-            if isinstance(scale, bool) or not isinstance(scale, int | float) or scale == 0:
-                problems.append(f"{cwhere}: scale must be a non-zero number, found {scale!r}.")
+            if (
+                isinstance(scale, bool)
+                or not isinstance(scale, int | float)
+                or not math.isfinite(scale)
+                or not MIN_SCALE <= abs(scale) <= MAX_SCALE
+            ):
+                problems.append(
+                    f"{cwhere}: scale must be a finite number of magnitude {MIN_SCALE:g} to "
+                    f"{MAX_SCALE:g} (a sign flip or a small correction; units go in 'unit'), "
+                    f"found {scale!r}."
+                )
                 continue
             columns.append(ColumnSpec(raw, signal, unit, float(scale), factor))
         sources.append(
@@ -363,6 +376,12 @@ def parse_channel_map(
         raise ChannelMapError(
             f"The {origin} is not valid TOML: {exc}. Fix the line it names."
         ) from exc
+    except RecursionError as exc:
+        raise ChannelMapError(
+            f"The {origin} is nested too deeply to read (arrays or tables inside each other "
+            "hundreds of levels deep). A channel map needs three levels: [[source]], "
+            "[source.columns] and each column's { signal, unit }."
+        ) from exc
     return channel_map_from_dict(data, profile, text=text, origin=origin)
 
 
@@ -377,7 +396,7 @@ def load_channel_map(
         text = p.read_text(encoding="utf-8")
     except UnicodeDecodeError as exc:
         raise ChannelMapError(f"The channel map {p} is not UTF-8 text.") from exc
-    return parse_channel_map(text, profile, origin=f"channel map {p}")
+    return parse_channel_map(text, profile, origin=f"channel map {p.name}")
 
 
 def check_headers(cmap: ChannelMap, headers: Mapping[str, Sequence[str]]) -> None:

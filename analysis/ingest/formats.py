@@ -23,6 +23,7 @@ from analysis.ingest.read import (
     FileInfo,
     _convert_text_table,
     _iter_text_blocks,
+    drop_bad_times,
     iter_csv,
 )
 
@@ -56,7 +57,12 @@ def iter_jsonl(
                         table.schema.get_field_index(c), c, table.column(c).cast(t)
                     )
             bad.total += n_content
-            yield table.select(list(types))
+            lines_of = first + np.flatnonzero(np.asarray(content, bool))
+            table = drop_bad_times(
+                table.select(list(types)), required, lines_of, bad, info.time_check
+            )
+            if table.num_rows:
+                yield table
             continue
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
             pass
@@ -81,7 +87,7 @@ def iter_jsonl(
             good.append(first + k)
         if good:
             text = pa.table({c: pa.array(v, pa.string()) for c, v in rows.items()})
-            out = _convert_text_table(text, types, required, np.asarray(good), bad)
+            out = _convert_text_table(text, types, required, np.asarray(good), bad, info.time_check)
             if out.num_rows:
                 yield out
 
@@ -118,9 +124,12 @@ def iter_parquet(
         out = pa.table(arrays)
         bad.total += out.num_rows
         nulls = ~pc.is_valid(out.column(required)).to_numpy(zero_copy_only=False)
+        rows = row0 + np.arange(out.num_rows)
         if nulls.any():
             bad.add(row0 + np.flatnonzero(nulls), f"empty time cell in column {required!r}")
             out = out.filter(pa.array(~nulls))
+            rows = rows[~nulls]
+        out = drop_bad_times(out, required, rows, bad, info.time_check)
         row0 += batch.num_rows
         if tick is not None:
             tick(int(info.size * min(1.0, (row0 - 1) / total)))

@@ -41,10 +41,16 @@ from analysis.errors import IngestError
 
 #: Bytes of text parsed at once (before decompression for gzip this is the text size).
 BLOCK_BYTES = 32 << 20
+#: Longest line of a CSV or JSON Lines log; a longer one refuses the file. Bounds the
+#: memory a line can take whatever the input (a gzip "bomb" of one endless line). [bytes]
+MAX_LINE_BYTES = 1 << 20
+#: Decompressed text one ingest reads at most, per byte of the server's upload limit:
+#: an upload of N MiB may hold up to ``MAX_TEXT_RATIO * N`` MiB of log text. [-]
+MAX_TEXT_RATIO = 20
 #: Rows per batch read from Parquet input.
 PARQUET_BATCH_ROWS = 1 << 18
 #: Bytes read to find the header and guess types.
-PEEK_BYTES = 1 << 20
+PEEK_BYTES = 2 * MAX_LINE_BYTES
 #: Most skipped lines kept in the report (all are counted).
 MAX_LISTED_LINES = 100
 
@@ -62,6 +68,113 @@ _BOOL_RE = r"(?i)^(true|false|1|0)$"
 
 
 @dataclass
+class TextBudget:
+    """Decompressed text bytes one ingest may read, over all its files (checked while streaming)."""
+
+    limit: int
+    used: int = 0
+
+    def spend(self, name: str, n: int) -> None:
+        """Count ``n`` bytes read from file ``name``; refuse once past the limit."""
+        self.used += n
+        if self.used > self.limit:
+            raise IngestError(
+                f"{name}: the run's log text passes {self.limit / (1 << 20):,.0f} MiB once "
+                f"decompressed, the most one ingest reads ({MAX_TEXT_RATIO}x the server's "
+                "upload limit; --max-text-mb on the command line). Split the run into "
+                "smaller files, or raise the limit if the logs really are that large."
+            )
+
+
+@dataclass
+class TimeCheck:
+    """Plausible raw timestamps of one source; a row outside is a bad line (skipped, reported).
+
+    ``lo`` and ``hi`` bound the raw time in the column's own unit (int64
+    nanoseconds for ISO 8601 text). ``spike`` is the smallest jump, in raw units,
+    that makes a single row "far from its neighbours": a row more than ``spike``
+    away from both the row before and the row after, while those two are within
+    ``spike`` of each other, is skipped (a corrupt timestamp, not a logging gap,
+    which is one jump and never jumps back).
+    """
+
+    lo: float
+    hi: float
+    spike: float
+    unit: str
+    where: str  # the plausible range in words, for the message
+
+    def bad_rows(self, column: pa.Array | pa.ChunkedArray) -> tuple[np.ndarray, list[str]]:
+        """Mask of implausible rows of a raw time column and the reason of each."""
+        col = column.cast(pa.int64()) if pa.types.is_timestamp(column.type) else column
+        valid = pc.is_valid(col).to_numpy(zero_copy_only=False)
+        raw = np.asarray(pc.fill_null(col, 0).to_numpy(zero_copy_only=False), dtype=np.float64)
+        with np.errstate(invalid="ignore"):
+            out = valid & ~((raw >= self.lo) & (raw <= self.hi))
+        # non-finite values compare False above, so NaN and inf are out of range too
+        if len(raw) >= 3:
+            ok = valid & ~out
+            prev_d = np.abs(raw[1:-1] - raw[:-2])
+            next_d = np.abs(raw[2:] - raw[1:-1])
+            skip_d = np.abs(raw[2:] - raw[:-2])
+            spike = (prev_d > self.spike) & (next_d > self.spike) & (skip_d <= self.spike)
+            spike &= ok[:-2] & ok[2:] & ok[1:-1]
+            out[1:-1] |= spike
+        else:
+            spike = np.zeros(0, bool)
+        reasons = []
+        for k in np.flatnonzero(out).tolist():
+            is_spike = 0 < k < len(raw) - 1 and bool(spike[k - 1])
+            why = (
+                f"far from its neighbours (more than {self.spike:g} {self.unit} from the rows "
+                "before and after)"
+                if is_spike
+                else f"outside the plausible range {self.where}"
+            )
+            reasons.append(f"time {raw[k]!r} {self.unit} is {why}")
+        return out, reasons
+
+
+def drop_bad_times(
+    table: pa.Table, required: str, lines: np.ndarray, bad: BadLines, check: TimeCheck | None
+) -> pa.Table:
+    """Skip and record the rows of ``table`` whose time ``check`` finds implausible."""
+    if check is None or table.num_rows == 0:
+        return table
+    mask, reasons = check.bad_rows(table.column(required).combine_chunks())
+    if not mask.any():
+        return table
+    bad.add(np.asarray(lines)[mask], reasons)
+    return table.filter(pa.array(~mask))
+
+
+def _line_too_long(name: str, line_no: int, length: int | None = None) -> IngestError:
+    found = f" ({length:,} bytes)" if length is not None else ""
+    return IngestError(
+        f"{name}: line {line_no} is longer than {MAX_LINE_BYTES // (1 << 20)} MiB{found}, the "
+        f"longest line a log may have. The file is damaged or not a log (a missing line "
+        f"break?); repair it or export it again."
+    )
+
+
+def _check_lines(name: str, block: bytes, first: int) -> None:
+    """Refuse a block holding a line longer than :data:`MAX_LINE_BYTES`.
+
+    Cheap: a line that long fully covers one of the half-limit windows of the
+    block, so only windows without a line break are looked at closely.
+    """
+    half = MAX_LINE_BYTES // 2
+    for pos in range(0, len(block), half):
+        if block.find(b"\n", pos, pos + half) >= 0:
+            continue
+        start = block.rfind(b"\n", 0, pos) + 1
+        end = block.find(b"\n", pos)
+        end = len(block) if end < 0 else end
+        if end - start > MAX_LINE_BYTES:
+            raise _line_too_long(name, first + block.count(b"\n", 0, start), end - start)
+
+
+@dataclass
 class FileInfo:
     """What :func:`inspect_file` learnt about one log file."""
 
@@ -74,6 +187,8 @@ class FileInfo:
     data_offset: int = 0  # byte offset of the first data line in the (decompressed) text
     size: int = 0  # bytes on disk
     peek: pa.Table | None = None  # first rows, types inferred
+    text_budget: TextBudget | None = None  # decompressed text the ingest may still read
+    time_check: TimeCheck | None = None  # plausible raw times, set by the ingest
 
 
 @dataclass
@@ -154,7 +269,7 @@ def inspect_file(path: str | Path, delimiter: str | None = None) -> FileInfo:
             offset += len(raw_line) + 1
             continue
         if not complete and len(head) == PEEK_BYTES:
-            break
+            raise _line_too_long(p.name, i + 1)
         if stripped.startswith("{"):
             return _inspect_jsonl(p, compression, head, size)
         delim = delimiter or max((",", ";", "\t"), key=stripped.count)
@@ -270,6 +385,7 @@ def _convert_text_table(
     required: str,
     lines: np.ndarray,
     bad: BadLines,
+    check: TimeCheck | None = None,
 ) -> pa.Table:
     """Slow path: validate every column of an all-text table, drop and record bad rows."""
     n = table.num_rows
@@ -295,7 +411,7 @@ def _convert_text_table(
         idx = np.flatnonzero(drop)
         bad.add(lines[idx], [reasons[k] for k in idx.tolist()])
         out = out.filter(pa.array(~drop))
-    return out
+    return drop_bad_times(out, required, np.asarray(lines)[~drop], bad, check)
 
 
 # --- CSV -------------------------------------------------------------------------
@@ -306,12 +422,18 @@ def _iter_text_blocks(
 ) -> Iterator[tuple[bytes, int]]:
     """Yield (block of whole lines, 1-based line number of its first line)."""
     raw, stream = _open_text(info.path, info.compression)
+    name = info.path.name
     try:
         skipped = stream.read(info.data_offset)
+        budget = info.text_budget
+        if budget is not None:
+            budget.spend(name, len(skipped))
         line_no = skipped.count(b"\n") + 1
         carry = b""
         while True:
             chunk = stream.read(BLOCK_BYTES)
+            if budget is not None:
+                budget.spend(name, len(chunk))
             if tick is not None:
                 tick(raw.tell())
             if not chunk:
@@ -321,9 +443,14 @@ def _iter_text_blocks(
             data = carry + chunk
             end = data.rfind(b"\n")
             if end < 0:
+                if len(data) > MAX_LINE_BYTES:
+                    raise _line_too_long(name, line_no)
                 carry = data
                 continue
             block, carry = data[: end + 1], data[end + 1 :]
+            if len(carry) > MAX_LINE_BYTES:
+                raise _line_too_long(name, line_no + block.count(b"\n"))
+            _check_lines(name, block, line_no)
             yield block, line_no
             line_no += block.count(b"\n")
     finally:
@@ -412,7 +539,10 @@ def iter_csv(
             nulls = table.column(required).null_count
             if nulls == 0:
                 bad.total += n_lines
-                yield table
+                lines = first + np.arange(table.num_rows)
+                table = drop_bad_times(table, required, lines, bad, info.time_check)
+                if table.num_rows:
+                    yield table
                 continue
         buf, starts, ends, valid, ignorable, fields, numbers = _line_table(
             block, info.delimiter, ncols, first
@@ -438,6 +568,6 @@ def iter_csv(
             io.BytesIO(clean), read_options=read_opts, parse_options=parse_opts,
             convert_options=text_opts,
         )  # fmt: skip
-        out = _convert_text_table(text, types, required, numbers[valid], bad)
+        out = _convert_text_table(text, types, required, numbers[valid], bad, info.time_check)
         if out.num_rows:
             yield out

@@ -40,7 +40,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from analysis import __version__, catalogue
-from analysis.errors import ChannelMapError, IngestError
+from analysis.errors import AlreadyStoredError, ChannelMapError, IngestError
 from analysis.ingest.channel_map import (
     ChannelMap,
     SourceSpec,
@@ -58,12 +58,20 @@ from analysis.ingest.order import (
     rewrite_stream,
     time_stats,
 )
-from analysis.ingest.read import BadLines, FileInfo, inspect_file
+from analysis.ingest.plausibility import check_time_base, check_values
+from analysis.ingest.read import (
+    MAX_TEXT_RATIO,
+    BadLines,
+    FileInfo,
+    TextBudget,
+    inspect_file,
+)
 from analysis.ingest.timebase import (
     Clock,
     extra_type,
     first_time_ns,
     raw_time,
+    time_check,
     time_type,
 )
 from analysis.profile import RobotProfile, load_profile
@@ -87,6 +95,9 @@ class RunWriter(Protocol):
     def discard_staging(self, path: Path) -> None: ...
 
 
+#: Decompressed log text one ingest reads by default: the ratio to the server's default
+#: 2048 MiB upload limit (``--max-text-mb`` on the command line). [bytes]
+DEFAULT_MAX_TEXT_BYTES = MAX_TEXT_RATIO * 2048 * (1 << 20)
 #: Largest share of bad lines a file may have before the ingest is refused. [-]
 MAX_BAD_SHARE = 0.01
 #: Bad lines named in the refusal message.
@@ -151,6 +162,7 @@ class _StreamWriter:
         self.conflicting = 0
         self.reordered = 0
         self.t_min = np.inf
+        self.non_finite: dict[str, dict[str, int]] = {}  # signal -> missing, nan, inf counts
 
     def add(self, raw: pa.Table) -> None:
         t = self.clock.seconds(raw_time(raw.column(self.source.time_column)))
@@ -183,10 +195,28 @@ class _StreamWriter:
             return
         self.last = table.slice(table.num_rows - 1)
         self.t_parts.append(t)
+        self._count_non_finite(table)
         self.pending.append(table)
         self.pending_rows += table.num_rows
         if self.pending_rows >= ROW_GROUP_ROWS:
             self._flush()
+
+    def _count_non_finite(self, table: pa.Table) -> None:
+        """Count missing, NaN and infinite values per mapped signal (kept as they are).
+
+        A CSV cell ``nan`` or ``NaN`` is read as missing, like an empty cell; NaN
+        proper comes from Parquet or JSON input.
+        """
+        for c in self.source.columns:
+            col = table.column(c.signal)
+            missing = col.null_count
+            nan = int(pc.sum(pc.is_nan(col)).as_py() or 0)
+            inf = int(pc.sum(pc.is_inf(col)).as_py() or 0)
+            if missing or nan or inf:
+                seen = self.non_finite.setdefault(c.signal, {"missing": 0, "nan": 0, "inf": 0})
+                seen["missing"] += missing
+                seen["nan"] += nan
+                seen["inf"] += inf
 
     def _flush(self) -> None:
         if not self.pending:
@@ -273,6 +303,7 @@ def ingest_files(
     notes: str = "",
     date: str | None = None,
     progress: Progress | None = None,
+    max_text_bytes: int | None = DEFAULT_MAX_TEXT_BYTES,
 ) -> IngestOutcome:
     """Ingest the log files of one run into ``archive``.
 
@@ -291,6 +322,10 @@ def ingest_files(
         carries absolute time).
     progress : callable, optional
         Called as ``progress(fraction, message)``, fraction in [0, 1]. [-]
+    max_text_bytes : int or None
+        Most text read from the CSV and JSON Lines files together, counted after
+        decompression while streaming; None for no cap. Every line is also at most
+        :data:`analysis.ingest.read.MAX_LINE_BYTES` long. [bytes]
 
     Returns
     -------
@@ -346,6 +381,7 @@ def ingest_files(
         types[sname] = {src.time_column: ttype, **{c.raw: pa.float64() for c in src.columns}}
         types[sname].update(extras[sname])
         for p in files_of:
+            infos[p].time_check = time_check(src)
             f = first_time_ns(infos[p], src, ttype)
             if f is not None:
                 firsts.append(f)
@@ -354,6 +390,9 @@ def ingest_files(
 
     total_bytes = sum(i.size for i in infos.values()) or 1
     done_bytes = 0
+    budget = None if max_text_bytes is None else TextBudget(int(max_text_bytes))
+    for info in infos.values():
+        info.text_budget = budget
     staging = archive.new_staging()
     try:
         (staging / "streams").mkdir()
@@ -407,8 +446,10 @@ def ingest_files(
                     "count": sum(b.count for _, b in bads),
                     "lines": [dict(x, file=n) for n, b in bads for x in b.listed][:100],
                 },
+                "non_finite": w.non_finite,
                 "signals": [c.signal for c in w.source.columns],
                 "extra_columns": [catalogue.extra(c) for c in w.extras],
+                "warnings": _plausibility(w.path, w.source, stats, prof),
             }
         origin_ns += int(round(-shift * 1e9)) if shift else 0
         meta = _build_meta(
@@ -418,11 +459,42 @@ def ingest_files(
         )  # fmt: skip
         say(0.97, "storing run")
         run_id = archive.commit_run(staging, meta)
+    except AlreadyStoredError as exc:  # another ingest of these files stored them first
+        archive.discard_staging(staging)
+        winner = archive.get_meta(exc.run_id)
+        return IngestOutcome(exc.run_id, winner.get("ingest_report", {}), duplicate_of=exc.run_id)
     except BaseException:
         archive.discard_staging(staging)
         raise
     say(1.0, f"stored run {run_id}")
     return IngestOutcome(run_id, report)
+
+
+def _plausibility(
+    path: Path, source: SourceSpec, stats: dict[str, Any], prof: RobotProfile
+) -> list[dict[str, Any]]:
+    """Plausibility warnings of one stored stream (:mod:`analysis.ingest.plausibility`)."""
+    warnings = check_time_base(source, stats["rate_hz"], stats["duration_s"])
+    wanted = [c.signal for c in source.columns if c.signal in _PLAUSIBILITY_SIGNALS]
+    wanted += [c.signal for c in source.columns if c.signal.endswith(f".{catalogue.VEL}")]
+    wanted += [c.signal for c in source.columns if c.signal.endswith(f".{catalogue.POS}")]
+    if wanted:
+        tab = pq.read_table(path, columns=[catalogue.T, *dict.fromkeys(wanted)])
+        cols = {n: tab.column(n).to_numpy(zero_copy_only=False) for n in tab.column_names}
+        warnings += check_values(source, cols.pop(catalogue.T), cols, prof)
+    return warnings
+
+
+_PLAUSIBILITY_SIGNALS = {
+    catalogue.ROLL,
+    catalogue.PITCH,
+    catalogue.YAW,
+    catalogue.ROLL_REF,
+    catalogue.PITCH_REF,
+    catalogue.YAW_RATE,
+    catalogue.ACCEL_Z,
+    catalogue.VEL_X,
+}
 
 
 def _build_meta(

@@ -7,6 +7,7 @@ ns lose nothing before the subtraction.
 
 from __future__ import annotations
 
+from datetime import UTC, datetime
 from decimal import Decimal
 
 import numpy as np
@@ -16,8 +17,32 @@ import pyarrow.parquet as pq
 
 from analysis.errors import IngestError
 from analysis.ingest.channel_map import ISO8601, SourceSpec
-from analysis.ingest.read import FileInfo, _validate
+from analysis.ingest.read import FileInfo, TimeCheck, _validate
 from analysis.profile import unit_registry
+
+#: Plausible absolute (epoch) timestamps: from 1990-01-01 to 2100-01-01 UTC. [s since epoch]
+EPOCH_RANGE_S = (
+    datetime(1990, 1, 1, tzinfo=UTC).timestamp(),
+    datetime(2100, 1, 1, tzinfo=UTC).timestamp(),
+)
+#: Plausible boot-clock timestamps: within 30 days of the clock's zero. [s]
+BOOT_RANGE_S = 30 * 86400.0
+#: A single row this far from both neighbours (which are close to each other) is skipped. [s]
+SPIKE_S = 10.0
+
+
+def time_check(source: SourceSpec) -> TimeCheck:
+    """The plausible range of a source's raw time column (see :class:`TimeCheck`)."""
+    ns = ns_per_unit(source)
+    unit = "ns" if source.time_unit == ISO8601 else source.time_unit
+    if source.time_origin == "epoch" or source.time_unit == ISO8601:
+        lo_s, hi_s = EPOCH_RANGE_S
+        where = "1990-01-01 .. 2100-01-01 UTC (time since the Unix epoch)"
+    else:
+        lo_s, hi_s = -BOOT_RANGE_S, BOOT_RANGE_S
+        where = "within 30 days of the clock's zero (time since boot)"
+    per_s = 1e9 / ns  # raw units per second
+    return TimeCheck(lo_s * per_s, hi_s * per_s, SPIKE_S * per_s, unit, where)
 
 
 def time_type(info: FileInfo, source: SourceSpec) -> pa.DataType:
@@ -76,6 +101,11 @@ def first_time_ns(info: FileInfo, source: SourceSpec, ttype: pa.DataType) -> int
     col = pc.drop_null(col)
     if len(col) == 0:
         return None
+    if info.time_check is not None:  # an implausible time never sets the origin
+        implausible, _ = info.time_check.bad_rows(col)
+        col = col.filter(pa.array(~implausible))
+        if len(col) == 0:
+            return None
     raw = raw_time(col)
     low = raw.min()
     ns = ns_per_unit(source)

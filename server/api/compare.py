@@ -19,6 +19,7 @@ from analysis.compare.view import overlay
 from analysis.errors import CompareError
 from server.deps import get_archive
 from server.report import build_report
+from server.security import content_security_policy, script_hashes
 
 router = APIRouter(prefix="/api/compare", tags=["compare"])
 
@@ -98,7 +99,12 @@ def report(
     text = build_report(comp, overlay(comp, runs_a, runs_b))
     name = re.sub(r"[^A-Za-z0-9_.-]+", "-", f"compare-{'_'.join(a)}-vs-{'_'.join(b)}")[:120]
     return HTMLResponse(
-        text, headers={"Content-Disposition": f'attachment; filename="{name}.html"'}
+        text,
+        headers={
+            "Content-Disposition": f'attachment; filename="{name}.html"',
+            # its inline scripts (plotly.js, the charts) by hash; nothing else inline runs
+            "Content-Security-Policy": content_security_policy(script_hashes(text)),
+        },
     )
 
 

@@ -31,6 +31,22 @@ ArchiveDep = Annotated[Archive, Depends(get_archive)]
 MAX_CELLS = 5_000_000
 
 
+#: First characters that make a spreadsheet read a cell as a formula (OWASP, CSV Injection).
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+
+
+def escape_formula(value: object) -> object:
+    """A text cell that a spreadsheet would run as a formula, prefixed with ``'``.
+
+    OWASP's CSV Injection guidance: a cell starting with ``=``, ``+``, ``-``, ``@``,
+    tab or carriage return gets a leading single quote (the CSV writer then quotes
+    the cell as RFC 4180 needs). Anything else, and missing values, pass unchanged.
+    """
+    if isinstance(value, str) and value.startswith(FORMULA_STARTS):
+        return "'" + value
+    return value
+
+
 def _header(name: str) -> str:
     unit = unit_of(name)
     return f"{name} [{unit}]" if unit else name
@@ -89,6 +105,9 @@ def window_csv(
         series = archive.read_result_series(run_id, columns=wanted_series, t0=t0, t1=t1)
         out = pd.merge(out, series, on=cat.T, how="outer", sort=True)
     out = out[[cat.T, *[n for n in names if n in out]]]
+    for col in out.columns:  # text from the log (extra.* columns): never a live formula
+        if not pd.api.types.is_numeric_dtype(out[col]) and not pd.api.types.is_bool_dtype(out[col]):
+            out[col] = out[col].map(escape_formula)
     # Floats as their shortest exact text (pandas' default): no digit is lost.
     text = out.rename(columns={c: _header(c) for c in out.columns}).to_csv(
         index=False, lineterminator="\n"

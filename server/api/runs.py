@@ -17,6 +17,7 @@ from pydantic import BaseModel, Field
 
 from analysis.archive.location import Location
 from analysis.archive.store import Archive
+from analysis.detect.limits import not_run
 from analysis.detect.pipeline import analyse_run, headline_kpis, load_analysis
 from analysis.display import display_event_peak, display_headline
 from analysis.profile import Thresholds
@@ -35,12 +36,13 @@ EVENT_CSV_COLUMNS = ("kind", "channel", "start_s", "end_s", "duration_s", "peak"
 ZIP_CHUNK = 1 << 20
 
 
-def _headline(archive: Archive, run_id: str) -> dict[str, Any] | None:
+def _headline(archive: Archive, run_id: str) -> tuple[dict[str, Any] | None, dict[str, str]]:
+    """Headline KPIs and, per KPI whose detector was skipped, the reason ("not run")."""
     stored = archive.read_results(run_id)
     if stored is None:
-        return None
+        return None, {}
     _, summary = stored
-    return headline_kpis(summary)
+    return headline_kpis(summary), not_run(summary)["kpis"]
 
 
 @router.get("")
@@ -62,8 +64,10 @@ def list_runs(
     out = []
     for run in reversed(runs):
         row = dict(run)
-        row["kpis"] = _headline(archive, run["run_id"]) if run.get("analysed") else None
-        row["kpis_shown"] = display_headline(row["kpis"])
+        kpis, skipped = _headline(archive, run["run_id"]) if run.get("analysed") else (None, {})
+        row["kpis"] = kpis
+        row["kpis_shown"] = display_headline(kpis)
+        row["kpis_not_run"] = skipped
         out.append(row)
     return {"runs": out, "count": len(out)}
 
@@ -71,7 +75,8 @@ def list_runs(
 @router.get("/{run_id}")
 def get_run(run_id: str, archive: ArchiveDep) -> dict[str, Any]:
     """One run: metadata (with the ingest report), its analysis (KPIs, events, skipped
-    detectors, thresholds used) and the headline KPIs.
+    detectors, thresholds used) and the headline KPIs; ``not_run`` names, per skipped
+    detector, its headline KPIs and event kinds with the reason (shown as "not run").
 
     Values are SI; ``headline_shown`` and each event's ``shown`` give them in the
     units the page shows (angles in degrees, ``analysis.display``)."""
@@ -86,6 +91,7 @@ def get_run(run_id: str, archive: ArchiveDep) -> dict[str, Any]:
         "analysis": analysis,
         "headline": headline,
         "headline_shown": display_headline(headline),
+        "not_run": not_run(analysis) if analysis is not None else None,
     }
 
 

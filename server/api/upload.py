@@ -25,6 +25,7 @@ from python_multipart.multipart import MultipartParser, parse_options_header
 from analysis.archive.store import Archive
 from analysis.detect.pipeline import analyse_run
 from analysis.ingest.channel_map import load_channel_map
+from analysis.ingest.read import MAX_TEXT_RATIO
 from analysis.ingest.stream import ingest_files
 from analysis.profile import load_profile
 from server.deps import ApiError, forget_run, get_archive, get_jobs, require_write
@@ -288,6 +289,8 @@ async def upload(request: Request, archive: ArchiveDep, jobs: JobsDep) -> dict[s
         shutil.rmtree(folder, ignore_errors=True)
         raise
     text = got.text
+    # The decompressed text of a gzip log is capped in proportion to the upload limit.
+    text_limit = MAX_TEXT_RATIO * int(request.app.state.max_upload_bytes)
     tags = tuple(t.strip() for t in text.get("tags", "").split(",") if t.strip())
     logs = sorted(got.logs)
 
@@ -307,10 +310,12 @@ async def upload(request: Request, archive: ArchiveDep, jobs: JobsDep) -> dict[s
             notes=text.get("notes", ""),
             date=text.get("date") or None,
             progress=ingest_progress,
+            max_text_bytes=text_limit,
         )
-        if outcome.duplicate_of:
+        if outcome.duplicate_of and archive.is_analysed(outcome.duplicate_of):
             progress(1.0, f"these files are already stored as run {outcome.duplicate_of}")
             return str(outcome.duplicate_of)
+        # a new run, or one stored earlier whose analysis never ran: analyse it now
 
         def analysis_progress(fraction: float, message: str) -> None:
             progress(INGEST_SHARE + (1 - INGEST_SHARE) * fraction, f"analysis: {message}")

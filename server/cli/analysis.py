@@ -42,6 +42,11 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     a.add_argument("--course", help="only runs of this course")
     a.add_argument("--controller", help="only runs of this controller version")
     a.add_argument(
+        "--pending",
+        action="store_true",
+        help="only runs never analysed (e.g. whose ingest was interrupted before analysis)",
+    )
+    a.add_argument(
         "--dask",
         metavar="ADDRESS",
         help="scheduler address of a Dask cluster whose workers see this archive (optional)",
@@ -112,8 +117,14 @@ def _analyse(args: argparse.Namespace) -> int:
 def _analyse_all(args: argparse.Namespace) -> int:
     archive = open_archive(data_dir(args))
     runs = archive.list_runs(course=args.course, controller=args.controller)
+    if args.pending:
+        runs = [r for r in runs if not r.get("analysed")]
     if not runs:
-        print("no stored run matches; nothing to analyse")
+        print(
+            "no stored run is waiting for analysis"
+            if args.pending
+            else "no stored run matches; nothing to analyse"
+        )
         return 0
     client = None
     if args.dask:

@@ -21,7 +21,7 @@ from analysis.archive.objstore import open_archive
 from analysis.errors import IngestError
 from analysis.ingest.map_template import FileHeader, template
 from analysis.ingest.read import inspect_file
-from analysis.ingest.stream import ingest_files
+from analysis.ingest.stream import DEFAULT_MAX_TEXT_BYTES, ingest_files
 from analysis.profile import load_profile
 from server.cli.main import add_data_option, data_dir
 
@@ -43,6 +43,14 @@ def register(subparsers: Any) -> None:
     p.add_argument("--notes", default="", help="free text")
     p.add_argument("--date", help="ISO 8601 start, for logs timed from boot")
     p.add_argument("--no-analyse", action="store_true", help="store only; do not analyse")
+    p.add_argument(
+        "--max-text-mb",
+        type=int,
+        default=DEFAULT_MAX_TEXT_BYTES >> 20,
+        metavar="N",
+        help="most log text read once decompressed, all files together, in MiB "
+        f"(default {DEFAULT_MAX_TEXT_BYTES >> 20})",
+    )
     p.add_argument("--json", action="store_true", help="print the outcome as JSON")
     p.add_argument("--quiet", action="store_true", help="print only the run id")
     add_data_option(p)
@@ -105,9 +113,23 @@ def _short_report(report: dict[str, Any]) -> list[str]:
         for s in r["skipped_lines"]["lines"][:5]:
             where = s.get("line", s.get("row"))
             lines.append(f"      skipped {s.get('file', '')}:{where}: {s['reason']}")
+        odd = [
+            f"{signal} " + ", ".join(f"{n} {k}" for k, n in counts.items() if n)
+            for signal, counts in (r.get("non_finite") or {}).items()
+        ]
+        if odd:
+            lines.append(f"      missing or non-finite values: {'; '.join(odd)}")
         if r["extra_columns"]:
             lines.append(f"      kept unmapped: {', '.join(r['extra_columns'])}")
+        for w in r.get("warnings", []):
+            lines.append(f"      warning: {w['message']}")
     return lines
+
+
+def _positive_mb(value: int, option: str) -> int:
+    if value <= 0:
+        raise IngestError(f"{option} must be a positive number of MiB, found {value}.")
+    return value << 20
 
 
 def cmd_ingest(args: argparse.Namespace) -> int:
@@ -125,9 +147,13 @@ def cmd_ingest(args: argparse.Namespace) -> int:
         notes=args.notes,
         date=args.date,
         progress=_Bar(not args.quiet and not args.json),
+        max_text_bytes=_positive_mb(args.max_text_mb, "--max-text-mb"),
     )
     analysed: str | None = None
-    if not args.no_analyse and outcome.duplicate_of is None:
+    # A stored run is analysed unless --no-analyse; that includes a run stored by an
+    # earlier ingest that was cut short before its analysis (re-ingesting finishes it).
+    pending = outcome.duplicate_of is None or not archive.is_analysed(outcome.run_id)
+    if not args.no_analyse and pending:
         try:
             pipeline = importlib.import_module("analysis.detect.pipeline")
         except ModuleNotFoundError as exc:
@@ -155,6 +181,8 @@ def cmd_ingest(args: argparse.Namespace) -> int:
         return 0
     if outcome.duplicate_of:
         print(f"{outcome.run_id}: these files were ingested before; nothing new stored.")
+        if analysed == "done":
+            print(f"{outcome.run_id}: it had not been analysed; analysed now.")
         return 0
     print(outcome.run_id)
     print("\n".join(_short_report(outcome.report)))

@@ -168,6 +168,11 @@ def _print_text(comp: Comparison, checks: list[GateCheck] | None) -> None:
         print(f"Alignment of {al['run']}: {al['reason']}")
     if comp.refusal:
         print(f"Per-segment comparison refused: {comp.refusal}")
+    for item in comp.not_run:
+        print(
+            f"Not run: detector {item['detector']} on run {item['run']} ({item['reason']}); "
+            f"its KPIs are left out, not counted as 0."
+        )
     print()
     print(_table(comp.kpis))
     if comp.same_course:

@@ -6,6 +6,7 @@ import argparse
 import ipaddress
 import sys
 from pathlib import Path
+from typing import Any
 
 from server.cli.main import add_data_option, data_dir
 
@@ -38,18 +39,39 @@ def open_host_caution(host: str, token: str | None) -> str:
     )
 
 
-def _serve(
-    data: str, host: str, port: int, token: str | None, max_upload_mb: int
-) -> int:  # pragma: no cover - runs until interrupted; the app is tested in-process
+def build_app(args: argparse.Namespace) -> Any:
+    """The dashboard app for ``serve``/``demo`` options: served hosts from ``--host`` and
+    ``--allow-host``, the token and the upload limit."""
+    from server.app import create_app
+    from server.security import served_hosts
+
+    return create_app(
+        data_dir(args),
+        token=args.token,
+        max_upload_mb=args.max_upload_mb,
+        allowed_hosts=served_hosts(args.host, args.allow_host),
+        analyse_pending=True,
+    )
+
+
+def _serve(args: argparse.Namespace) -> int:  # pragma: no cover - runs until interrupted
     import uvicorn
 
-    from server.app import create_app
-
-    app = create_app(data, token=token, max_upload_mb=max_upload_mb)
+    host, port = args.host, args.port
+    app = build_app(args)
     if not is_loopback(host):
-        print(open_host_caution(host, token), file=sys.stderr)
+        print(open_host_caution(host, args.token), file=sys.stderr)
+        if not args.allow_host:
+            print(
+                "Note: only the host names 127.0.0.1, localhost and the --host address are "
+                "answered; add --allow-host NAME for each name other machines use to reach "
+                "this one.",
+                file=sys.stderr,
+            )
     shown = f"[{host}]" if ":" in host else host
-    print(f"Outrigger dashboard on http://{shown}:{port}/  (archive: {data}; Ctrl+C stops)")
+    print(
+        f"Outrigger dashboard on http://{shown}:{port}/  (archive: {data_dir(args)}; Ctrl+C stops)"
+    )
     uvicorn.run(app, host=host, port=port, log_level="warning")
     return 0
 
@@ -62,6 +84,14 @@ def _add_server_options(parser: argparse.ArgumentParser) -> None:
         help=f"address to listen on (default {DEFAULT_HOST}: this machine only)",
     )
     parser.add_argument("--port", type=int, default=DEFAULT_PORT, help=f"default {DEFAULT_PORT}")
+    parser.add_argument(
+        "--allow-host",
+        action="append",
+        default=[],
+        metavar="NAME",
+        help="another host name the dashboard answers to, e.g. the machine's name on the "
+        "network (repeatable; 127.0.0.1, localhost and --host always are)",
+    )
     parser.add_argument(
         "--token", default=None, help="require 'Authorization: Bearer TOKEN' on write requests"
     )
@@ -76,7 +106,7 @@ def _add_server_options(parser: argparse.ArgumentParser) -> None:
 
 def cmd_serve(args: argparse.Namespace) -> int:
     """Serve the dashboard on the archive."""
-    return _serve(data_dir(args), args.host, args.port, args.token, args.max_upload_mb)
+    return _serve(args)
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
@@ -91,7 +121,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
     print(f"{len(run_ids)} demo run(s) ready: {', '.join(run_ids)}")
     if args.no_serve:
         return 0
-    return _serve(data, args.host, args.port, args.token, args.max_upload_mb)
+    return _serve(args)
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:

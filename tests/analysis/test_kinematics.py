@@ -11,6 +11,7 @@ from analysis.kinematics import (
     contact_midpoint_speed,
     contact_speeds,
     derivative,
+    lever_arm_rate,
     rim_speed,
     sample_weights,
     time_share,
@@ -74,7 +75,8 @@ def test_column_reads_missing_values_as_nan() -> None:
 
 def test_rim_speed_adds_pitch_rate_for_a_leg_referenced_encoder() -> None:
     # Worked number: r = 0.1 m, wheel 20 rad/s against its leg, leg pitching back at 2 rad/s:
-    # ground-referenced wheel rate 18 rad/s, rim speed 1.8 m/s (DESIGN.md, v = r (w + q)).
+    # ground-referenced wheel rate 18 rad/s, rim speed 1.8 m/s (v = r (w + q): angular rates
+    # of bodies in plane motion add, Meriam & Kraige, Engineering Mechanics: Dynamics, ch. 5).
     assert rim_speed(np.array([20.0]), np.array([-2.0]), 0.1)[0] == pytest.approx(1.8)
     # Ground-referenced encoder: v = r w (rolling without slip, common practice, no source).
     assert rim_speed(np.array([20.0]), None, 0.1)[0] == pytest.approx(2.0)
@@ -121,14 +123,59 @@ def test_pitch_swing_of_the_base_is_removed() -> None:
     t = np.arange(0, 2, 0.001)
     L = 0.4
     pitch = 0.1 * np.sin(2.0 * t)
+    q = 0.2 * np.cos(2.0 * t)  # the gyro's pitch rate, d/dt of the pitch above
     v_mid = contact_midpoint_speed(
-        t, np.zeros(t.size), np.zeros(t.size), 0.1, leg_length=np.full(t.size, L), pitch=pitch
+        t,
+        np.zeros(t.size),
+        np.zeros(t.size),
+        0.1,
+        leg_length=np.full(t.size, L),
+        pitch=pitch,
+        pitch_rate=q,
     )
     # Analytic: base at L sin(pitch) ahead of the axle, so with the base still the contacts move
-    # at -d/dt(L sin(pitch)) = -L cos(pitch) * 0.2 cos(2t). Tolerance: the one-sided end
-    # differences are first order, error ~ h * max|x''| / 2 = 1e-3 * 0.4 * 0.4 / 2 < 1e-4.
-    expected = -L * np.cos(pitch) * 0.2 * np.cos(2.0 * t)
-    assert v_mid == pytest.approx(expected, abs=1e-4)
+    # at -d/dt(L sin(pitch)) = -L cos(pitch) q (chain rule; L constant, so L' = 0 after the
+    # low-pass of a constant). Tolerance: floating-point only.
+    expected = -L * np.cos(pitch) * q
+    assert v_mid == pytest.approx(expected, abs=1e-9)
+
+
+def test_lever_arm_uses_the_gyro_not_the_derivative_of_the_attitude_estimate() -> None:
+    t = np.arange(0, 2, 0.0025)  # 400 Hz
+    L = 0.3
+    pitch = 0.1 * np.sin(2.0 * t)
+    q = 0.2 * np.cos(2.0 * t)
+    # An attitude estimate with 0.2 deg of white noise (the issue's upper figure)
+    noisy = pitch + np.deg2rad(0.2) * np.random.default_rng(5).standard_normal(t.size)
+    legs = np.full(t.size, L)
+    zeros = np.zeros(t.size)
+    clean = contact_midpoint_speed(t, zeros, zeros, 0.1, legs, pitch, pitch_rate=q)
+    measured = contact_midpoint_speed(t, zeros, zeros, 0.1, legs, noisy, pitch_rate=q)
+    # With the measured rate the noise enters only through L cos(pitch) q:
+    # 0.3 m * 0.2 rad/s * (1 - cos(0.0035)) and sin terms, far below 1e-3 m/s.
+    assert np.max(np.abs(measured - clean)) < 1e-3
+    # Reference: the numerical derivative of the noisy estimate is 0.1 m/s of noise or more
+    # (0.0035 rad * 0.3 m / (2 * 0.0025 s) * sqrt(2) / 2 ~ 0.15 m/s RMS), the slip floor.
+    numeric = -np.gradient(L * np.sin(noisy), t)
+    assert np.std(numeric - clean) > 0.1
+
+
+def test_lever_arm_without_gyro_falls_back_to_the_low_passed_estimate() -> None:
+    t = np.arange(0, 4, 0.0025)
+    L = 0.3 + 0.02 * np.sin(1.5 * t)  # the leg moves too
+    pitch = 0.1 * np.sin(2.0 * t)
+    noisy = pitch + np.deg2rad(0.2) * np.random.default_rng(6).standard_normal(t.size)
+    rate = lever_arm_rate(t, L, noisy, None)
+    # Product rule: d/dt(L sin(pitch)) = L' sin(pitch) + L cos(pitch) pitch'
+    exact = 0.03 * np.cos(1.5 * t) * np.sin(pitch) + L * np.cos(pitch) * 0.2 * np.cos(2.0 * t)
+    inner = (t > 0.25) & (t < 3.75)  # away from the zero-phase filter's ends
+    # The 10 Hz low-pass leaves about 0.01 m/s RMS of the 0.15 m/s raw derivative noise
+    # (white noise power scales with the band: sqrt(10 / 200) * ~0.15 * 10 Hz slope); 0.03
+    # bounds its peaks.
+    assert np.max(np.abs(rate[inner] - exact[inner])) < 0.03
+    with_gyro = lever_arm_rate(t, L, noisy, 0.2 * np.cos(2.0 * t))
+    # With the gyro the leg-rate term is the only derivative, of a low-passed length.
+    assert np.max(np.abs(with_gyro[inner] - exact[inner])) < 2e-3
 
 
 def test_no_leg_length_means_no_lever_arm() -> None:

@@ -178,7 +178,8 @@ def test_derived_series_are_served_like_frame_columns(client: TestClient, stocke
     ).json()
     assert set(body["signals"]) == {cat.ROLL, name}
     values = [v for v in body["signals"][name]["y"] if v is not None]
-    # Without motor constants the available torque is the peak torque (DESIGN.md);
+    # Without motor constants the available torque is the peak torque (by construction: the
+    # profile then gives only the peak rating, no torque-speed line);
     # the demo profile gives wheel_l peak_torque_nm = 3.0 (input, not computed here).
     assert min(values) == max(values) == pytest.approx(3.0)
 

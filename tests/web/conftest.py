@@ -1,12 +1,15 @@
 """Browser-test fixtures: the real app under uvicorn on 127.0.0.1 and Debian's Chromium.
 
 Never downloads a browser: the tests use /usr/bin/chromium and skip, saying so,
-when it is absent (CI installs it with `make chromium`).
+when it is absent (CI installs it with `make chromium`). Under ``CI=true`` an
+absent Chromium fails the run instead, so CI never passes with the browser
+tests skipped.
 """
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+import os
+from collections.abc import Iterator, Mapping
 from pathlib import Path
 from typing import Any
 
@@ -34,10 +37,33 @@ def live(tmp_path_factory: pytest.TempPathFactory) -> Iterator[LiveServer]:
         yield server
 
 
+def in_ci(environ: Mapping[str, str]) -> bool:
+    """True when ``CI`` is set to a true value (as CI services set it: ``CI=true``)."""
+    return environ.get("CI", "").strip().lower() in {"1", "true", "yes", "on"}
+
+
+def chromium_missing(path: Path, environ: Mapping[str, str]) -> tuple[str, str] | None:
+    """None when Chromium is at ``path``; else ("skip" or "fail", the message).
+
+    Outside CI a missing browser skips the browser tests, saying so; under CI
+    it fails them, so a run without the browser can never pass as green.
+    """
+    if path.exists():
+        return None
+    msg = f"{path} is absent: install Debian's chromium (make chromium) to run the browser tests"
+    if in_ci(environ):
+        return "fail", f"{msg}. CI is set, and CI may not pass with the browser tests skipped."
+    return "skip", msg
+
+
 @pytest.fixture(scope="session")
 def browser() -> Iterator[Any]:
-    if not CHROMIUM.exists():
-        pytest.skip(f"{CHROMIUM} is absent: install Debian's chromium (make chromium) to run it")
+    missing = chromium_missing(CHROMIUM, os.environ)
+    if missing is not None:
+        action, msg = missing
+        if action == "fail":
+            pytest.fail(msg, pytrace=False)
+        pytest.skip(msg)
     from playwright.sync_api import sync_playwright
 
     with sync_playwright() as p:

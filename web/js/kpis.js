@@ -36,8 +36,9 @@ export const HEADLINE = [
 ];
 
 // kpis: SI values by key (used when `shown` is absent); shown: {key: {value, unit}}
-// as the server converted them for display.
-export function badges(kpis, shown = null) {
+// as the server converted them for display; notRun: {key: reason} for KPIs whose
+// detector was skipped: they read "not run" (reason on hover), never 0 or a blank.
+export function badges(kpis, shown = null, notRun = null) {
   const box = el("div", { className: "badges" });
   if (!kpis) {
     box.append(el("span", { className: "badge muted" }, "not analysed"));
@@ -47,11 +48,17 @@ export function badges(kpis, shown = null) {
     const display = shown && shown[spec.key] ? shown[spec.key] : null;
     const value = display ? display.value : kpis[spec.key];
     const unit = display ? display.unit : "";
+    const reason = notRun && notRun[spec.key];
+    const text = reason ? "not run" : value === null || value === undefined ? "–" : spec.format(value, unit);
     const badge = el(
       "span",
-      { className: "badge", title: spec.title, dataset: { kpi: spec.key } },
+      {
+        className: reason ? "badge not-run" : "badge",
+        title: reason ? `${spec.title}: not run, the detector was skipped (${reason})` : spec.title,
+        dataset: { kpi: spec.key },
+      },
       el("span", { className: "badge-stripe", style: { background: eventColour(spec.kind) } }),
-      el("span", { className: "badge-value" }, value === null || value === undefined ? "–" : spec.format(value, unit)),
+      el("span", { className: "badge-value" }, text),
       el("span", { className: "badge-label" }, spec.label),
     );
     box.append(badge);

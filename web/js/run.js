@@ -39,15 +39,23 @@ function showHead(meta) {
 }
 
 // ----- KPIs ---------------------------------------------------------------------
-function showKpis(headline, shown, analysis) {
+function showKpis(headline, shown, analysis, notRun = null) {
   const strip = document.getElementById("kpis");
-  strip.replaceChildren(badges(headline, shown));
+  strip.replaceChildren(badges(headline, shown, notRun ? notRun.kpis : null));
   if (analysis) {
     const counts = analysis.event_counts || {};
+    const skippedKinds = (notRun && notRun.event_kinds) || {};
     const summary = el("div", { className: "event-counts" });
     for (const [kind, n] of Object.entries(counts)) {
+      // A skipped detector found nothing because it never looked: "not run", not 0.
+      const reason = skippedKinds[kind];
       summary.append(
-        el("span", { className: "count-chip" }, el("span", { className: "swatch", style: { background: eventColour(kind) } }), `${kindLabel(kind)} ${n}`),
+        el(
+          "span",
+          { className: reason ? "count-chip not-run" : "count-chip", title: reason ? `not run: ${reason}` : "", dataset: { kind } },
+          el("span", { className: "swatch", style: { background: eventColour(kind) } }),
+          `${kindLabel(kind)} ${reason ? "not run" : n}`,
+        ),
       );
     }
     strip.append(summary);
@@ -104,6 +112,14 @@ function showIngest(meta) {
   const report = meta.ingest_report ?? meta.report ?? null;
   const box = document.getElementById("ingest-report");
   box.replaceChildren(report ? valueView(report) : el("p", { className: "empty" }, "No ingest report stored."));
+  // Plausibility warnings (wrong unit, sign or time base suspected): shown above the charts.
+  const warnings = report ? Object.values(report).flatMap((stream) => (stream && stream.warnings) || []) : [];
+  const warnBox = document.getElementById("ingest-warnings");
+  warnBox.hidden = warnings.length === 0;
+  warnBox.replaceChildren(
+    el("strong", {}, `Ingest warnings (${warnings.length}): the run was stored, but check the channel map.`),
+    el("ul", {}, ...warnings.map((w) => el("li", { dataset: { check: w.check } }, w.message))),
+  );
 }
 
 // ----- events -------------------------------------------------------------------
@@ -315,7 +331,7 @@ async function load() {
     if (opening) timelines.setRange(timelines.clamp(opening));
   });
   showHead(run);
-  showKpis(data.headline, data.headline_shown, analysis);
+  showKpis(data.headline, data.headline_shown, analysis, data.not_run);
   // The event list (hundreds of rows on a long run) and the rest of the page are built
   // once the charts are drawn: building and laying them out first held the charts back.
   await drawn.catch(() => {});

@@ -40,7 +40,7 @@ function row(run) {
     el("td", {}, run.date ? run.date.replace("T", " ").replace("+00:00", "").replace("Z", "") : "–"),
     el("td", { className: "num" }, fmtDuration(run.duration_s)),
     el("td", { className: "num" }, run.distance_m === null || run.distance_m === undefined ? "–" : `${fmt(run.distance_m, 4)} m`),
-    el("td", {}, badges(run.kpis, run.kpis_shown)),
+    el("td", {}, badges(run.kpis, run.kpis_shown, run.kpis_not_run)),
   );
 }
 

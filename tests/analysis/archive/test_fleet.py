@@ -54,7 +54,7 @@ def test_empty_archive_reads_empty(tmp_path):
 
 
 def test_duckdb_queries_the_fleet_with_sql(tmp_path):
-    # DuckDB as the reference SQL engine named in DESIGN.md ("Scale").
+    # DuckDB, a general-purpose SQL engine from the package registry, as the reference reader.
     import duckdb
 
     write_fleet_rows(tmp_path, "run-a", META_A, _events(2), KPIS)

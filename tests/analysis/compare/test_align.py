@@ -39,7 +39,8 @@ def test_distance_by_wheel_odometry_adds_pitch_rate() -> None:
         }
     )
     # Differential drive, v = r (w_l + w_r) / 2 (Siegwart et al. 2011) with the leg's
-    # pitch rate added to leg-referenced encoders (DESIGN.md): 0.09 * 10.5 * 10 s = 9.45 m
+    # pitch rate added to leg-referenced encoders (angular rates of bodies in plane motion add,
+    # Meriam & Kraige, Engineering Mechanics: Dynamics, 2012, ch. 5): 0.09 * 10.5 * 10 s = 9.45 m
     assert course_distance(frame, profile())[-1] == pytest.approx(9.45, rel=1e-12)
 
 

@@ -1,8 +1,10 @@
-"""Tests of the demo-run generator (analysis/demo*.py) and the bundled demo_logs/.
+"""Tests of the demo-run generator (analysis/demo/) and the bundled demo_logs/.
 
 The generated frame is checked against the physics of DESIGN.md, reconstructed
 here independently from the logged signals, and against outside values (standard
-gravity, the steady-turn lean relation, pint as the unit reference).
+gravity, the steady-turn lean relation, pint as the unit reference). The physics
+checks use ideal sensors (the log carries the true states, rounded); the sensor
+model itself is tested in test_sensors.py.
 """
 
 from __future__ import annotations
@@ -19,6 +21,7 @@ import pytest
 from analysis import catalogue as cat
 from analysis.demo.bundle import DEMO_RUNS, demo_run, readme_text, runs_toml
 from analysis.demo.logs import (
+    SensorModel,
     channel_map_toml,
     demo_profile,
     foreign_tables,
@@ -36,12 +39,12 @@ TRACK = 0.44  # m, Marram-2 track width as written in demo_logs/marram-2.toml
 
 @pytest.fixture(scope="module")
 def run14():
-    return simulate_run("lean-ctl 1.4", seed=7)
+    return simulate_run("lean-ctl 1.4", seed=7, sensors=SensorModel.ideal())
 
 
 @pytest.fixture(scope="module")
 def run20():
-    return simulate_run("lean-ctl 2.0", seed=7)
+    return simulate_run("lean-ctl 2.0", seed=7, sensors=SensorModel.ideal())
 
 
 def _kinds(run):
@@ -81,9 +84,9 @@ def test_rim_speed_equals_contact_speed_outside_slip(run14):
         # stay 0.25 s clear of true slip (the numerical derivative spreads it)
         near = np.convolve(slipping, np.ones(101), mode="same") > 0
         calm = ~near
-        # Identity of DESIGN.md (differential drive, Siegwart et al. 2011). Noise budget:
-        # vel_x 0.01 m/s, d/dt(L sin(pitch)) from 0.005 deg pitch noise ~0.006 m/s, encoder
-        # 0.002 m/s -> RMS about 0.012 m/s; 0.02 leaves room, 0.1 is the slip-speed floor.
+        # Identity of DESIGN.md (differential drive, Siegwart et al. 2011). Ideal sensors:
+        # what is left is the files' rounding (0.001 m/s, 0.001 deg, 0.01 rpm) through the
+        # numerical derivative; 0.02 m/s RMS leaves room, 0.1 is the slip-speed floor.
         assert np.sqrt(np.mean(res[calm] ** 2)) < 0.02
         assert np.max(np.abs(res[calm])) < 0.1
 
@@ -116,14 +119,14 @@ def test_steady_turn_lean_and_lateral_acceleration(run20, segment, radius):
     lean = -np.mean(roll)  # leaning into a left turn is left side down: negative roll
     expected = np.arctan(np.mean(v**2) / (G0 * radius))
     # Steady-turn lean tan(phi) = v^2 / (g R) (Cossalter, Motorcycle Dynamics, Sec. 1.3);
-    # 0.3 deg covers the noise of the mean and the small roll disturbance.
+    # 0.3 deg covers the small roll disturbance the simulator adds.
     assert np.rad2deg(abs(lean - expected)) < 0.3
     # Rotate the body-frame specific force back to the heading frame (ISO 8855 signs):
     # f_y = cos(roll) a_y - sin(roll) (sin(pitch) a_x + cos(pitch) a_z); must equal v^2/R.
     ax, ay, az = (f[c].to_numpy()[m] for c in (cat.ACCEL_X, cat.ACCEL_Y, cat.ACCEL_Z))
     f_y = np.cos(roll) * ay - np.sin(roll) * (np.sin(pitch) * ax + np.cos(pitch) * az)
-    # Centripetal acceleration v^2/R (textbook kinematics); 0.05 m/s^2 is ~1 % of g,
-    # above the 0.04 m/s^2 sensor noise averaged over the steady part.
+    # Centripetal acceleration v^2/R (textbook kinematics); 0.05 m/s^2 is ~1 % of g and
+    # covers the roll disturbance's own lateral accelerations.
     assert np.mean(f_y) == pytest.approx(np.mean(v**2) / radius, abs=0.05)
 
 
@@ -131,7 +134,7 @@ def test_accel_z_reads_standard_gravity_at_rest(run14):
     f = run14.frame
     rest = f[cat.T].to_numpy() < 1.4  # the robot stands balancing for 1.5 s before driving
     # At rest and level the accelerometer reads +g0 on z: g0 = 9.80665 m/s² (ISO 80000-3).
-    # 0.01 m/s² covers noise (0.04/sqrt(280)) and the pitch wobble (g (1 - cos 0.5 deg)).
+    # 0.01 m/s² covers rounding (1e-4 g0) and the pitch wobble (g (1 - cos 0.5 deg)).
     assert f[cat.ACCEL_Z][rest].mean() == pytest.approx(G0, abs=0.01)
     assert abs(f[cat.ACCEL_X][rest].mean()) < 0.1
     assert abs(f[cat.ACCEL_Y][rest].mean()) < 0.02
@@ -223,7 +226,8 @@ def test_same_seed_same_run_and_shorter_runs_are_prefixes():
     b = simulate_run("lean-ctl 1.4", seed=3, duration_s=4.0)
     pd.testing.assert_frame_equal(a.frame, b.frame)
     c = simulate_run("lean-ctl 1.4", seed=4, duration_s=4.0)
-    assert not np.allclose(a.frame[cat.ROLL], c.frame[cat.ROLL])
+    m = min(len(a.frame), len(c.frame))  # dropped rows differ between seeds
+    assert not np.allclose(a.frame[cat.ROLL][:m], c.frame[cat.ROLL][:m])
     longer = simulate_run("lean-ctl 1.4", seed=3, duration_s=6.0)
     n = len(a.frame) - 3  # the last samples use central differences
     pd.testing.assert_frame_equal(a.frame.iloc[:n], longer.frame.iloc[:n])

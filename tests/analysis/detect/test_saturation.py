@@ -76,7 +76,8 @@ def test_torque_speed_line_is_capped_at_the_peak() -> None:
     # Line 12 - 0.25 w (Hughes & Drury, ch. 3) meets the 8 N*m cap at w = 16 rad/s.
     assert torque_available(np.array([0.0, 16.0, 20.0]), act) == pytest.approx([8.0, 8.0, 7.0])
     plain = replace(act, motor=None)
-    # Without motor constants the drive gives its peak at any speed (DESIGN.md).
+    # Without motor constants the drive gives its peak at any speed (by construction: the
+    # profile then holds only the peak rating, no torque-speed line).
     assert torque_available(np.array([0.0, 500.0]), plain) == pytest.approx([8.0, 8.0])
 
 

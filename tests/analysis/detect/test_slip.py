@@ -91,8 +91,8 @@ def test_slip_ratio_worked_numbers() -> None:
 
 def test_slip_ratio_floor_at_zero_contact_speed() -> None:
     kappa = slip_ratio(np.array([0.05, 0.0]), np.array([0.0, 0.0]), 0.5)
-    # Floor of the denominator (ours, DESIGN.md): 0.05 / max(0, 0.5) = 0.1, finite where the
-    # plain SAE ratio would divide by zero.
+    # Floor of the denominator (by construction, our own, see slip_ratio): 0.05 / max(0, 0.5)
+    # = 0.1, finite where the plain SAE ratio would divide by zero.
     assert kappa == pytest.approx([0.1, 0.0])
 
 
@@ -197,7 +197,8 @@ def test_low_speed_wobble_below_the_slip_speed_floor() -> None:
     frame["wheel_l.vel"] += 0.3  # rim 0.08 m/s against 0.05 m/s: plain SAE ratio 0.6
     res = detect_slip(frame, _profile())
     assert res.events == []
-    # Floor: 0.03 / max(0.05, 0.5) = 0.06 (DESIGN.md; the plain ratio would flag 0.6).
+    # Floor: 0.03 / max(0.05, 0.5) = 0.06 (by construction, the floor of slip_ratio; the plain
+    # SAE ratio would flag 0.6).
     assert res.series["wheel_l.slip_ratio"].to_numpy() == pytest.approx(0.06, abs=1e-9)
 
 
@@ -207,8 +208,11 @@ def test_pitch_rate_correction_of_a_leg_referenced_encoder() -> None:
     ground = detect_slip(frame, _profile("ground"))
     assert leg.events == []
     diff = leg.series["wheel_l.rim_speed"] - ground.series["wheel_l.rim_speed"]
-    # DESIGN.md: v_rim = r (w_joint + pitch_rate) for a leg-referenced encoder, r w_joint for a
-    # ground-referenced one, so the two differ by r * pitch_rate exactly.
+    # Plane rigid-body kinematics (Meriam & Kraige, Engineering Mechanics: Dynamics, 7th ed.,
+    # 2012, ch. 5): the wheel's rate over the ground is the leg's pitch rate plus its rate
+    # against the leg, and a rolling rim moves at r times that rate; so v_rim = r (w_joint +
+    # pitch_rate) for a leg-referenced encoder and r w_joint for a ground-referenced one, and
+    # the two differ by r * pitch_rate exactly.
     assert diff.to_numpy() == pytest.approx(R * frame["pitch_rate"].to_numpy(), abs=1e-12)
     # Read as ground-referenced, the 0.2 * 2 pi * 0.1 = 0.126 m/s pitch swing looks like slip.
     assert np.abs(ground.series["wheel_l.slip_speed"]).max() > 0.1
