@@ -29,7 +29,7 @@ from fastapi.staticfiles import StaticFiles
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from analysis import __version__
-from analysis.archive.store import Archive
+from analysis.archive.objstore import open_archive
 from analysis.errors import ArchiveError, OutriggerError
 from server.api import configs as routes_configs
 from server.api import export as routes_export
@@ -162,7 +162,7 @@ def create_app(
         raise ArchiveError(f"--max-upload-mb must be a positive number, found {max_upload_mb}.")
     if cache_mb < 0:
         raise ArchiveError(f"The chart cache size must be 0 (off) or more MiB, found {cache_mb}.")
-    archive = Archive(Path(data_dir))
+    archive = open_archive(data_dir)
     web = Path(web_dir) if web_dir is not None else WEB_DIR
     if not (web / "index.html").is_file():
         raise ArchiveError(f"The dashboard pages were not found in {web} (no index.html).")
@@ -170,9 +170,12 @@ def create_app(
     optional = _load_optional(OPTIONAL_ROUTERS)
     # Under the archive's staging folder, named after this process: a server killed
     # mid-upload leaves it there, and the next Archive opened on this folder removes it.
-    upload_root = Path(
-        tempfile.mkdtemp(prefix=f"{os.getpid()}-upload-", dir=archive.root / "staging")
-    )
+    if archive.is_local:
+        upload_root = Path(
+            tempfile.mkdtemp(prefix=f"{os.getpid()}-upload-", dir=archive.root / "staging")
+        )
+    else:  # object store: a local staging folder, likewise removed once its process is gone
+        upload_root = archive.new_staging()
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
@@ -192,7 +195,8 @@ def create_app(
     app.state.archive = archive
     app.state.token = token or None
     places = {str(upload_root): "the upload", str(archive.root): "the archive"}
-    places[str(archive.root.resolve())] = "the archive"
+    if archive.is_local:
+        places[str(archive.root.resolve())] = "the archive"
 
     def scrub(message: str) -> str:
         return scrub_paths(message, places)

@@ -35,10 +35,12 @@ from collections import OrderedDict
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
 from analysis import catalogue as cat
+from analysis.archive.location import Location
 from analysis.archive.overview_store import ensure_overview, overview_fingerprint, read_overview
 from analysis.archive.store import Archive
 from analysis.overview import DERIVED, FRAME, RunOverview
@@ -56,10 +58,12 @@ MAX_OVERVIEWS = 512
 #: columns take about 0.4 GB). [MiB]
 DEFAULT_CACHE_MB = 1024
 
-Fingerprint = tuple[tuple[int, int, int] | None, ...]
+Fingerprint = tuple[tuple[Any, ...] | None, ...]
 
 
-def _stat(path: Path) -> tuple[int, int, int] | None:
+def _stat(path: Path | Location) -> tuple[Any, ...] | None:
+    if isinstance(path, Location):  # an object-store archive (see Location.stamp)
+        return path.stamp()
     try:
         st = os.stat(path)
     except OSError:

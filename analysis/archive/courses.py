@@ -11,23 +11,22 @@ from __future__ import annotations
 import math
 import os
 import re
-import secrets
 import tomllib
 from collections.abc import Sequence
-from pathlib import Path
 
+from analysis.archive.location import Location
 from analysis.errors import CompareError
 
 COURSE_NAME_RE = re.compile(r"^[A-Za-z0-9_-]{1,80}$")
 
 
-def _path(root: str | os.PathLike[str], course: str) -> Path:
+def _path(root: str | os.PathLike[str] | Location, course: str) -> Location:
     if not COURSE_NAME_RE.match(course):
         raise CompareError(
             f"Course name {course!r} cannot name a marks file: use letters, digits, '_' and '-' "
             f"(1-80 characters) in the course name to store marks for it."
         )
-    return Path(root) / "configs" / "courses" / f"{course}.toml"
+    return Location.of(root) / "configs" / "courses" / f"{course}.toml"
 
 
 def check_marks(marks_m: Sequence[float]) -> list[float]:
@@ -42,18 +41,17 @@ def check_marks(marks_m: Sequence[float]) -> list[float]:
     return marks
 
 
-def save_course_marks(root: str | os.PathLike[str], course: str, marks_m: Sequence[float]) -> Path:
-    """Store (or replace) the distance marks of a course; return the file's path."""
+def save_course_marks(
+    root: str | os.PathLike[str] | Location, course: str, marks_m: Sequence[float]
+) -> Location:
+    """Store (or replace) the distance marks of a course; return the file's location."""
     marks = check_marks(marks_m)
     path = _path(root, course)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.stem}.{secrets.token_hex(3)}.tmp")
-    tmp.write_text(f"# distance marks of course {course} [m]\nmarks_m = {marks}\n", "utf-8")
-    os.replace(tmp, path)
+    path.write_text(f"# distance marks of course {course} [m]\nmarks_m = {marks}\n")
     return path
 
 
-def course_marks(root: str | os.PathLike[str], course: str | None) -> list[float] | None:
+def course_marks(root: str | os.PathLike[str] | Location, course: str | None) -> list[float] | None:
     """The stored marks of a course, or None when none are stored (or no course)."""
     if not course or not COURSE_NAME_RE.match(course):
         return None
@@ -67,7 +65,7 @@ def course_marks(root: str | os.PathLike[str], course: str | None) -> list[float
     return check_marks(data.get("marks_m", []))
 
 
-def delete_course_marks(root: str | os.PathLike[str], course: str) -> bool:
+def delete_course_marks(root: str | os.PathLike[str] | Location, course: str) -> bool:
     """Forget a course's marks; True if there were any."""
     path = _path(root, course)
     if path.is_file():
@@ -79,8 +77,9 @@ def delete_course_marks(root: str | os.PathLike[str], course: str) -> bool:
 # --- the start line of a closed loop --------------------------------------------------
 
 
-def _start_path(root: str | os.PathLike[str], course: str) -> Path:
-    return _path(root, course).with_name(f"{course}.start.toml")
+def _start_path(root: str | os.PathLike[str] | Location, course: str) -> Location:
+    _path(root, course)  # checks the course name
+    return Location.of(root) / "configs" / "courses" / f"{course}.start.toml"
 
 
 def check_start_line(start_m: float) -> float:
@@ -94,7 +93,9 @@ def check_start_line(start_m: float) -> float:
     return value
 
 
-def save_start_line(root: str | os.PathLike[str], course: str, start_m: float) -> Path:
+def save_start_line(
+    root: str | os.PathLike[str] | Location, course: str, start_m: float
+) -> Location:
     """Store (or replace) the start line of a loop course; return the file's path.
 
     The start line is the distance from where the course's runs start to the line
@@ -102,17 +103,13 @@ def save_start_line(root: str | os.PathLike[str], course: str, start_m: float) -
     """
     value = check_start_line(start_m)
     path = _start_path(root, course)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.stem}.{secrets.token_hex(3)}.tmp")
-    tmp.write_text(
-        f"# start line of course {course}: metres from a run's start [m]\nlap_start_m = {value}\n",
-        "utf-8",
+    path.write_text(
+        f"# start line of course {course}: metres from a run's start [m]\nlap_start_m = {value}\n"
     )
-    os.replace(tmp, path)
     return path
 
 
-def course_start_line(root: str | os.PathLike[str], course: str | None) -> float | None:
+def course_start_line(root: str | os.PathLike[str] | Location, course: str | None) -> float | None:
     """The stored start line of a course, or None when none is stored (or no course). [m]"""
     if not course or not COURSE_NAME_RE.match(course):
         return None
@@ -130,7 +127,7 @@ def course_start_line(root: str | os.PathLike[str], course: str | None) -> float
     return check_start_line(data["lap_start_m"])
 
 
-def delete_start_line(root: str | os.PathLike[str], course: str) -> bool:
+def delete_start_line(root: str | os.PathLike[str] | Location, course: str) -> bool:
     """Forget a course's start line; True if there was one."""
     path = _start_path(root, course)
     if path.is_file():

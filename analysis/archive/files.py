@@ -157,8 +157,12 @@ class FrameWriter:
         self._writer.close()
 
 
-def write_frame(frame: pd.DataFrame, path: Path) -> None:
-    """DataFrame to Parquet; object columns of dicts/lists are stored as JSON text."""
+def write_frame(frame: pd.DataFrame, path: Path | str, filesystem: Any = None) -> None:
+    """DataFrame to Parquet; object columns of dicts/lists are stored as JSON text.
+
+    ``filesystem`` (pyarrow's) writes straight into an object store, where one
+    upload appears whole when complete.
+    """
     frame = frame.copy()
     json_cols = []
     for col in frame.columns:
@@ -172,13 +176,17 @@ def write_frame(frame: pd.DataFrame, path: Path) -> None:
     table = table.replace_schema_metadata(
         {**(table.schema.metadata or {}), _JSON_COLUMNS_KEY: json.dumps(json_cols).encode()}
     )
-    pq.write_table(table, path, compression="zstd")
+    pq.write_table(table, path, compression="zstd", filesystem=filesystem)
 
 
 def read_frame(
-    path: Path, columns: list[str] | None = None, filters: list[Any] | None = None
+    path: Path | str,
+    columns: list[str] | None = None,
+    filters: list[Any] | None = None,
+    filesystem: Any = None,
 ) -> pd.DataFrame:
-    table = pq.read_table(path, columns=columns, filters=filters)
+    """Parquet written by :func:`write_frame` back to a DataFrame (``filesystem``: pyarrow's)."""
+    table = pq.read_table(path, columns=columns, filters=filters, filesystem=filesystem)
     meta = table.schema.metadata or {}
     frame = table.to_pandas()
     with suppress(ValueError, TypeError):

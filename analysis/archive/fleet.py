@@ -18,16 +18,16 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import secrets
-import shutil
 from collections.abc import Mapping
-from pathlib import Path
+from contextlib import suppress
 from typing import Any
 
 import pandas as pd
 import pyarrow as pa
 import pyarrow.dataset as ds
-import pyarrow.parquet as pq
+import pyarrow.fs as pafs
+
+from analysis.archive.location import Location
 
 FLEET_DIR = "fleet"
 TABLES = ("events", "kpis")
@@ -70,29 +70,29 @@ def flatten_kpis(kpis: Mapping[str, Any]) -> list[dict[str, Any]]:
     return rows
 
 
-def _partition(root: Path, table: str, run_id: str) -> Path:
-    return root / FLEET_DIR / table / f"run_id={run_id}"
+Root = str | os.PathLike[str] | Location
 
 
-def _write_atomic(frame: pd.DataFrame, folder: Path, stamp: str | None) -> None:
-    """Replace ``folder/part-0.parquet`` by a new file, via a temporary name."""
-    folder.mkdir(parents=True, exist_ok=True)
-    tmp = folder / f".part-0.{secrets.token_hex(4)}.tmp"
+def _partition(root: Root, table: str, run_id: str) -> Location:
+    return Location.of(root) / FLEET_DIR / table / f"run_id={run_id}"
+
+
+def _write_atomic(frame: pd.DataFrame, folder: Location, stamp: str | None) -> None:
+    """Replace ``folder/part-0.parquet`` whole (a renamed temporary file, or one upload)."""
     table = pa.Table.from_pandas(frame, preserve_index=False)
     if stamp is not None:
         table = table.replace_schema_metadata(
             {**(table.schema.metadata or {}), STAMP_KEY: stamp.encode()}
         )
-    pq.write_table(table, tmp, compression="zstd")
-    os.replace(tmp, folder / "part-0.parquet")
+    (folder / "part-0.parquet").write_parquet(table)
 
 
-def fleet_stamp(root: str | os.PathLike[str], run_id: str) -> str | None:
+def fleet_stamp(root: Root, run_id: str) -> str | None:
     """The results stamp both of a run's partitions carry; None if missing or unequal."""
     stamps = set()
     for table in TABLES:
         try:
-            meta = pq.read_schema(_partition(Path(root), table, run_id) / "part-0.parquet").metadata
+            meta = (_partition(root, table, run_id) / "part-0.parquet").read_schema().metadata
         except (OSError, pa.ArrowInvalid):
             return None
         stamps.add((meta or {}).get(STAMP_KEY))
@@ -100,18 +100,18 @@ def fleet_stamp(root: str | os.PathLike[str], run_id: str) -> str | None:
     return found.decode() if found else None
 
 
-def fleet_run_ids(root: str | os.PathLike[str]) -> set[str]:
+def fleet_run_ids(root: Root) -> set[str]:
     """Runs that have rows in any fleet table."""
     ids = set()
     for table in TABLES:
-        folder = Path(root) / FLEET_DIR / table
-        if folder.is_dir():
-            ids |= {p.name.split("=", 1)[1] for p in folder.glob("run_id=*") if p.is_dir()}
+        for info in (Location.of(root) / FLEET_DIR / table).listdir():
+            if info.type == pafs.FileType.Directory and info.base_name.startswith("run_id="):
+                ids.add(info.base_name.split("=", 1)[1])
     return ids
 
 
 def write_fleet_rows(
-    root: str | os.PathLike[str],
+    root: Root,
     run_id: str,
     meta: Mapping[str, Any],
     events: pd.DataFrame,
@@ -122,8 +122,8 @@ def write_fleet_rows(
 
     Parameters
     ----------
-    root : path
-        Archive root.
+    root : path or Location
+        Archive root (a folder, an ``s3://`` URI or a :class:`Location`).
     run_id : str
         The run.
     meta : mapping
@@ -135,7 +135,6 @@ def write_fleet_rows(
     stamp : str, optional
         :func:`results_stamp` of the summary these rows come from.
     """
-    base = Path(root)
     run_cols = {c: meta.get(c) for c in RUN_COLUMNS}
     ev = events.copy()
     for c, v in run_cols.items():
@@ -144,17 +143,18 @@ def write_fleet_rows(
     kp["value"] = kp["value"].astype(float)
     for c, v in run_cols.items():
         kp[c] = pd.Series([v] * len(kp), dtype="string")
-    _write_atomic(ev, _partition(base, "events", run_id), stamp)
-    _write_atomic(kp, _partition(base, "kpis", run_id), stamp)
+    _write_atomic(ev, _partition(root, "events", run_id), stamp)
+    _write_atomic(kp, _partition(root, "kpis", run_id), stamp)
 
 
-def delete_fleet_rows(root: str | os.PathLike[str], run_id: str) -> None:
+def delete_fleet_rows(root: Root, run_id: str) -> None:
     """Remove one run's rows from the fleet tables (nothing if it has none)."""
     for table in TABLES:
-        shutil.rmtree(_partition(Path(root), table, run_id), ignore_errors=True)
+        with suppress(OSError):  # as before: rows left behind are removed by sync_fleet
+            _partition(root, table, run_id).rmtree()
 
 
-def read_fleet(root: str | os.PathLike[str], table: str) -> pd.DataFrame:
+def read_fleet(root: Root, table: str) -> pd.DataFrame:
     """Read one fleet table of all runs (column ``run_id`` from the partition names).
 
     Parameters
@@ -163,14 +163,19 @@ def read_fleet(root: str | os.PathLike[str], table: str) -> pd.DataFrame:
     """
     if table not in TABLES:
         raise ValueError(f"Fleet table must be one of {', '.join(TABLES)}, found {table!r}.")
-    folder = Path(root) / FLEET_DIR / table
-    files = sorted(folder.glob("run_id=*/part-0.parquet"))
+    folder = Location.of(root) / FLEET_DIR / table
+    files = sorted(
+        i.path
+        for i in folder.walk()
+        if i.base_name == "part-0.parquet" and i.path.split("/")[-2].startswith("run_id=")
+    )
     if not files:
         return pd.DataFrame()
     dataset = ds.dataset(
-        [str(f) for f in files],
+        files,
+        filesystem=folder.fs,
         format="parquet",
         partitioning="hive",
-        partition_base_dir=str(folder),
+        partition_base_dir=folder.path,
     )
     return dataset.to_table().to_pandas()

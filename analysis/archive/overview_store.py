@@ -34,6 +34,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from analysis.archive.location import Location
 from analysis.overview import DERIVED, FRAME, RunOverview, SignalOverview, build_overview
 
 
@@ -44,7 +45,9 @@ class RunSource(Protocol):
     protocol keeps the store module free of an import of ``store`` (no cycle).
     """
 
-    root: Path
+    root: Any  # a Path, or a Location for an object-store archive
+
+    def series_location(self, run_id: str) -> Any: ...
 
     def get_meta(self, run_id: str) -> dict[str, Any]: ...
 
@@ -64,7 +67,12 @@ _SERIES = "results/series.parquet"
 Fingerprint = tuple[tuple[Any, ...], ...]
 
 
-def _stat(key: str, path: Path) -> tuple[Any, ...]:
+def _stat(key: str, path: Path | Location | None) -> tuple[Any, ...]:
+    if path is None:
+        return (key, None)
+    if isinstance(path, Location):  # object store: the key names the results version
+        stamp = path.stamp()
+        return (key, None) if stamp is None else (key, path.path, *stamp)
     try:
         st = os.stat(path)
     except OSError:
@@ -73,7 +81,7 @@ def _stat(key: str, path: Path) -> tuple[Any, ...]:
 
 
 def overview_fingerprint(
-    archive: RunSource, run_id: str, series_path: Path | None = None
+    archive: RunSource, run_id: str, series_path: Path | Location | None = None
 ) -> Fingerprint:
     """What changes on disk when the data under the run's charts changes.
 
@@ -92,7 +100,9 @@ def overview_fingerprint(
     run_dir = archive.root / "runs" / run_id
     streams = sorted(str(s["path"]) for s in meta.get("streams", []) if s.get("path"))
     stamps = [_stat(p, run_dir / p) for p in streams]
-    stamps.append(_stat(_SERIES, series_path or run_dir / _SERIES))
+    if series_path is None and not isinstance(run_dir, Location):
+        series_path = run_dir / _SERIES
+    stamps.append(_stat(_SERIES, series_path or archive.series_location(run_id)))
     return tuple(stamps)
 
 
@@ -133,7 +143,7 @@ def write_overview(
     overview: RunOverview,
     fingerprint: Fingerprint,
     folder: Path | None = None,
-) -> Path:
+) -> Path | Location:
     """Write the overview atomically; return its path.
 
     Parameters
@@ -151,6 +161,10 @@ def write_overview(
         Write into this folder (staging) instead of the run's folder.
     """
     target = (folder or archive.root / "runs" / run_id) / OVERVIEW_FILE
+    if isinstance(target, Location):  # object store: one upload, whole or nothing
+        target.write_parquet(_to_table(overview, fingerprint))
+        overview.fingerprint = fingerprint
+        return target
     tmp = target.with_name(f".{OVERVIEW_FILE}.{secrets.token_hex(4)}.tmp")
     try:
         pq.write_table(_to_table(overview, fingerprint), tmp, compression="zstd")
@@ -189,7 +203,9 @@ def read_overview(archive: RunSource, run_id: str) -> RunOverview | None:
     if not path.is_file():
         return None
     try:
-        file = pq.ParquetFile(path)
+        file = pq.ParquetFile(
+            path.fs.open_input_file(path.path) if isinstance(path, Location) else path
+        )
         meta = json.loads((file.schema_arrow.metadata or {})[_META_KEY])
         if meta.get("format") != OVERVIEW_FORMAT:
             return None
@@ -224,7 +240,7 @@ def ensure_overview(archive: RunSource, run_id: str) -> RunOverview:
     fingerprint = overview_fingerprint(archive, run_id)  # before reading: a change is seen
     frame = archive.load_frame(run_id)
     series = None
-    if (archive.root / "runs" / run_id / _SERIES).is_file():
+    if archive.series_location(run_id) is not None:
         series = archive.read_result_series(run_id)
     overview = build_overview(frame, series)
     try:

@@ -112,9 +112,19 @@ class Archive:
     """A run archive rooted at a folder (created if absent).
 
     Raises :class:`ArchiveError` if the folder cannot be created or written.
+    :class:`analysis.archive.objstore.ObjectArchive` is the same on an object
+    store; open either with :func:`analysis.archive.objstore.open_archive`.
     """
 
+    #: False for the object-store archive (no SQLite catalog, no renames).
+    is_local = True
+
     def __init__(self, root: str | os.PathLike[str]) -> None:
+        if "://" in str(root):
+            raise ArchiveError(
+                f"{root} is a URI, not a folder; open it with "
+                f"analysis.archive.objstore.open_archive (s3://BUCKET/PREFIX is supported)."
+            )
         self.root = Path(root)
         try:
             for sub in ("runs", "staging", "configs/profiles", "configs/maps"):
@@ -519,13 +529,11 @@ class Archive:
                 filters.append((catalogue.T, ">=", lo))
             if t1 is not None:
                 filters.append((catalogue.T, "<=", t1))
-            if cache is not None:
+            if cache is not None and self.is_local:
                 path = run_dir / info[stream]["path"]
                 return cache.read(path, [catalogue.T, *dict.fromkeys(cols)], lo, t1)
-            return pq.read_table(
-                run_dir / info[stream]["path"],
-                columns=[catalogue.T, *dict.fromkeys(cols)],
-                filters=filters or None,
+            return self._read_stream(
+                run_dir, info[stream]["path"], [catalogue.T, *dict.fromkeys(cols)], filters or None
             )
 
         base_tab = read(base["name"], [s for _, s in by_stream.get(base["name"], [])], t0)
@@ -546,7 +554,18 @@ class Archive:
         frame = pa.table({k: v for k, v in out.items()}).to_pandas()
         return frame[[catalogue.T, *[c for c in wanted]]]
 
+    def _read_stream(
+        self, run_dir: Path, rel: str, columns: list[str], filters: list[Any] | None
+    ) -> pa.Table:
+        """Columns of one stream file of a run (the object-store archive reads its own way)."""
+        return pq.read_table(run_dir / rel, columns=columns, filters=filters)
+
     # --- results ----------------------------------------------------------------------
+
+    def series_location(self, run_id: str) -> Path | None:
+        """Where the run's current derived series are; None before the first analysis."""
+        path = self._run_dir(run_id) / "results" / "series.parquet"
+        return path if path.is_file() else None
 
     def write_results(
         self,

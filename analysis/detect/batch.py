@@ -4,8 +4,10 @@ The analysis of one run is a pure function of that run and the thresholds
 (:func:`analysis.detect.pipeline.analyse_run`), and each run's results are replaced
 atomically in its own folder, so re-analysing a fleet after a detector change
 is a map over run ids. With a ``dask.distributed`` client the map runs on an
-existing cluster (whose workers must see the same archive folder); without
-one it runs here, one run after another.
+existing cluster, whose workers must see the same archive folder or, for an
+archive on an object store (``s3://BUCKET/PREFIX``), only the store itself (with
+the AWS_* variables set on every worker); without one it runs here, one run
+after another.
 """
 
 from __future__ import annotations
@@ -15,7 +17,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from analysis.archive.store import Archive
+from analysis.archive.objstore import open_archive
 from analysis.detect.pipeline import analyse_run
 from analysis.errors import OutriggerError
 
@@ -40,7 +42,7 @@ def analyse_one(root: str, run_id: str) -> BatchOutcome:
         The run.
     """
     try:
-        result = analyse_run(Archive(root), run_id)
+        result = analyse_run(open_archive(root), run_id)
     except OutriggerError as exc:
         return BatchOutcome(run_id, None, str(exc))
     return BatchOutcome(run_id, len(result.events))

@@ -6,9 +6,9 @@ import io
 import json
 import os
 import zipfile
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from datetime import UTC, datetime, timedelta
-from pathlib import Path
+from pathlib import Path, PurePosixPath
 from typing import Annotated, Any
 
 import pandas as pd
@@ -16,6 +16,7 @@ from fastapi import APIRouter, Body, Depends, Query, Request
 from fastapi.responses import Response, StreamingResponse
 from pydantic import BaseModel, Field
 
+from analysis.archive.location import Location
 from analysis.archive.store import Archive
 from analysis.detect.limits import not_run
 from analysis.detect.pipeline import analyse_run, headline_kpis, load_analysis
@@ -263,13 +264,15 @@ class _Sink(io.RawIOBase):
         return out
 
 
-def _zip_stream(files: list[Path], run_id: str) -> Iterator[bytes]:
-    base = Path(os.path.commonpath([f.parent for f in files])) if files else Path()
+def _zip_stream(files: Sequence[Path | Location], run_id: str) -> Iterator[bytes]:
+    # Local files or objects of an object-store archive: names relative to the run's folder.
+    keys = [PurePosixPath(f.path if isinstance(f, Location) else f.as_posix()) for f in files]
+    base = PurePosixPath(os.path.commonpath([k.parent for k in keys])) if keys else None
     sink = _Sink()
     # Parquet is already compressed: store, do not deflate again.
     with zipfile.ZipFile(sink, "w", compression=zipfile.ZIP_STORED) as zf:
-        for path in files:
-            arcname = f"{run_id}/{path.relative_to(base).as_posix()}"
+        for path, key in zip(files, keys, strict=True):
+            arcname = f"{run_id}/{key.relative_to(base or key.parent).as_posix()}"
             with path.open("rb") as src, zf.open(arcname, "w", force_zip64=True) as dst:
                 while chunk := src.read(ZIP_CHUNK):
                     dst.write(chunk)

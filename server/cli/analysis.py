@@ -8,7 +8,7 @@ import sys
 from typing import Any
 
 from analysis.archive.fleet import read_fleet
-from analysis.archive.store import Archive
+from analysis.archive.objstore import open_archive
 from analysis.catalogue import EVENT_KINDS
 from analysis.detect.batch import BatchOutcome, reanalyse
 from analysis.detect.limits import evaluate_limits, load_limits
@@ -100,7 +100,7 @@ def _print_summary(result: dict[str, Any]) -> None:
 
 
 def _analyse(args: argparse.Namespace) -> int:
-    archive = Archive(data_dir(args))
+    archive = open_archive(data_dir(args))
     archive.get_meta(args.run)  # RunNotFoundError before any work
     profile = archive.load_profile(args.run)
     thresholds = (
@@ -116,7 +116,7 @@ def _analyse(args: argparse.Namespace) -> int:
 
 
 def _analyse_all(args: argparse.Namespace) -> int:
-    archive = Archive(data_dir(args))
+    archive = open_archive(data_dir(args))
     runs = archive.list_runs(course=args.course, controller=args.controller)
     if args.pending:
         runs = [r for r in runs if not r.get("analysed")]
@@ -152,7 +152,7 @@ def _analyse_all(args: argparse.Namespace) -> int:
 
 
 def _fleet(args: argparse.Namespace) -> int:
-    archive = Archive(data_dir(args))
+    archive = open_archive(data_dir(args))
     repaired = sync_fleet(archive)  # rows an interrupted analysis left stale
     if repaired:
         print(f"fleet rows brought up to date for {len(repaired)} run(s)", file=sys.stderr)
@@ -181,7 +181,7 @@ def _fleet(args: argparse.Namespace) -> int:
 
 def _check(args: argparse.Namespace) -> int:
     limits = load_limits(args.limits)
-    archive = Archive(data_dir(args))
+    archive = open_archive(data_dir(args))
     archive.get_meta(args.run)
     summary = load_analysis(archive, args.run)
     if summary is None:

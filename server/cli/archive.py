@@ -17,7 +17,7 @@ from typing import Any
 
 import pyarrow.parquet as pq
 
-from analysis.archive.store import Archive
+from analysis.archive.objstore import open_archive
 from analysis.errors import IngestError, OutriggerError
 from analysis.ingest.map_template import FileHeader, template
 from analysis.ingest.read import inspect_file
@@ -152,7 +152,7 @@ def _positive_mb(value: int, option: str) -> int:
 
 def cmd_ingest(args: argparse.Namespace) -> int:
     """``outrigger ingest``."""
-    archive = Archive(data_dir(args))
+    archive = open_archive(data_dir(args))
     outcome = ingest_files(
         archive,
         args.files,
@@ -233,7 +233,7 @@ def cmd_ingest(args: argparse.Namespace) -> int:
 
 def cmd_runs(args: argparse.Namespace) -> int:
     """``outrigger runs``."""
-    runs = Archive(data_dir(args)).list_runs(
+    runs = open_archive(data_dir(args)).list_runs(
         course=args.course, controller=args.controller, tag=args.tag
     )
     if args.json:
@@ -256,7 +256,7 @@ def cmd_runs(args: argparse.Namespace) -> int:
 
 def cmd_delete(args: argparse.Namespace) -> int:
     """``outrigger delete``: delete a run after the id is typed again (or ``--yes``)."""
-    archive = Archive(data_dir(args))
+    archive = open_archive(data_dir(args))
     meta = archive.get_meta(args.run)  # RunNotFoundError (exit 2) before asking
     if not args.yes:
         print(
@@ -279,7 +279,7 @@ def cmd_delete(args: argparse.Namespace) -> int:
 
 def cmd_show(args: argparse.Namespace) -> int:
     """``outrigger show``."""
-    archive = Archive(data_dir(args))
+    archive = open_archive(data_dir(args))
     meta = archive.get_meta(args.run)
     stored = archive.read_results(args.run)
     laps = stored[1].get("laps") if stored is not None else None

@@ -26,7 +26,7 @@ from analysis.archive.courses import (
     save_course_marks,
     save_start_line,
 )
-from analysis.archive.store import Archive
+from analysis.archive.objstore import open_archive
 from analysis.compare.compare import Comparison, KpiRow, compare_archived
 from analysis.compare.gate import GateCheck, check_gate, gate_from_mapping
 from analysis.compare.segments import BLOCK_M
@@ -113,7 +113,7 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
 
 def run_course_marks(args: argparse.Namespace) -> int:
     """Store, show or clear a course's distance marks."""
-    root = Archive(data_dir(args)).root
+    root = open_archive(data_dir(args)).root
     if args.clear:
         had = delete_course_marks(root, args.course)
         print(f"{args.course}: marks cleared" if had else f"{args.course}: no marks were stored")
@@ -132,7 +132,7 @@ def run_course_marks(args: argparse.Namespace) -> int:
 
 def run_start_line(args: argparse.Namespace) -> int:
     """Store, show or clear a course's start line."""
-    root = Archive(data_dir(args)).root
+    root = open_archive(data_dir(args)).root
     if args.clear:
         had = delete_start_line(root, args.course)
         print(
@@ -265,7 +265,7 @@ def run_compare(args: argparse.Namespace) -> int:
         raise CompareError(
             f"--n-boot must be at least 100 for a 95% interval, found {args.n_boot}."
         )
-    archive = Archive(data_dir(args))
+    archive = open_archive(data_dir(args))
     comp, runs_a, runs_b = compare_archived(
         archive, ids_a, ids_b, marks_m=_marks(args.marks), block_m=args.block_m,
         n_boot=args.n_boot, seed=args.seed, laps=not args.whole_runs,

@@ -36,12 +36,13 @@ def default_data_dir() -> str:
 
 
 def add_data_option(parser: argparse.ArgumentParser) -> None:
-    """Add the shared ``--data DIR`` option."""
+    """Add the shared ``--data DIR`` option (a folder, or ``s3://BUCKET/PREFIX``)."""
     parser.add_argument(
         "--data",
         default=None,
         metavar="DIR",
-        help=f"archive root (default: ${DATA_ENV} or ./{DEFAULT_DATA_DIR})",
+        help=f"archive root: a folder or s3://BUCKET/PREFIX "
+        f"(default: ${DATA_ENV} or ./{DEFAULT_DATA_DIR})",
     )
 
 

@@ -157,11 +157,11 @@ def cmd_serve(args: argparse.Namespace) -> int:
 
 def cmd_demo(args: argparse.Namespace) -> int:
     """Load the bundled demo runs into the archive (once), then serve."""
-    from analysis.archive.store import Archive
+    from analysis.archive.objstore import open_archive
     from analysis.demo.load import load_demo_runs
 
     data = data_dir(args)
-    archive = Archive(Path(data))
+    archive = open_archive(data)
     print(f"Loading the demo runs from {DEMO_LOGS}/ into {data} ...")
     run_ids = load_demo_runs(archive, DEMO_LOGS)
     print(f"{len(run_ids)} demo run(s) ready: {', '.join(run_ids)}")

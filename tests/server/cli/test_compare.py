@@ -61,7 +61,7 @@ def runs() -> dict[str, RunData]:
 @pytest.fixture()
 def archive(runs, monkeypatch, tmp_path) -> MemoryArchive:
     mem = MemoryArchive(runs, tmp_path)
-    monkeypatch.setattr(cli_compare, "Archive", lambda root: mem)
+    monkeypatch.setattr(cli_compare, "open_archive", lambda root: mem)
     return mem
 
 

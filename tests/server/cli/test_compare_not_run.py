@@ -31,7 +31,7 @@ def archive(monkeypatch, tmp_path):
         ),
     }
     mem = SkippingArchive(runs, tmp_path)
-    monkeypatch.setattr(cli_compare, "Archive", lambda root: mem)
+    monkeypatch.setattr(cli_compare, "open_archive", lambda root: mem)
     return mem
 
 
