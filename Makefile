@@ -5,7 +5,7 @@ PY     := $(VENV)/bin/python
 DATA   ?= outrigger-data
 PYTHON ?= python3
 
-.PHONY: demo test lint bench chromium
+.PHONY: demo test lint bench chromium wheel-smoke
 
 $(VENV)/.runtime: pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -31,7 +31,12 @@ lint: $(VENV)/.testdeps
 	$(VENV)/bin/ruff format --check analysis server tests benchmarks
 	$(VENV)/bin/mypy
 
-test: $(VENV)/.testdeps chromium lint
+# Build the wheel and sdist, install the wheel in a fresh venv outside the checkout,
+# and try the installed tool (demo runs, serve, a page script, /api/runs).
+wheel-smoke: $(VENV)/.testdeps
+	$(PY) tests/wheel_smoke.py
+
+test: $(VENV)/.testdeps chromium lint wheel-smoke
 	$(VENV)/bin/pytest
 
 bench: $(VENV)/.runtime

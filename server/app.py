@@ -26,9 +26,9 @@ from fastapi.responses import FileResponse, JSONResponse
 from fastapi.staticfiles import StaticFiles
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from analysis import __version__
 from analysis.archive.store import Archive
 from analysis.errors import ArchiveError, OutriggerError
+from analysis.resources import package_version, web_folder
 from server.api import configs as routes_configs
 from server.api import export as routes_export
 from server.api import jobs as routes_jobs
@@ -56,7 +56,6 @@ ROUTERS: tuple[ModuleType, ...] = (
 OPTIONAL_ROUTERS: tuple[str, ...] = ("server.api.compare",)
 
 #: The static front end shipped with the package.
-WEB_DIR = Path(__file__).resolve().parent.parent / "web"
 
 #: URL under which plotly.js is served.
 PLOTLY_URL = "/vendor/plotly.min.js"
@@ -131,7 +130,7 @@ def create_app(
     if cache_mb < 0:
         raise ArchiveError(f"The chart cache size must be 0 (off) or more MiB, found {cache_mb}.")
     archive = Archive(Path(data_dir))
-    web = Path(web_dir) if web_dir is not None else WEB_DIR
+    web = Path(web_dir) if web_dir is not None else web_folder()
     if not (web / "index.html").is_file():
         raise ArchiveError(f"The dashboard pages were not found in {web} (no index.html).")
     plotly_path = plotly_js_path()
@@ -146,7 +145,7 @@ def create_app(
 
     app = FastAPI(
         title="Outrigger",
-        version=__version__,
+        version=package_version(),
         description="Runs, events, KPIs and chart series of wheel-legged robot field tests. "
         "Write endpoints need 'Authorization: Bearer <token>' when the server has a token.",
         lifespan=lifespan,
