@@ -9,7 +9,7 @@ CHROMIUM := /usr/bin/chromium
 # Length of the generated log in `make bench` (the scripts' own default is 60 min).
 BENCH_MINUTES ?= 2
 
-.PHONY: demo test lint bench chromium mutate
+.PHONY: demo test lint bench chromium mutate wheel-smoke
 
 $(VENV)/.runtime: pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -37,8 +37,13 @@ lint: $(VENV)/.testdeps
 	$(VENV)/bin/ruff format --check analysis server tests benchmarks
 	$(VENV)/bin/mypy
 
+# Build the wheel and sdist, install the wheel in a fresh venv outside the checkout,
+# and try the installed tool (demo runs, serve, a page script, /api/runs).
+wheel-smoke: $(VENV)/.testdeps
+	$(PY) tests/wheel_smoke.py
+
 # CI=true makes a missing Chromium fail the browser tests instead of skipping them.
-test: $(VENV)/.testdeps chromium lint
+test: $(VENV)/.testdeps chromium lint wheel-smoke
 	CI=true $(VENV)/bin/pytest
 
 # The three benchmarks on a short generated log (printed figures, not tests);

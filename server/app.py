@@ -28,9 +28,9 @@ from fastapi.responses import FileResponse, JSONResponse
 from fastapi.staticfiles import StaticFiles
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from analysis import __version__
 from analysis.archive.objstore import open_archive
 from analysis.errors import ArchiveError, OutriggerError
+from analysis.resources import package_version, web_folder
 from server.api import configs as routes_configs
 from server.api import export as routes_export
 from server.api import jobs as routes_jobs
@@ -65,7 +65,6 @@ ROUTERS: tuple[ModuleType, ...] = (
 OPTIONAL_ROUTERS: tuple[str, ...] = ("server.api.compare",)
 
 #: The static front end shipped with the package.
-WEB_DIR = Path(__file__).resolve().parent.parent / "web"
 
 #: URL under which plotly.js is served.
 PLOTLY_URL = "/vendor/plotly.min.js"
@@ -163,7 +162,7 @@ def create_app(
     if cache_mb < 0:
         raise ArchiveError(f"The chart cache size must be 0 (off) or more MiB, found {cache_mb}.")
     archive = open_archive(data_dir)
-    web = Path(web_dir) if web_dir is not None else WEB_DIR
+    web = Path(web_dir) if web_dir is not None else web_folder()
     if not (web / "index.html").is_file():
         raise ArchiveError(f"The dashboard pages were not found in {web} (no index.html).")
     plotly_path = plotly_js_path()
@@ -187,7 +186,7 @@ def create_app(
 
     app = FastAPI(
         title="Outrigger",
-        version=__version__,
+        version=package_version(),
         description="Runs, events, KPIs and chart series of wheel-legged robot field tests. "
         "Write endpoints need 'Authorization: Bearer <token>' when the server has a token.",
         lifespan=lifespan,

@@ -6,8 +6,9 @@ from typing import Any
 
 from fastapi import APIRouter, Request
 
-from analysis import __version__, catalogue
+from analysis import catalogue
 from analysis.profile import THRESHOLD_SPECS
+from analysis.resources import package_version
 
 router = APIRouter(prefix="/api", tags=["server"])
 
@@ -20,7 +21,7 @@ def info(request: Request) -> dict[str, Any]:
     ``features.pages`` lists optional pages installed (e.g. ``compare``).
     """
     return {
-        "version": __version__,
+        "version": package_version(),
         "features": request.app.state.features,
         "event_kinds": [{"kind": k, "meaning": m} for k, m in catalogue.EVENT_KINDS.items()],
         "thresholds": [

@@ -16,6 +16,7 @@ import sys
 from collections.abc import Sequence
 
 from analysis.errors import OutriggerError
+from analysis.resources import package_version
 
 #: Modules that contribute subcommands, in help order.
 COMMAND_MODULES = (
@@ -57,6 +58,7 @@ def build_parser() -> argparse.ArgumentParser:
         prog="outrigger",
         description="Field-test log analysis for wheel-legged balancing robots.",
     )
+    parser.add_argument("--version", action="version", version=f"outrigger {package_version()}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
     for name in COMMAND_MODULES:

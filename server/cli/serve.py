@@ -14,7 +14,6 @@ from server.cli.main import add_data_option, data_dir
 
 DEFAULT_HOST = "127.0.0.1"
 DEFAULT_PORT = 8321
-DEMO_LOGS = Path("demo_logs")
 
 
 def is_loopback(host: str) -> bool:
@@ -159,13 +158,14 @@ def cmd_demo(args: argparse.Namespace) -> int:
     """Load the bundled demo runs into the archive (once), then serve."""
     from analysis.archive.objstore import open_archive
     from analysis.demo.load import load_demo_runs
+    from analysis.resources import demo_folder
 
     data = data_dir(args)
     archive = open_archive(data)
-    print(f"Loading the demo runs from {DEMO_LOGS}/ into {data} ...")
-    run_ids = load_demo_runs(archive, DEMO_LOGS)
+    print(f"Loading the bundled demo runs into {data} ...")
+    run_ids = load_demo_runs(archive, demo_folder())
     print(f"{len(run_ids)} demo run(s) ready: {', '.join(run_ids)}")
-    for name in store_demo_configs(archive, DEMO_LOGS):
+    for name in store_demo_configs(archive, demo_folder()):
         print(f"stored {name} for the Upload page")
     if args.no_serve:
         return 0
