@@ -4,6 +4,7 @@ import { el, fmt, fmtDuration, getJSON, readJSON, sendJSON, serverInfo, showErro
 import { badges } from "./kpis.js";
 import { initLayout } from "./layout.js";
 import { eventColour, eventLegend, kindLabel } from "./palette.js";
+import { initPictures } from "./pictures.js";
 import { Timelines } from "./timeline.js";
 
 const runId = new URLSearchParams(location.search).get("id");
@@ -13,6 +14,7 @@ let events = [];
 let visibleEvents = [];
 let current = -1;
 let run = null;
+let picturesRange = null; // tells the course map and the envelope the shown window
 
 function fail(err) {
   showError(errorBox, err);
@@ -309,7 +311,12 @@ async function load() {
   const analysis = data.analysis;
   events = analysis ? analysis.events : [];
   const { panels } = await planRequest;
-  timelines = new Timelines(document.getElementById("charts"), runId, panels, events, { onRange: rememberWindow });
+  timelines = new Timelines(document.getElementById("charts"), runId, panels, events, {
+    onRange: (range) => {
+      rememberWindow(range);
+      if (picturesRange) picturesRange(range);
+    },
+  });
   const opening = windowFromUrl();
   const drawn = timelines.draw().then(() => {
     if (opening) timelines.setRange(timelines.clamp(opening));
@@ -322,6 +329,8 @@ async function load() {
   showEvents();
   showDetectors(analysis);
   showIngest(run);
+  picturesRange = initPictures(runId, timelines);
+  picturesRange(timelines.range);
   const info = await infoRequest;
   const legend = document.getElementById("legend");
   legend.replaceChildren(
