@@ -31,6 +31,7 @@ from analysis.archive.store import Archive
 from analysis.errors import ArchiveError, OutriggerError
 from server.api import configs as routes_configs
 from server.api import export as routes_export
+from server.api import fleet as routes_fleet
 from server.api import jobs as routes_jobs
 from server.api import meta as routes_meta
 from server.api import pictures as routes_pictures
@@ -52,6 +53,7 @@ ROUTERS: tuple[ModuleType, ...] = (
     routes_jobs,
     routes_configs,
     routes_pictures,
+    routes_fleet,
 )
 
 #: Route modules included when they import (each exposes ``router``); added by later features.

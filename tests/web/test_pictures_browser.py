@@ -129,3 +129,30 @@ def test_envelope_draws_saturated_points_and_calibration_lists_the_checks(
     text = page.locator("#calibration-box").inner_text()
     assert "Effective wheel radius" in text and "Gyro bias" in text
     assert page.page_errors == []
+
+
+def test_fleet_page_draws_a_point_per_run_and_opens_it(
+    page: Any, live: LiveServer, pictured: str
+) -> None:
+    page.goto(f"{live.url}/fleet.html")
+    page.wait_for_selector("body[data-fleet-ready='1']", timeout=60_000)
+    placed = page.evaluate("() => document.getElementById('trend-chart').picturePoints()")
+    ids = [p[2] for p in placed]
+    assert pictured in ids
+    x, y, run_id = placed[ids.index(pictured)]
+    # The point is drawn in its version's colour (first version: Okabe & Ito blue #0072B2),
+    # or another palette colour when other uploads came first: never the background.
+    assert _pixel(page, "#trend-chart", x, y)[3] == 255
+    assert page.locator("#trend-versions tbody tr").count() >= 1
+    page.select_option("#trend-kpi", "min_tip_margin")
+    page.click("#trend-filters button[type=submit]")
+    page.wait_for_function(
+        "() => document.getElementById('trend-caption').textContent.includes('tip-over')"
+    )
+    placed = page.evaluate("() => document.getElementById('trend-chart').picturePoints()")
+    x, y, run_id = placed[[p[2] for p in placed].index(pictured)]
+    page.locator("#trend-chart").scroll_into_view_if_needed()
+    box = page.locator("#trend-chart").bounding_box()
+    page.mouse.click(box["x"] + x, box["y"] + y)
+    page.wait_for_url(f"**/run.html?id={run_id}")
+    assert page.page_errors == []

@@ -73,3 +73,30 @@ def test_calibrate_command_prints_each_check_and_json(stocked: Stocked, capsys) 
     keys = {e["key"] for e in data["estimates"]}
     assert {"wheel_radius", "track_width", "gyro_bias_yaw"} <= keys
     assert data["corrected_profile"] == {}
+
+
+def test_fleet_trends_per_run_and_per_version(client: TestClient, stocked: Stocked) -> None:
+    import statistics
+
+    r = client.get("/api/fleet/trends", params={"kpi": "roll_error_rms"})
+    assert r.status_code == 200, r.text
+    body = r.json()
+    assert body["unit"] == "deg" and body["better"] == "lower"
+    ids = {p["run_id"] for p in body["points"]}
+    assert stocked.demo_id in ids
+    for v in body["versions"]:
+        vals = [p["value"] for p in body["points"] if p["version"] == v["version"]]
+        # Median as the Python standard library computes it (independent of numpy).
+        assert v["median"] == pytest.approx(statistics.median(vals), rel=1e-5)
+        assert v["n"] == len(vals) and v["q1"] <= v["median"] <= v["q3"]
+    # A shown roll error is in degrees: the stored summary holds radians.
+    run = client.get(f"/api/runs/{stocked.demo_id}").json()
+    rms_rad = run["analysis"]["kpis"]["roll"]["rms"]
+    shown = next(p["value"] for p in body["points"] if p["run_id"] == stocked.demo_id)
+    assert shown == pytest.approx(math.degrees(rms_rad), rel=1e-5)
+
+
+def test_fleet_trends_refuse_an_unknown_kpi_with_the_choices(client: TestClient) -> None:
+    r = client.get("/api/fleet/trends", params={"kpi": "happiness"})
+    assert r.status_code == 400
+    assert "min_tip_margin" in r.text and "happiness" in r.text
