@@ -33,8 +33,10 @@ from analysis.errors import ArchiveError, OutriggerError
 from analysis.resources import package_version, web_folder
 from server.api import configs as routes_configs
 from server.api import export as routes_export
+from server.api import fleet as routes_fleet
 from server.api import jobs as routes_jobs
 from server.api import meta as routes_meta
+from server.api import pictures as routes_pictures
 from server.api import runs as routes_runs
 from server.api import series as routes_series
 from server.api import upload as routes_upload
@@ -59,6 +61,8 @@ ROUTERS: tuple[ModuleType, ...] = (
     routes_upload,
     routes_jobs,
     routes_configs,
+    routes_pictures,
+    routes_fleet,
 )
 
 #: Route modules included when they import (each exposes ``router``); added by later features.

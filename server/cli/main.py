@@ -25,6 +25,7 @@ COMMAND_MODULES = (
     "server.cli.compare",
     "server.cli.serve",
     "server.cli.demo",
+    "server.cli.calibrate",
 )
 
 DEFAULT_DATA_DIR = "outrigger-data"

@@ -5,6 +5,7 @@ import { badges } from "./kpis.js";
 import { lapCard, lapStrip } from "./laps.js";
 import { initLayout } from "./layout.js";
 import { eventColour, eventLegend, kindLabel } from "./palette.js";
+import { initPictures } from "./pictures.js";
 import { Timelines } from "./timeline.js";
 
 const runId = new URLSearchParams(location.search).get("id");
@@ -14,6 +15,7 @@ let events = [];
 let visibleEvents = [];
 let current = -1;
 let run = null;
+let picturesRange = null; // tells the course map and the envelope the shown window
 
 function fail(err) {
   showError(errorBox, err);
@@ -330,7 +332,12 @@ async function load() {
   const analysis = data.analysis;
   events = analysis ? analysis.events : [];
   const { panels } = await planRequest;
-  timelines = new Timelines(document.getElementById("charts"), runId, panels, events, { onRange: rememberWindow });
+  timelines = new Timelines(document.getElementById("charts"), runId, panels, events, {
+    onRange: (range) => {
+      rememberWindow(range);
+      if (picturesRange) picturesRange(range);
+    },
+  });
   const opening = windowFromUrl();
   const drawn = timelines.draw().then(() => {
     if (opening) timelines.setRange(timelines.clamp(opening));
@@ -347,6 +354,8 @@ async function load() {
   showDetectors(analysis);
   lapCard(document.getElementById("lap-card"), data.laps_shown);
   showIngest(run);
+  picturesRange = initPictures(runId, timelines);
+  picturesRange(timelines.range);
   const info = await infoRequest;
   const legend = document.getElementById("legend");
   legend.replaceChildren(

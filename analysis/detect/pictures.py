@@ -1,0 +1,261 @@
+"""What the course map, actuator envelope and calibration panels draw, for one stored run.
+
+Each function reads a stored run (frame, derived series, events, profile), calls
+the computation of :mod:`analysis.detect.course_map`, :mod:`analysis.detect.envelope`
+or :mod:`analysis.detect.calibrate`, and returns plain JSON-ready data: values a
+person reads in display units (:mod:`analysis.display`: angles in deg, rates in
+deg/s, shares in %), each with its unit.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+
+from analysis import catalogue as cat
+from analysis.archive.store import Archive
+from analysis.detect.calibrate import calibrate
+from analysis.detect.course_map import course_path, thin_indices
+from analysis.detect.envelope import actuator_envelope
+from analysis.display import display_unit
+from analysis.errors import OutriggerError, RunNotFoundError
+
+#: Series a course map can be coloured by: key -> (label, SI unit).
+MAP_COLOURS: dict[str, tuple[str, str]] = {
+    "tip_margin": ("Tip-over margin", ""),
+    "roll_error": ("Roll error", "rad"),
+    "slip_speed": ("Slip speed, larger wheel", "m/s"),
+    "speed": ("Forward speed", "m/s"),
+}
+
+
+class PictureError(OutriggerError):
+    """A picture was asked for with a choice that does not exist."""
+
+    status = 400
+
+
+def _finite_list(values: np.ndarray, digits: int = 6) -> list[float | None]:
+    """JSON list with None for NaN, rounded to ``digits`` significant digits."""
+    out: list[float | None] = []
+    for v in values.tolist():
+        if v is None or not math.isfinite(v):
+            out.append(None)
+        else:
+            out.append(float(f"{v:.{digits}g}"))
+    return out
+
+
+def _colour_values(
+    archive: Archive, run_id: str, colour: str, frame_t: np.ndarray, vel_x: Any
+) -> np.ndarray | None:
+    if colour == "speed":
+        return None if vel_x is None else np.asarray(vel_x, dtype=float)
+    try:
+        series = archive.read_result_series(run_id)
+    except RunNotFoundError:
+        return None
+    if colour == "slip_speed":
+        cols = [c for c in series.columns if c.endswith("." + cat.SLIP_SPEED)]
+        if not cols:
+            return None
+        vals = series[cols].to_numpy(dtype=float)
+        with np.errstate(all="ignore"):
+            idx = np.nanargmax(np.where(np.isnan(vals), -np.inf, np.abs(vals)), axis=1)
+        picked = vals[np.arange(len(vals)), idx]
+    elif colour in series.columns:
+        picked = series[colour].to_numpy(dtype=float)
+    else:
+        return None
+    st = series[cat.T].to_numpy(dtype=float)
+    if len(st) == len(frame_t) and np.array_equal(st, frame_t):
+        return picked
+    return np.interp(frame_t, st, picked, left=np.nan, right=np.nan)
+
+
+def course_map(archive: Archive, run_id: str, colour: str = "tip_margin") -> dict[str, Any]:
+    """The dead-reckoned path of a run, coloured by a series, with the run's events on it.
+
+    Returns
+    -------
+    dict
+        ``available`` False (with ``reason``) when the run has no heading or speed;
+        else ``x``, ``y`` [m], ``t`` [s], ``value`` (the colour series in
+        ``value_unit``), ``events`` (kind, channel, start_s, x, y), ``length_m``,
+        ``closure_m`` (distance from end to start) and the sources used.
+    """
+    if colour not in MAP_COLOURS:
+        raise PictureError(
+            f"Unknown colour series {colour!r} for the course map; choose one of "
+            f"{', '.join(MAP_COLOURS)}."
+        )
+    frame = archive.load_frame(run_id)
+    profile = archive.load_profile(run_id)
+    path = course_path(frame, profile)
+    label, si_unit = MAP_COLOURS[colour]
+    if path is None:
+        return {
+            "available": False,
+            "reason": "The run has no heading (yaw or yaw_rate) or no forward speed "
+            "(vel_x or both wheel speeds) to dead-reckon a path from.",
+        }
+    vel_x = frame[cat.VEL_X].to_numpy(dtype=float) if cat.VEL_X in frame else None
+    values = _colour_values(archive, run_id, colour, path.t, vel_x)
+    idx = thin_indices(len(path.t))
+    unit, factor = display_unit(si_unit)
+    if si_unit == "" and colour == "tip_margin":
+        unit, factor = "", 1.0
+    shown = None if values is None else values[idx] * factor
+    events = []
+    stored = archive.read_results(run_id)
+    if stored is not None:
+        ev = stored[0]
+        for kind, channel, start in zip(
+            ev["kind"].astype(str),
+            ev["channel"].astype(str),
+            ev["start_s"].astype(float),
+            strict=True,
+        ):
+            events.append(
+                {
+                    "kind": kind,
+                    "channel": channel,
+                    "start_s": start,
+                    "x": float(np.interp(start, path.t, path.x)),
+                    "y": float(np.interp(start, path.t, path.y)),
+                }
+            )
+    return {
+        "available": True,
+        "t": _finite_list(path.t[idx]),
+        "x": _finite_list(path.x[idx]),
+        "y": _finite_list(path.y[idx]),
+        "value": None if shown is None else _finite_list(shown, 4),
+        "colour": colour,
+        "value_label": label,
+        "value_unit": unit,
+        "colours": {k: v[0] for k, v in MAP_COLOURS.items()},
+        "events": events,
+        "length_m": float(path.distance[-1]),
+        "closure_m": float(math.hypot(path.x[-1] - path.x[0], path.y[-1] - path.y[0])),
+        "heading_source": path.heading_source,
+        "speed_source": path.speed_source,
+        "note": "Dead-reckoned from heading and speed: the path drifts over a run; "
+        "it shows where things happened, not a surveyed position.",
+    }
+
+
+def envelope(
+    archive: Archive,
+    run_id: str,
+    actuator: str | None = None,
+    t0: float | None = None,
+    t1: float | None = None,
+) -> dict[str, Any]:
+    """The operating envelope of one actuator (the first wheel when None) over a window.
+
+    Returns
+    -------
+    dict
+        Speeds in rad/s, torques in N*m (their display units are the same); the
+        density ``share`` in % of the window's time per cell; limit lines;
+        saturated points; the list of ``actuators`` to choose from.
+    """
+    profile = archive.load_profile(run_id)
+    names = list(profile.actuator_names)
+    if actuator is None:
+        wheels = profile.wheels()
+        actuator = next(iter(wheels.values())).name if wheels else names[0]
+    if actuator not in names:
+        raise PictureError(
+            f"Unknown actuator {actuator!r}; this run's actuators: {', '.join(names)}."
+        )
+    act = profile.actuator(actuator)
+    cols = [
+        cat.T,
+        *(
+            cat.actuator_signal(actuator, q)
+            for q in (cat.VEL, cat.TORQUE, cat.TORQUE_CMD, cat.TORQUE_REQ)
+        ),
+    ]
+    frame = archive.load_frame(run_id)
+    frame = frame[[c for c in cols if c in frame.columns]]
+    saturated = None
+    try:
+        series = archive.read_result_series(run_id, [f"{actuator}.{cat.SATURATED}"])
+        name = f"{actuator}.{cat.SATURATED}"
+        if name in series and len(series) == len(frame):
+            saturated = series[name].to_numpy(dtype=bool)
+    except RunNotFoundError:
+        pass
+    env = actuator_envelope(frame, act, saturated=saturated, t0=t0, t1=t1)
+    if env is None:
+        return {
+            "available": False,
+            "actuators": names,
+            "actuator": actuator,
+            "reason": f"The run logs no joint speed or no torque for {actuator}.",
+        }
+    lines = env["lines"]
+    return {
+        "available": True,
+        "actuators": names,
+        "actuator": actuator,
+        "torque_source": env["torque_source"],
+        "samples": env["samples"],
+        "share_pct": _finite_list(env["share"].T.ravel() * 100.0, 4),
+        "n_speed": len(env["speed_edges"]) - 1,
+        "n_torque": len(env["torque_edges"]) - 1,
+        "speed_edges": _finite_list(env["speed_edges"]),
+        "torque_edges": _finite_list(env["torque_edges"]),
+        "speed_unit": "rad/s",
+        "torque_unit": "N·m",
+        "lines": {
+            "speed": _finite_list(lines["speed"]),
+            "peak": lines["peak"],
+            "continuous": lines["continuous"],
+            "motor": lines["motor"],
+            "upper": _finite_list(lines["upper"]) if "upper" in lines else None,
+            "lower": _finite_list(lines["lower"]) if "lower" in lines else None,
+        },
+        "saturated_points": env["saturated_points"],
+        "peak_abs_torque": env["peak_abs_torque"],
+        "share_above_continuous_pct": None
+        if env["share_above_continuous"] is None
+        else round(100.0 * env["share_above_continuous"], 3),
+        "t0": t0,
+        "t1": t1,
+    }
+
+
+def calibration(archive: Archive, run_id: str) -> dict[str, Any]:
+    """The calibration check of a run against its stored profile, in display units."""
+    frame = archive.load_frame(run_id)
+    profile = archive.load_profile(run_id)
+    result = calibrate(frame, profile)
+    rows = []
+    for e in result.estimates:
+        unit, factor = display_unit(e.unit)
+        tol = e.tolerance * (100.0 if e.tolerance_kind == "relative" else factor)
+        rows.append(
+            {
+                "key": e.key,
+                "label": e.label,
+                "unit": unit,
+                "estimate": None if e.estimate is None else e.estimate * factor,
+                "profile": None if e.profile is None else e.profile * factor,
+                "samples": e.samples,
+                "tolerance": tol,
+                "tolerance_unit": "%" if e.tolerance_kind == "relative" else unit,
+                "differs": e.differs,
+                "note": e.note,
+            }
+        )
+    return {
+        "profile": profile.name,
+        "estimates": rows,
+        "corrected_profile": result.corrected_profile(),
+        "si": result.to_dict(),
+    }
