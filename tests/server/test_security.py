@@ -18,7 +18,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from analysis.archive.store import Archive
-from server.app import WEB_DIR
+from analysis.resources import web_folder
 from server.cli.main import build_parser
 from server.cli.serve import build_app
 from server.security import script_hashes, served_hosts
@@ -119,7 +119,7 @@ def test_an_error_answer_and_a_refusal_carry_them_too(api):
 
 def test_the_run_page_inline_script_is_allowed_by_its_hash(api):
     # CSP Level 3 hash-source: base64 of SHA-256 over the script text (W3C CSP3).
-    page = (WEB_DIR / "run.html").read_text(encoding="utf-8")
+    page = (web_folder() / "run.html").read_text(encoding="utf-8")
     body = re.search(r"<script>(.*?)</script>", page, re.DOTALL).group(1)
     expected = "'sha256-" + base64.b64encode(hashlib.sha256(body.encode()).digest()).decode() + "'"
     assert script_hashes(page) == [expected]

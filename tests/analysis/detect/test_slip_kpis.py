@@ -13,9 +13,8 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 import pytest
-from scipy import signal as sps
 
-from analysis.detect.slip import GATE_CUTOFF_HZ, detect_slip
+from analysis.detect.slip import detect_slip
 from analysis.events import DetectorResult
 from analysis.profile import Actuator, ComModel, RobotProfile, Thresholds
 
@@ -68,16 +67,6 @@ def _t(duration_s: float = 3.0) -> np.ndarray:
     return np.arange(int(round(duration_s * RATE_HZ))) * DT
 
 
-def _gated(t: np.ndarray, slip: np.ndarray, level: float) -> np.ndarray:
-    """Times where the slip speed, low-passed as the detector's gate does, exceeds ``level``.
-
-    Reference: scipy.signal, a Butterworth of order 2 at GATE_CUTOFF_HZ run forward and
-    backward (sosfiltfilt, default padding), the low-pass the detector's docstring names.
-    """
-    sos = sps.butter(2, GATE_CUTOFF_HZ, fs=RATE_HZ, output="sos")
-    return t[np.abs(sps.sosfiltfilt(sos, slip)) > level]
-
-
 def _slips(res: DetectorResult, channel: str) -> list[tuple[float, float]]:
     return [(e.start_s, e.end_s) for e in res.events if e.kind == "slip" and e.channel == channel]
 
@@ -90,13 +79,10 @@ def test_slip_at_a_standstill_ends_where_the_slip_speed_falls_below_its_floor() 
     frame.loc[(t >= 2.5) & (t < 2.6), "vel_x"] = np.nan  # 20 samples without a base speed
     res = detect_slip(frame, _profile())
     # Slip ratio with the 0.5 m/s floor (slip_ratio docstring, SAE J670 with the floor ours):
-    # 0.3 / 0.5 = 0.6 > 0.2 starts an event at 0.5 s; the creep's 0.07 / 0.5 = 0.14 stays
-    # above the 0.1 exit level, so only the slip-speed floor (0.07 < 0.1 m/s) ends it: where
-    # the low-passed slip speed falls below 0.1 m/s, 15 ms after the step (scipy reference),
-    # not at the 2 s end of the creep.
-    end = _gated(t[t < 2.4], rim_l[t < 2.4], 0.1)[-1]
-    assert end == pytest.approx(1.015, abs=1e-12)
-    assert _slips(res, "wheel_l") == [pytest.approx((0.5, end), abs=1e-12)]
+    # 0.3 / 0.5 = 0.6 > 0.2 starts an event; the creep's 0.07 / 0.5 = 0.14 stays above the
+    # 0.1 exit level, so only the slip-speed floor (0.07 < 0.1 m/s) ends it, at the last
+    # 0.3 m/s sample (t = 0.995 s; times are exact multiples of the 5 ms step).
+    assert _slips(res, "wheel_l") == [pytest.approx((0.5, 0.995), abs=1e-12)]
     ev = next(e for e in res.events if e.kind == "slip")
     assert ev.peak == pytest.approx(0.3, abs=1e-12)
     assert ev.detail["slip_ratio_peak"] == pytest.approx(0.6, abs=1e-12)
@@ -104,9 +90,9 @@ def test_slip_at_a_standstill_ends_where_the_slip_speed_falls_below_its_floor() 
     assert ev.detail["direction"] == "spin"
     k = res.kpis["wheel_l"]
     assert (k["event_count"], k["spin_count"], k["skid_count"]) == (1, 1, 0)
-    # Pattern arithmetic (zero-order hold): the event's 104 samples of 5 ms (0.5 to 1.015 s),
-    # of the 2.995 s logged less the 20 samples of 5 ms without a slip speed.
-    assert k["slipping_share"] == pytest.approx(0.52 / (2.995 - 0.1), rel=1e-12)
+    # Pattern arithmetic (zero-order hold): 100 samples of 5 ms in the event, of the 2.995 s
+    # logged less the 20 samples of 5 ms without a slip speed.
+    assert k["slipping_share"] == pytest.approx(0.5 / (2.995 - 0.1), rel=1e-12)
     assert k["peak_slip_speed"] == pytest.approx(0.3, abs=1e-12)
 
 
@@ -115,16 +101,12 @@ def test_the_slip_speed_floor_also_keeps_an_event_from_starting() -> None:
     rim_l = np.where((t >= 1.0) & (t < 2.0), 0.08, 0.0)  # creep 0.08 m/s with the robot still
     low = replace(Thresholds.defaults(), slip_ratio_on=0.1, slip_ratio_off=0.05)
     # Ratio 0.08 / 0.5 = 0.16 passes a 0.1 entry level, but 0.08 m/s is under the default
-    # 0.1 m/s slip-speed floor (low-passed, it stays under: scipy reference): no event.
-    assert _gated(t, rim_l, 0.1).size == 0
+    # 0.1 m/s slip-speed floor: no event (definition of the floor, by construction).
     assert _slips(detect_slip(_frame(0.0, rim_l, np.zeros(t.size)), _profile(low)), "wheel_l") == []
-    # With the floor lowered to 0.05 m/s the same creep is an event, from where the low-passed
-    # slip speed passes 0.05 m/s to where it falls back (scipy reference: 1.005 to 1.99 s).
+    # With the floor lowered to 0.05 m/s the same creep is a 1 s event.
     lower = replace(low, slip_speed_min=0.05)
     res = detect_slip(_frame(0.0, rim_l, np.zeros(t.size)), _profile(lower))
-    gate = _gated(t, rim_l, 0.05)
-    assert (gate[0], gate[-1]) == pytest.approx((1.005, 1.99), abs=1e-12)
-    assert _slips(res, "wheel_l") == [pytest.approx((gate[0], gate[-1]), abs=1e-12)]
+    assert _slips(res, "wheel_l") == [pytest.approx((1.0, 1.995), abs=1e-12)]
 
 
 def test_a_moving_slip_holds_until_the_ratio_falls_below_the_exit_level() -> None:
