@@ -495,8 +495,8 @@ def _notes(
     if any(k.indicative for k in kdefs):
         notes.append(
             "Extremes (peak slip speed, max roll error, minimum tip-over margin) are indicative "
-            "only: the bootstrap reproduces the spread of a sample maximum or minimum poorly "
-            "(Efron & Tibshirani 1993, from memory), so they get a rough interval and no "
+            "only: the bootstrap reproduces the spread of a sample maximum or minimum poorly, "
+            "so they get a rough interval and no "
             "verdict; bound them in a gate with a limit such as "
             "peak_slip_speed_increase_max."
         )

@@ -82,7 +82,10 @@ def archive_digest(root: Path) -> dict[str, str]:
     return {
         p.relative_to(root).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
         for p in sorted(root.rglob("*"))
-        if p.is_file() and not p.name.endswith(("-journal", "-wal", "-shm"))
+        if p.is_file()
+        and not p.name.endswith(("-journal", "-wal", "-shm"))
+        # The Fleet page's cache is derived data a read may write (never the truth).
+        and p.name != "trends-cache.parquet"
     }
 
 

@@ -194,6 +194,7 @@ def test_a_bad_upload_stores_nothing_in_the_store(
     assert response.status_code == 202, response.text
     job = wait_job(api, response.json()["job"]["id"])
     assert job["state"] == "failed", job
-    assert job["error"]["type"] == "IngestError" and "plant_state.csv" in job["error"]["message"]
+    assert job["error"]["type"] == "/api.html#problem-log-file"
+    assert "plant_state.csv" in job["error"]["detail"]
     assert api.get("/api/runs").json()["runs"] == []
     assert list((ObjectArchive(s3_root).loc / "runs").walk()) == []

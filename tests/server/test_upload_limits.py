@@ -27,7 +27,7 @@ def _refused(tmp_path: Path, inputs: RunInputs, name: str, data: bytes) -> str:
         assert response.status_code == 400, response.text
         assert c.get("/api/jobs").json()["jobs"] == []
         assert list(c.app.state.upload_root.iterdir()) == []  # type: ignore[attr-defined]
-        message: str = response.json()["error"]["message"]
+        message: str = response.json()["detail"]
         return message
 
 
