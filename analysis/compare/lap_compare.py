@@ -21,7 +21,6 @@ References
 
 from __future__ import annotations
 
-import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from typing import Any
@@ -30,7 +29,6 @@ import numpy as np
 
 from analysis import catalogue as cat
 from analysis.compare.align import MAX_LENGTH_DIFF, MIN_CORRELATION, CourseTrace
-from analysis.compare.bootstrap import Pieces
 from analysis.compare.course_kpis import KpiDef, RunData, block_pieces
 from analysis.display import display_unit, scalar_to_display
 from analysis.errors import CompareError
@@ -236,51 +234,6 @@ def pieces_by_lap(
         full = np.concatenate([v, np.zeros((1,) + v.shape[1:])]) if v.shape[0] % (nb + 1) else v
         out[k] = full.reshape((len(done), nb + 1) + v.shape[1:])[:, :nb]
     return out, pos
-
-
-def lap_units(
-    per_lap: Sequence[dict[str, np.ndarray]],
-    kpis: Sequence[KpiDef],
-    blocks: np.ndarray | None = None,
-) -> Pieces:
-    """The laps of one version's runs as the replicate units of the bootstrap.
-
-    Parameters
-    ----------
-    per_lap : sequence of dict
-        :func:`pieces_by_lap` of each run of the version, shape ``(n_laps, n_blocks, ...)``.
-    kpis : sequence of KpiDef
-        Tells which pieces are extremes (reduced by max or min) and which are sums.
-    blocks : ndarray of int, optional
-        Course blocks kept (those of one segment); all when None.
-
-    Returns
-    -------
-    Pieces
-        One "run" whose blocks are the laps (``n_blocks`` = laps of all runs), so that
-        :func:`analysis.compare.bootstrap.bootstrap_difference` with ``paired=False``
-        resamples whole laps ([1] Section 8.6; the lap is the replicate, [2]). Sums
-        are divided by the number of laps, so ``total`` KPIs are per lap; ratios,
-        RMS and histogram quantiles do not change by it.
-    """
-    extremes: dict[str, str] = {}
-    for k in kpis:
-        if k.stat is not None and k.stat.kind in ("max", "min"):
-            extremes[k.stat.num] = k.stat.kind
-    n_laps = sum(next(iter(p.values())).shape[0] for p in per_lap)
-    data: dict[str, np.ndarray] = {}
-    for name in per_lap[0]:
-        x = np.concatenate([p[name] for p in per_lap])
-        if blocks is not None:
-            x = x[:, blocks]
-        if name in extremes:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", RuntimeWarning)  # an all-NaN lap stays NaN
-                red = np.nanmax(x, axis=1) if extremes[name] == "max" else np.nanmin(x, axis=1)
-        else:
-            red = np.nansum(x, axis=1) / max(n_laps, 1)
-        data[name] = red[None]
-    return Pieces(data, 1, n_laps)
 
 
 def lap_report_table(

@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import hashlib
 import os
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -149,11 +149,6 @@ def sha256_file(path: Path) -> str:
         while chunk := fh.read(8 << 20):
             h.update(chunk)
     return h.hexdigest()
-
-
-def combined_hash(hashes: Iterable[str]) -> str:
-    """One hash for a set of source files (order-free): SHA-256 of the sorted hashes."""
-    return hashlib.sha256("\n".join(sorted(hashes)).encode()).hexdigest()
 
 
 # --- streaming writer ------------------------------------------------------------------
@@ -298,17 +293,6 @@ def _resolve(
     else:
         cmap = load_channel_map(channel_map, prof)
     return cmap, prof, profile_text
-
-
-def _duplicate(
-    archive: RunWriter, hashes: dict[str, str], paths: list[Path]
-) -> IngestOutcome | None:
-    """The outcome for files already stored as a run (same source hash), or None."""
-    existing = archive.find_by_hash(combined_hash(hashes[p.name] for p in paths))
-    if existing is None:
-        return None
-    meta = archive.get_meta(existing)
-    return IngestOutcome(existing, meta.get("ingest_report", {}), duplicate_of=existing)
 
 
 def _refuse_bad(info: FileInfo, bad: BadLines) -> None:
