@@ -185,37 +185,51 @@ def child(kind: str, work: Path) -> None:
 
 
 def measure(kind: str, work: Path) -> dict[str, float]:
+    if kind == "ingest":  # a fresh archive (a kept one would refuse the same files again)
+        shutil.rmtree(work / "archive", ignore_errors=True)
     cmd = [sys.executable, __file__, "--child", kind, str(work)]
     done = subprocess.run(cmd, check=True, capture_output=True, text=True)
     return dict(json.loads(done.stdout.strip().splitlines()[-1]))
 
 
-def bench_log(work: Path, hours: float, label: str) -> dict[str, object]:
-    shutil.rmtree(work, ignore_errors=True)
-    work.mkdir(parents=True)
+def bench_log(
+    work: Path, hours: float, label: str, keep: bool = False, steps: list[str] | None = None
+) -> dict[str, object]:
     sys.path.insert(0, str(ROOT))
     t = time.perf_counter()
-    state, torque, rows = write_logs(work, hours)
+    written = work / "rows.txt"
+    if keep and written.exists() and float(written.read_text().split()[1]) == hours:
+        state, torque = work / "long_state.csv", work / "long_torque.csv"
+        rows = int(written.read_text().split()[0])
+    else:
+        shutil.rmtree(work, ignore_errors=True)
+        work.mkdir(parents=True)
+        state, torque, rows = write_logs(work, hours)
+        written.write_text(f"{rows} {hours}")
     write_configs(work)
     mb = (state.stat().st_size + torque.stat().st_size) / 1e6
     print(f"\n== {label}: {rows:,} state rows, CSV {mb:,.0f} MB, written in "
           f"{time.perf_counter() - t:.0f} s")  # fmt: skip
-    res = {name: measure(name, work) for name in STEPS}
+    res = {name: measure(name, work) for name in steps or STEPS}
     print(f"{'step':20s} {'wall s':>8s} {'CPU s':>8s} {'peak RSS MiB':>13s}")
     for name, r in res.items():
         print(f"{name:20s} {r['wall_s']:8.1f} {r['cpu_s']:8.1f} {r['peak_rss_mib']:13.0f}")
     out: dict[str, object] = {"label": label, "hours": hours, "rows": rows, "csv_mb": mb, **res}
     for step, goal in (("ingest", 1.2), ("analyse", 5.0)):
+        if step not in res or f"{step}_reference" not in res:
+            continue
         ref = res[f"{step}_reference"]
         wall = res[step]["wall_s"] / ref["wall_s"]
         cpu = res[step]["cpu_s"] / ref["cpu_s"]
         out[f"{step}_ratio_wall"], out[f"{step}_ratio_cpu"] = wall, cpu
         print(f"ratio {step} / reference: {wall:.2f} wall, {cpu:.2f} CPU (goal <= {goal:g})")
-    shutil.rmtree(work / "archive", ignore_errors=True)
-    for p in work.glob("*.csv"):
-        p.unlink()
     for p in work.glob("ref_*.parquet"):
         p.unlink()
+    if not keep:
+        shutil.rmtree(work / "archive", ignore_errors=True)
+        for p in work.glob("*.csv"):
+            p.unlink()
+        written.unlink()
     return out
 
 
@@ -224,6 +238,15 @@ def main() -> None:
     parser.add_argument("--eight-hours", action="store_true", help="also the 8-hour log")
     parser.add_argument("--minutes", type=float, help="a shorter first log instead of one hour")
     parser.add_argument("--out", default=str(ROOT / "bench-output" / "longlog"))
+    parser.add_argument(
+        "--keep",
+        action="store_true",
+        help="keep the logs and the archive for the next run (which then reuses the logs)",
+    )
+    parser.add_argument(
+        "--steps",
+        help=f"comma-separated subset of {','.join(STEPS)} (analyse needs an earlier ingest)",
+    )
     parser.add_argument("--child", nargs=2, help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.child:
@@ -231,9 +254,10 @@ def main() -> None:
         return
     out = Path(args.out)
     hours = args.minutes / 60.0 if args.minutes else 1.0
-    results = [bench_log(out / "first", hours, f"{hours * 60:g}-minute log")]
+    steps = args.steps.split(",") if args.steps else None
+    results = [bench_log(out / "first", hours, f"{hours * 60:g}-minute log", args.keep, steps)]
     if args.eight_hours:
-        results.append(bench_log(out / "eight", 8.0, "8-hour log"))
+        results.append(bench_log(out / "eight", 8.0, "8-hour log", args.keep, steps))
     (out / "results.json").write_text(json.dumps(results, indent=1))
     print(f"\nfigures saved to {out / 'results.json'}")
 
