@@ -6,8 +6,10 @@ buckets keeps its min and max sample, gaps kept as breaks), so it is as fast
 with the server's cache cold as warm; the cache then loads the run's columns in
 the background for the zooms. Windows are served from
 :class:`server.run_cache.RunCache` (the run's chart columns as arrays, so a zoom
-slices instead of reading Parquet); a run too large for the cache, or a server
-started without one, reads the window from the archive. Values and units are those shown on the page (angles in degrees, from
+slices instead of reading Parquet); a run too large for the cache (found from its
+row count before any read, :meth:`RunCache.fits`), or a server started without one,
+reads the window from the archive, where the window's time bounds prune the row
+groups (a 10 s zoom decodes one or two of the stream's row groups, not the column). Values and units are those shown on the page (angles in degrees, from
 ``analysis.display``) unless ``units=si`` asks for the stored SI values.
 """
 
@@ -267,6 +269,9 @@ def _add_read(
         del want[DERIVED]
     elif not want[FRAME]:
         del want[FRAME]
+    # A run too large for the cache (judged from its row count, nothing read) is served
+    # window by window from the archive: the time bounds prune its row groups.
+    use_cache = use_cache and cache.fits(archive, run_id, want)
     bounds: tuple[float, float] | None = None
     for source, wanted in want.items():
         if use_cache:

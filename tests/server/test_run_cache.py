@@ -187,3 +187,62 @@ def test_concurrent_requests_load_a_run_once(stocked: Stocked) -> None:
             np.testing.assert_array_equal(cols.values[name], results[0].values[name])
     derived = cache.columns(archive, stocked.planted_id, DERIVED, [cat.TIP_MARGIN])
     assert derived.values[cat.TIP_MARGIN].size == derived.t.size
+
+
+def test_fits_is_judged_from_the_row_count_before_any_read(
+    stocked: Stocked, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    archive = Archive(stocked.root)
+
+    def no_reads(*args, **kwargs):
+        raise AssertionError("fits() read the run's samples")
+
+    monkeypatch.setattr(Archive, "load_frame", no_reads)
+    monkeypatch.setattr(Archive, "read_result_series", no_reads)
+    want = {FRAME: [cat.ROLL, cat.PITCH, cat.actuator_signal("wheel_l", cat.TORQUE_CMD)]}
+    want[DERIVED] = [cat.TIP_MARGIN]
+    # The planted run keeps 2,900 rows (3,000 written, the 100-row hole left out); the
+    # four columns plus a time axis per source are 6 float64 arrays: 139,200 bytes.
+    assert RunCache(max_bytes=139_200).fits(archive, stocked.planted_id, want)
+    small = RunCache(max_bytes=139_199)
+    assert not small.fits(archive, stocked.planted_id, want)
+    assert not small.usable(archive, stocked.planted_id)  # marked: windows come from Parquet
+    assert not small.warm_later(archive, stocked.planted_id, want)
+    assert small.loads == 0 and small.nbytes == 0
+    assert not RunCache(max_bytes=0).fits(archive, stocked.planted_id, want)
+
+
+def test_a_run_too_large_for_the_cache_is_never_read_whole(
+    stocked: Stocked, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A run whose chart columns pass the cache's bound (an eight-hour run on the
+    default bound) is served from its overview and from windows of the archive."""
+    windows: list[tuple[object, object]] = []
+    load_frame, read_series = Archive.load_frame, Archive.read_result_series
+
+    def frame_spy(self, run_id, columns=None, t0=None, t1=None, **kw):
+        windows.append((t0, t1))
+        return load_frame(self, run_id, columns, t0, t1, **kw)
+
+    def series_spy(self, run_id, columns=None, t0=None, t1=None):
+        windows.append((t0, t1))
+        return read_series(self, run_id, columns, t0, t1)
+
+    with fresh_app(stocked.root, cache_mb=0) as uncached:
+        want_whole = _series(uncached, stocked.planted_id, SIGNALS)
+        want_zoom = _series(uncached, stocked.planted_id, SIGNALS, t0=19.0, t1=22.0)
+    monkeypatch.setattr(Archive, "load_frame", frame_spy)
+    monkeypatch.setattr(Archive, "read_result_series", series_spy)
+    with fresh_app(stocked.root) as c:
+        # 20 kB: less than the 139 kB the four signals' whole-run columns take.
+        cache = RunCache(max_bytes=20_000)
+        c.app.state.run_cache = cache  # type: ignore[attr-defined]
+        zoom = _series(c, stocked.planted_id, SIGNALS, t0=19.0, t1=22.0)  # a link to a window
+        whole = _series(c, stocked.planted_id, SIGNALS)
+        cache.wait_warm()  # a warm-up, had one started, would read the whole run
+        again = _series(c, stocked.planted_id, SIGNALS, t0=19.0, t1=22.0)
+    assert zoom == want_zoom and again == want_zoom and whole == want_whole
+    assert cache.loads == 0
+    assert (None, None) not in windows  # neither a zoom nor a warm-up read the whole run
+    # The windows the page asked for, each read from the archive (frame and derived).
+    assert windows.count((19.0, 22.0)) == 4
