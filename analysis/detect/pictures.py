@@ -1,6 +1,7 @@
 """What the course map, actuator envelope and calibration panels draw, for one stored run.
 
-Each function reads a stored run (frame, derived series, events, profile), calls
+Each function reads a stored run (the frame columns and derived series it draws,
+never the whole run: an eight-hour run's frame is gigabytes; events, profile), calls
 the computation of :mod:`analysis.detect.course_map`, :mod:`analysis.detect.envelope`
 or :mod:`analysis.detect.calibrate`, and returns plain JSON-ready data: values a
 person reads in display units (:mod:`analysis.display`: angles in deg, rates in
@@ -21,6 +22,7 @@ from analysis.detect.course_map import course_path, thin_indices
 from analysis.detect.envelope import actuator_envelope
 from analysis.display import display_unit
 from analysis.errors import OutriggerError, RunNotFoundError
+from analysis.profile import RobotProfile
 
 #: Series a course map can be coloured by: key -> (label, SI unit).
 MAP_COLOURS: dict[str, tuple[str, str]] = {
@@ -48,13 +50,33 @@ def _finite_list(values: np.ndarray, digits: int = 6) -> list[float | None]:
     return out
 
 
+def _course_columns(profile: RobotProfile) -> list[str]:
+    """The frame columns :func:`course_path` reads (heading, speed, wheel speeds)."""
+    wheels = [cat.actuator_signal(a.name, cat.VEL) for a in profile.wheels().values()]
+    return [cat.YAW, cat.YAW_RATE, cat.VEL_X, cat.PITCH_RATE, *wheels]
+
+
+def _calibration_columns(profile: RobotProfile) -> list[str]:
+    """The frame columns :func:`calibrate` reads."""
+    wheels = [cat.actuator_signal(a.name, cat.VEL) for a in profile.wheels().values()]
+    rates = [cat.YAW_RATE, cat.PITCH_RATE, cat.ROLL_RATE, cat.VEL_X]
+    return [*rates, *wheels, cat.ACCEL_X, cat.ACCEL_Y, cat.ACCEL_Z, cat.PITCH, cat.ROLL]
+
+
 def _colour_values(
     archive: Archive, run_id: str, colour: str, frame_t: np.ndarray, vel_x: Any
 ) -> np.ndarray | None:
     if colour == "speed":
         return None if vel_x is None else np.asarray(vel_x, dtype=float)
     try:
-        series = archive.read_result_series(run_id)
+        # The names first (an empty window: the row groups' statistics skip every one),
+        # then only the colour's columns: a long run's series are gigabytes.
+        names = archive.read_result_series(run_id, t0=-1.0, t1=-1.0).columns
+        if colour == "slip_speed":
+            wanted = [c for c in names if c.endswith("." + cat.SLIP_SPEED)]
+        else:
+            wanted = [colour] if colour in names else []
+        series = archive.read_result_series(run_id, wanted)
     except RunNotFoundError:
         return None
     if colour == "slip_speed":
@@ -91,8 +113,8 @@ def course_map(archive: Archive, run_id: str, colour: str = "tip_margin") -> dic
             f"Unknown colour series {colour!r} for the course map; choose one of "
             f"{', '.join(MAP_COLOURS)}."
         )
-    frame = archive.load_frame(run_id)
     profile = archive.load_profile(run_id)
+    frame = archive.load_frame(run_id, columns=_course_columns(profile))
     path = course_path(frame, profile)
     label, si_unit = MAP_COLOURS[colour]
     if path is None:
@@ -180,8 +202,7 @@ def envelope(
             for q in (cat.VEL, cat.TORQUE, cat.TORQUE_CMD, cat.TORQUE_REQ)
         ),
     ]
-    frame = archive.load_frame(run_id)
-    frame = frame[[c for c in cols if c in frame.columns]]
+    frame = archive.load_frame(run_id, columns=cols[1:])
     saturated = None
     try:
         series = archive.read_result_series(run_id, [f"{actuator}.{cat.SATURATED}"])
@@ -232,9 +253,8 @@ def envelope(
 
 def calibration(archive: Archive, run_id: str) -> dict[str, Any]:
     """The calibration check of a run against its stored profile, in display units."""
-    frame = archive.load_frame(run_id)
     profile = archive.load_profile(run_id)
-    result = calibrate(frame, profile)
+    result = calibrate(archive.load_frame(run_id, columns=_calibration_columns(profile)), profile)
     rows = []
     for e in result.estimates:
         unit, factor = display_unit(e.unit)

@@ -100,3 +100,45 @@ def test_fleet_trends_refuse_an_unknown_kpi_with_the_choices(client: TestClient)
     r = client.get("/api/fleet/trends", params={"kpi": "happiness"})
     assert r.status_code == 400
     assert "min_tip_margin" in r.text and "happiness" in r.text
+
+
+def test_pictures_read_only_their_columns_and_match_the_whole_frame(
+    client: TestClient, stocked: Stocked, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """An eight-hour run's whole frame is gigabytes: each picture reads the columns it
+    draws, and gives what its computation gives on the whole frame."""
+    from analysis.archive.store import Archive
+    from analysis.detect.calibrate import calibrate
+    from analysis.detect.course_map import course_path, thin_indices
+    from analysis.detect.envelope import actuator_envelope
+
+    archive = Archive(stocked.root)
+    whole = archive.load_frame(stocked.demo_id)
+    profile = archive.load_profile(stocked.demo_id)
+    asked: list[object] = []
+    load_frame = Archive.load_frame
+
+    def spy(self, run_id, columns=None, *args, **kwargs):
+        asked.append(columns)
+        return load_frame(self, run_id, columns, *args, **kwargs)
+
+    monkeypatch.setattr(Archive, "load_frame", spy)
+    body = client.get(f"/api/runs/{stocked.demo_id}/course-map").json()
+    path = course_path(whole, profile)
+    assert path is not None
+    idx = thin_indices(len(path.t))
+    # The page's numbers carry 6 significant digits (pictures._finite_list).
+    assert body["x"] == pytest.approx(path.x[idx].tolist(), rel=1e-5, abs=1e-9)
+    assert body["y"] == pytest.approx(path.y[idx].tolist(), rel=1e-5, abs=1e-9)
+    cal = client.get(f"/api/runs/{stocked.demo_id}/calibration").json()
+    assert cal["si"] == json.loads(json.dumps(calibrate(whole, profile).to_dict()))
+    env = client.get(f"/api/runs/{stocked.demo_id}/envelope?actuator=wheel_l").json()
+    saturated = archive.read_result_series(stocked.demo_id, ["wheel_l.saturated"])
+    ref = actuator_envelope(
+        whole,
+        profile.actuator("wheel_l"),
+        saturated=saturated["wheel_l.saturated"].to_numpy(dtype=bool),
+    )
+    assert ref is not None and env["samples"] == ref["samples"] > 0
+    assert env["saturated_points"] == ref["saturated_points"]
+    assert len(asked) == 3 and all(cols is not None and len(cols) <= 16 for cols in asked)
