@@ -31,9 +31,41 @@ def pictured(browser: Any, live: LiveServer, web_demo_inputs: RunInputs) -> str:
         context.close()
 
 
+#: The routes the pictures ask for their data.
+PICTURE_ROUTES = ("/course-map", "/envelope", "/calibration")
+
+
 def _open(page: Any, live: LiveServer, run_id: str) -> None:
     page.goto(f"{live.url}/run.html?id={run_id}")
+    page.wait_for_selector("body[data-charts-ready='1']", timeout=60_000)
+    # The pictures ask for their data once they come near the screen.
+    page.locator(".pictures").scroll_into_view_if_needed()
     page.wait_for_selector("body[data-pictures-ready='1']", timeout=60_000)
+
+
+def test_pictures_ask_for_their_data_only_near_the_screen(
+    page: Any, live: LiveServer, pictured: str
+) -> None:
+    asked: list[str] = []
+    page.on(
+        "request",
+        lambda r: asked.append(r.url) if any(k in r.url for k in PICTURE_ROUTES) else None,
+    )
+    page.goto(f"{live.url}/run.html?id={pictured}")
+    page.wait_for_selector("body[data-charts-ready='1']", timeout=60_000)
+    page.wait_for_selector("#legend > *")  # built after the pictures were set up
+    # Two frames: an IntersectionObserver reports after the next layout.
+    page.evaluate("() => new Promise((r) => requestAnimationFrame(() => requestAnimationFrame(r)))")
+    top = page.evaluate("() => document.querySelector('.pictures').getBoundingClientRect().top")
+    # Below the 1000 px screen and the 400 px the page looks ahead (PICTURES_AHEAD_PX).
+    assert top > 1400
+    assert asked == []
+    page.locator(".pictures").scroll_into_view_if_needed()
+    page.wait_for_selector("body[data-pictures-ready='1']", timeout=60_000)
+    assert sorted(next(k for k in PICTURE_ROUTES if k in url) for url in asked) == sorted(
+        PICTURE_ROUTES
+    )
+    assert page.page_errors == []
 
 
 def _pixel(page: Any, canvas: str, x: float, y: float) -> tuple[int, int, int, int]:

@@ -345,16 +345,34 @@ async function showCalibration(root, runId) {
   );
 }
 
+// Scroll distance below the screen at which the pictures' data is asked for [px].
+const PICTURES_AHEAD_PX = 400;
+
 // Build the three pictures below the timelines; returns a hook for the shown window.
+// Their data is asked for once the pictures come near the screen: each reads whole
+// columns of the run on the server (seconds on an eight-hour run), which held back
+// the first zooms of the timelines when asked for with the page.
 export function initPictures(runId, timelines) {
   const map = new CourseMap(document.getElementById("course-map-box"), runId, timelines);
   const env = new Envelope(document.getElementById("envelope-box"), runId, timelines);
-  const pending = [
-    map.load(),
-    env.load(),
-    showCalibration(document.getElementById("calibration-box"), runId),
-  ].map((p) => p.catch((err) => showError(document.getElementById("error"), err)));
-  Promise.all(pending).then(() => { document.body.dataset.picturesReady = "1"; });
+  const load = () => {
+    const pending = [
+      map.load(),
+      env.load(),
+      showCalibration(document.getElementById("calibration-box"), runId),
+    ].map((p) => p.catch((err) => showError(document.getElementById("error"), err)));
+    Promise.all(pending).then(() => { document.body.dataset.picturesReady = "1"; });
+  };
+  const section = document.getElementById("course-map-box").closest(".pictures");
+  const near = new IntersectionObserver(
+    (entries) => {
+      if (!entries.some((e) => e.isIntersecting)) return;
+      near.disconnect();
+      load();
+    },
+    { rootMargin: `0px 0px ${PICTURES_AHEAD_PX}px 0px` },
+  );
+  near.observe(section);
   return (range) => {
     map.setRange(range);
     env.setRange(range);
