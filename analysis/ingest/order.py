@@ -31,8 +31,10 @@ import pyarrow.parquet as pq
 
 from analysis import catalogue
 
-#: Rows per Parquet row group of a stored stream.
-ROW_GROUP_ROWS = 1 << 20
+#: Rows per Parquet row group of a stored stream: 131,072 (328 s at 400 Hz). A
+#: dashboard zoom decodes every row group its window touches; groups of 2**20 rows took
+#: 100 ms of the 200 ms zoom budget on an eight-hour run, these 20 ms (files 12 % larger).
+ROW_GROUP_ROWS = 1 << 17
 #: A gap is a step in time longer than this many median periods.
 GAP_FACTOR = 5.0
 #: Most gaps listed in the report (all are counted).

@@ -329,3 +329,34 @@ def test_skipped_first_row_does_not_set_the_origin(tmp_path):
     assert _stream(archive, out.run_id)["t"].iloc[0] == 0.0
     # the second row, 2.5 ms after 09:31:00, is the run's first sample
     assert archive.get_meta(out.run_id)["date"] == "2026-11-28T09:31:00.002500Z"
+
+
+def test_a_ten_second_window_touches_at_most_two_row_groups(tmp_path):
+    """The dashboard's zoom decodes every row group its window touches (pyarrow prunes
+    the others by their ``t`` statistics): row groups must stay small on a long run."""
+    # 400 Hz for 800 s: 320,000 rows, three row groups.
+    n = 320_000
+    table = pa.table(
+        {
+            "stamp_us": pa.array(START_US + np.arange(n) * STATE_PERIOD_US),
+            "roll_deg": pa.array(np.sin(np.arange(n) / 400.0)),
+            "speed": pa.array(np.full(n, 2.0)),
+        }
+    )
+    path = tmp_path / "long_state.parquet"
+    pq.write_table(table, path)
+    archive = Archive(tmp_path / "data")
+    run_id = ingest_files(archive, [path], _map(tmp_path), PROFILE).run_id
+    meta = pq.ParquetFile(archive.root / "runs" / run_id / "streams" / "state.parquet").metadata
+    groups = [meta.row_group(i) for i in range(meta.num_row_groups)]
+    spans = [(g.column(0).statistics.min, g.column(0).statistics.max, g.num_rows) for g in groups]
+    assert len(spans) >= 3 and sum(rows for *_, rows in spans) == n
+    for t0 in (0.0, 300.0, 325.0, 655.0, 789.0):
+        touched = [rows for lo, hi, rows in spans if hi >= t0 and lo <= t0 + 10.0]
+        # At most two row groups of 2**17 rows (328 s at 400 Hz) per stream: about 20 ms
+        # for a 10 s zoom of 22 columns (benchmarks/bench_dashboard.py, eight-hour run),
+        # where groups of 2**20 rows took 100 ms of the 200 ms zoom budget.
+        assert len(touched) <= 2 and sum(touched) <= 2 * 131_072
+        window = archive.load_frame(run_id, ["roll"], t0, t0 + 10.0)
+        # 10 s at 2.5 ms: 4,001 samples, both ends included.
+        assert len(window) == 4001
