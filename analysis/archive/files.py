@@ -121,11 +121,19 @@ def _last_t(batch: pa.RecordBatch) -> float:
     return float(batch.column(0)[batch.num_rows - 1].as_py())
 
 
+#: Rows per row group of a frame written in parts at most: 65,536 (164 s at 400 Hz).
+#: A dashboard zoom on a long run decodes every row group of the derived series its
+#: window touches; the analysis's 10-minute parts (240,000 rows at 400 Hz) took
+#: 30 to 190 ms of the 200 ms zoom budget on an eight-hour run.
+PART_ROW_GROUP_ROWS = 1 << 16
+
+
 class FrameWriter:
     """Write a frame to Parquet in parts, as :func:`write_frame` would write it whole.
 
     For frames of plain columns (numbers, bool, text; no dict/list cells). Each
-    part becomes a row group; every part must have the first part's columns.
+    part becomes one or more row groups of at most :data:`PART_ROW_GROUP_ROWS`
+    rows; every part must have the first part's columns.
     """
 
     def __init__(self, path: Path) -> None:
@@ -146,7 +154,7 @@ class FrameWriter:
                 self.path, schema, compression="zstd", use_dictionary=dictionary
             )
         table = table.cast(self._writer.schema)
-        self._writer.write_table(table)
+        self._writer.write_table(table, row_group_size=PART_ROW_GROUP_ROWS)
         self.rows += table.num_rows
 
     def close(self) -> None:
