@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import os
 import tempfile
+from collections.abc import Iterable
 from pathlib import Path
 from typing import Any
 
@@ -272,9 +273,36 @@ def distance(t: np.ndarray, vel_x: np.ndarray) -> float:
     """
     if len(t) < 2:
         return 0.0
-    d = np.diff(t)
-    period = float(np.median(d))
-    v = np.abs(vel_x)
-    seg = 0.5 * (v[1:] + v[:-1]) * d
-    ok = np.isfinite(seg) & (d <= GAP_FACTOR * period)
-    return float(seg[ok].sum())
+    return distance_in_parts([(t, vel_x)], float(np.median(np.diff(t))))
+
+
+def distance_in_parts(parts: Iterable[tuple[np.ndarray, np.ndarray]], period: float) -> float:
+    """:func:`distance` fed in consecutive parts (``t``, ``vel_x``), in bounded memory.
+
+    Parameters
+    ----------
+    parts : iterable of (ndarray, ndarray)
+        Consecutive pieces of the sorted time [s] and forward velocity [m/s].
+    period : float
+        Median sample interval of the whole column (the gap rule's unit). [s]
+
+    Returns
+    -------
+    float
+        Distance; each step between two parts counted once. [m]
+    """
+    total = 0.0
+    prev_t = prev_v = None
+    for t, vel_x in parts:
+        if not len(t):
+            continue
+        t = np.asarray(t, dtype=float)
+        v = np.abs(np.asarray(vel_x, dtype=float))
+        if prev_t is not None:
+            t, v = np.concatenate(([prev_t], t)), np.concatenate(([prev_v], v))
+        d = np.diff(t)
+        seg = 0.5 * (v[1:] + v[:-1]) * d
+        ok = np.isfinite(seg) & (d <= GAP_FACTOR * period)
+        total += float(seg[ok].sum())
+        prev_t, prev_v = t[-1], v[-1]
+    return total

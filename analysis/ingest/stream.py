@@ -59,7 +59,7 @@ from analysis.ingest.identity import (
 from analysis.ingest.order import (
     ROW_GROUP_ROWS,
     dictionary_columns,
-    distance,
+    distance_in_parts,
     duplicate_masks,
     late_rows,
     open_writer,
@@ -604,7 +604,8 @@ def _every_kth_row(path: Path, columns: list[str]) -> dict[str, np.ndarray]:
         tab = pf.read_row_group(i, columns=columns)
         first = (-start) % k
         for c in columns:
-            parts[c].append(tab.column(c).to_numpy(zero_copy_only=False)[first::k])
+            # a copy: a strided view would keep the whole decoded row group alive
+            parts[c].append(tab.column(c).to_numpy(zero_copy_only=False)[first::k].copy())
         start += tab.num_rows
         del tab
     return {c: np.concatenate(p) if p else np.zeros(0) for c, p in parts.items()}
@@ -639,12 +640,21 @@ def _build_meta(
     distance_m = None
     for sname, r in report.items():
         if catalogue.VEL_X in r["signals"]:
-            tab = pq.read_table(
-                staging / "streams" / f"{sname}.parquet", columns=[catalogue.T, catalogue.VEL_X]
+            rate = r.get("rate_hz")
+            if not rate:
+                continue
+            # one row group at a time: an 8-hour stream's two columns would be 0.2 GB
+            pf = pq.ParquetFile(staging / "streams" / f"{sname}.parquet")
+            parts = (
+                (
+                    b.column(0).to_numpy(),
+                    b.column(1).to_numpy(zero_copy_only=False),
+                )
+                for b in pf.iter_batches(
+                    batch_size=ROW_GROUP_ROWS, columns=[catalogue.T, catalogue.VEL_X]
+                )
             )
-            distance_m = distance(
-                tab.column(0).to_numpy(), tab.column(1).to_numpy(zero_copy_only=False)
-            )
+            distance_m = distance_in_parts(parts, 1.0 / float(rate))
     streams = [
         {
             "name": s,
