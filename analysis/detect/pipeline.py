@@ -19,6 +19,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
+import pyarrow.parquet as pq
 
 from analysis import __version__, catalogue
 from analysis.archive.courses import course_start_line
@@ -348,6 +349,19 @@ def _analyse_run_chunked(
 MAX_LAP_SAMPLES = 2_000_000
 
 
+def lap_frame_columns(profile: RobotProfile) -> list[str]:
+    """The frame columns that finding laps and their KPIs read (:mod:`analysis.laps`,
+    :mod:`analysis.lap_kpis`): speed and yaw rate for the course shape, pitch rate for
+    wheel odometry against the leg, each actuator's velocity and torque for the energy."""
+    names = [catalogue.T, catalogue.YAW_RATE, catalogue.VEL_X, catalogue.PITCH_RATE]
+    for a in profile.actuators:
+        names += [
+            catalogue.actuator_signal(a.name, q)
+            for q in (catalogue.VEL, catalogue.TORQUE, catalogue.TORQUE_CMD)
+        ]
+    return names
+
+
 def _laps_of_chunked_run(
     archive: Archive,
     run_id: str,
@@ -363,8 +377,11 @@ def _laps_of_chunked_run(
             f"{MAX_LAP_SAMPLES:,} the lap KPIs can hold in memory at once."
         )
         return {}
-    frame = archive.load_frame(run_id)
-    series = pd.read_parquet(series_path)
+    frame = archive.load_frame(run_id, columns=lap_frame_columns(profile))
+    wanted = [catalogue.T, catalogue.TIP_MARGIN, catalogue.ROLL_ERROR]
+    wanted += [f"{a.name}.{catalogue.SATURATED}" for a in profile.actuators]
+    have = set(pq.ParquetFile(series_path).schema_arrow.names)
+    series = pd.read_parquet(series_path, columns=[c for c in wanted if c in have])
     start = course_start_line(archive.root, archive.get_meta(run_id).get("course"))
     return lap_report(
         frame,

@@ -8,6 +8,7 @@ inside turns and events, and a check asserts that events do straddle them.
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
@@ -200,6 +201,22 @@ def test_analyse_run_in_chunks_stores_whole_run_results(archived_run):
             np.testing.assert_allclose(b, a, rtol=0, atol=RMS_ABS, err_msg=name)
         else:
             np.testing.assert_array_equal(b, a, err_msg=name)
+
+
+def test_laps_of_a_chunked_run_equal_those_of_one_pass(tmp_path):
+    """Laps of a chunked run come from the lap columns alone (pipeline.lap_frame_columns),
+    not the whole frame: the same laps and per-lap KPIs as the one pass."""
+    from tests.server.lap_archive import store_lap_run
+
+    archive = Archive(tmp_path / "archive")
+    run_id = store_lap_run(archive, tmp_path / "in", "lean-ctl 2.0", 52, 0.015)  # one pass
+    whole = load_analysis(archive, run_id)
+    assert len(whole["laps"]["kpis"]) >= 8, "the ring run should have laps to compare"
+    part = analyse_run(archive, run_id, chunk_s=23.9)
+    assert part.series.empty  # analysed in chunks
+    stored = load_analysis(archive, run_id)
+    assert "pipeline" not in stored["notes"]
+    assert json.dumps(stored["laps"], sort_keys=True) == json.dumps(whole["laps"], sort_keys=True)
 
 
 @pytest.mark.parametrize("jitter", [False, True])
