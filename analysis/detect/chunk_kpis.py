@@ -19,6 +19,7 @@ reported with chunk-local KPIs.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -80,6 +81,69 @@ def _share_durations(t: np.ndarray, cond: np.ndarray, valid: np.ndarray, acc: _S
     acc.inside += float(w[cond & valid].sum())
 
 
+#: The percentile of the tip margin reported (``p1_margin``). [%]
+P1 = 1.0
+
+
+def lowest_needed(samples: int, q: float = P1) -> int:
+    """How many of the lowest of at most ``samples`` values the ``q``-th percentile reads.
+
+    numpy's default (linear) percentile of n values interpolates between the sorted
+    values at ``floor(h)`` and ``floor(h) + 1`` with ``h = q / 100 (n - 1)``
+    (numpy.percentile, method "linear"; Hyndman and Fan (1996) definition 7).
+    """
+    return int(math.floor(q / 100.0 * max(samples - 1, 0))) + 2
+
+
+class LowestValues:
+    """The lowest values of a stream seen in parts, for an exact low percentile.
+
+    Keeps at most ``keep`` values (all when None), so that the 1st percentile of an
+    8-hour run needs 1 % of its samples in memory, not all of them.
+    """
+
+    def __init__(self, keep: int | None) -> None:
+        self.keep = keep
+        self.count = 0
+        self._parts: list[np.ndarray] = []
+        self._held = 0
+
+    def add(self, values: np.ndarray) -> None:
+        """Add values (no NaN)."""
+        self.count += int(values.size)
+        self._parts.append(np.array(values, dtype=float, copy=True))
+        self._held += int(values.size)
+        if self.keep is not None and self._held > 2 * self.keep:
+            self._shrink()
+
+    def _shrink(self) -> None:
+        v = np.concatenate(self._parts)
+        if self.keep is not None and v.size > self.keep:
+            v = np.partition(v, self.keep - 1)[: self.keep]
+        self._parts, self._held = [v], int(v.size)
+
+    def percentile(self, q: float) -> float:
+        """``numpy.percentile(all values, q)`` (method "linear"), bit for bit."""
+        if not self.count:
+            return float("nan")
+        self._shrink()
+        v = np.sort(self._parts[0])
+        n = self.count
+        h = q / 100.0 * (n - 1)
+        lo = int(math.floor(h))
+        hi = min(lo + 1, n - 1)
+        if hi >= v.size:
+            raise ValueError(
+                f"the {q:g}th percentile of {n} values needs the lowest {hi + 1}; "
+                f"only {v.size} were kept"
+            )
+        a, b, t = v[lo], v[hi], h - lo
+        # numpy's _lerp: a + (b - a) t, from the upper end when t >= 0.5 (numpy 2.x,
+        # numpy/lib/_function_base_impl.py)
+        d = b - a
+        return float(b - d * (1.0 - t) if t >= 0.5 else a + d * t)
+
+
 @dataclass
 class ChunkKpis:
     """Sums and extremes of every detector's KPIs, fed one chunk core at a time.
@@ -94,8 +158,14 @@ class ChunkKpis:
     t_first: float
     first_kpis: dict[str, Any]
     sums: dict[str, Any] = field(default_factory=dict)
-    margins: list[np.ndarray] = field(default_factory=list)
+    #: Samples of the whole run (an upper bound of the valid margins), so that only the
+    #: lowest margins the 1st percentile can need are kept; None keeps every margin.
+    samples: int | None = None
+    margins: LowestValues = field(init=False)
     unsupported_samples: int = 0
+
+    def __post_init__(self) -> None:
+        self.margins = LowestValues(None if self.samples is None else lowest_needed(self.samples))
 
     def _get(self, key: str, make: Any) -> Any:
         if key not in self.sums:
@@ -245,7 +315,7 @@ class ChunkKpis:
         self.unsupported_samples += int(unsupported[own].sum())
         tv, mv, yv = t[own][valid[own]], margin[own][valid[own]], y_zmp[own][valid[own]]
         if mv.size:
-            self.margins.append(mv)
+            self.margins.add(mv)
             k = int(np.argmin(mv))
             self._get("tip.min", _Extreme).offer(float(mv[k]), float(tv[k]), lower=True)
             ok = np.isfinite(yv)
@@ -268,7 +338,7 @@ class ChunkKpis:
         return {
             "min_margin": low.value,
             "min_margin_t_s": low.t_s,
-            "p1_margin": float(np.percentile(np.concatenate(self.margins), 1.0)),
+            "p1_margin": self.margins.percentile(P1),
             "time_below_s": below.inside,
             "share_below": below.inside / below.total if below.total > 0 else float("nan"),
             "side_of_min": _side(side.extra) if np.isfinite(side.value) else None,

@@ -59,6 +59,15 @@ class _Grid:
         return vals, inside
 
 
+def _uniform(t: np.ndarray, dt: float, block: int = 1 << 20) -> bool:
+    """Every step of ``t`` within 1e-6 dt of ``dt`` (checked a block at a time). [s]"""
+    for a in range(0, max(t.size - 1, 0), block):
+        steps = np.diff(t[a : a + block + 1])
+        if not np.all(np.abs(steps - dt) <= 1e-6 * dt):
+            return False
+    return True
+
+
 def lag_in_chunks(
     read: Reader,
     t_all: np.ndarray,
@@ -90,9 +99,7 @@ def lag_in_chunks(
     dt = med
     if not dt > 0:
         return LagEstimate(float("nan"), float("nan"), False, "time base does not increase")
-    steps = np.diff(t_all)
-    uniform = bool(np.all(np.abs(steps - dt) <= 1e-6 * dt))
-    del steps
+    uniform = _uniform(t_all, dt)
     t0 = float(t_all[0])
     n = n_t if uniform else int(np.floor((t_all[-1] - t0) / dt)) + 1
     max_k = min(n - 1, max(1, int(np.floor(max_lag_s / dt))))

@@ -60,9 +60,10 @@ from analysis.metrics import FILTER_ORDER
 from analysis.overview import OVERVIEW_BUCKETS, RunOverview, SignalOverview, _as_float
 from analysis.profile import RobotProfile, Thresholds
 
-#: Core length of one chunk: 10 minutes of 400 Hz logs is about 0.15 GB of
-#: frame and derived series. [s]
-CHUNK_S = 600.0
+#: Core length of one chunk: 5 minutes of 400 Hz logs is about 0.1 GB of frame and
+#: derived series, and a few times that for the detectors' intermediate arrays; the
+#: margin either side (about 11 s with the demo profile) adds some 8 % of reading. [s]
+CHUNK_S = 300.0
 #: Time constants of the slowest filter pole in the margin (exp(-40) = 4e-18). [-]
 SETTLE_TIME_CONSTANTS = 40.0
 
@@ -434,7 +435,7 @@ def analyse_in_chunks(
                 raise NotChunkableError(
                     f"no chunked KPIs for detector(s) {', '.join(sorted(unknown))}"
                 )
-            kpis_acc = ChunkKpis(profile, th, t_first, res.kpis)
+            kpis_acc = ChunkKpis(profile, th, t_first, res.kpis, samples=int(t_all.size))
         elif sig[:2] != first_sig[:2] or _methods(res.kpis) != _methods(kpis_acc.first_kpis):  # type: ignore[union-attr]
             raise NotChunkableError(
                 f"the chunk from t = {core_lo:.1f} s ran other detectors or methods than the first"
@@ -485,7 +486,7 @@ def analyse_in_chunks(
 
         nan = (float("nan"), float("nan"))
         span = (*spans.get(cat.ROLL_REF, nan), *spans.get(cat.ROLL, nan))
-        lag = lag_in_chunks(read, t_all, lambda: span, th.roll_lag_max_s, 4 * chunk_s, median_dt)
+        lag = lag_in_chunks(read, t_all, lambda: span, th.roll_lag_max_s, chunk_s, median_dt)
         _roll_lag(notes, kpis["roll"], lag, th)
     return ChunkedAnalysis(
         events,

@@ -157,6 +157,8 @@ def analyse_frame(
     thresholds: Thresholds | None = None,
     progress: Progress | None = None,
     lap_start_m: float | None = None,
+    *,
+    laps: bool = True,
 ) -> AnalysisResult:
     """Run every detector on one analysis frame.
 
@@ -172,6 +174,9 @@ def analyse_frame(
         Called with (fraction done [-], message).
     lap_start_m : float, optional
         Start line of the laps, from the run's start (stored for its course). [m]
+    laps : bool
+        Look for laps (False for a chunk of a longer run, whose laps are found once
+        the whole run is done).
 
     Returns
     -------
@@ -184,7 +189,9 @@ def analyse_frame(
     kpis: dict[str, Any] = {}
     skipped: list[dict[str, str]] = []
     notes: dict[str, list[str]] = {}
-    series = pd.DataFrame({catalogue.T: frame[catalogue.T].to_numpy(dtype=float)})
+    base = pd.DataFrame({catalogue.T: frame[catalogue.T].to_numpy(dtype=float)})
+    parts: list[pd.DataFrame] = []  # joined once at the end, not copied detector by detector
+    names = {catalogue.T}
     for i, (name, detect) in enumerate(DETECTORS):
         if progress:
             progress(i / len(DETECTORS), f"running detector {name}")
@@ -198,24 +205,28 @@ def analyse_frame(
         kpis[name] = result.kpis
         if not result.series.empty:
             extra = result.series.drop(columns=[catalogue.T], errors="ignore")
-            if len(extra) != len(series):
+            if len(extra) != len(base):
                 raise ValueError(
                     f"Detector {name} returned {len(extra)} series rows for a frame of "
-                    f"{len(series)}; derived series must share the frame's time base."
+                    f"{len(base)}; derived series must share the frame's time base."
                 )
-            extra = extra.loc[:, [c for c in extra.columns if c not in series.columns]]
-            series = pd.concat([series, extra.reset_index(drop=True)], axis=1)
+            extra = extra.loc[:, [c for c in extra.columns if c not in names]]
+            names.update(extra.columns)
+            parts.append(extra.reset_index(drop=True))
+    series = pd.concat([base, *parts], axis=1) if parts else base
     events.sort(key=lambda e: (e.start_s, e.kind, e.channel or ""))
     if progress:
         progress(0.98, "finding laps")
-    laps = lap_report(
-        frame,
-        series,
-        events,
-        profile,
-        find_laps(frame, profile, lap_start_m),
-        [s["detector"] for s in skipped],
-    )
+    lap_result: dict[str, Any] = {}
+    if laps:
+        lap_result = lap_report(
+            frame,
+            series,
+            events,
+            profile,
+            find_laps(frame, profile, lap_start_m),
+            [s["detector"] for s in skipped],
+        )
     if progress:
         progress(1.0, "analysis done")
     return AnalysisResult(
@@ -225,7 +236,7 @@ def analyse_frame(
         skipped=skipped,
         notes=notes,
         thresholds=th.to_file_dict(),
-        laps=laps,
+        laps=lap_result,
     )
 
 
@@ -312,7 +323,7 @@ def _analyse_run_chunked(
             t_all,
             profile,
             th,
-            lambda frame: analyse_frame(frame, profile, th),
+            lambda frame: analyse_frame(frame, profile, th, laps=False),
             writer.write,
             load_columns=lambda names, t0, t1: archive.load_frame(
                 run_id, columns=names, t0=t0, t1=t1

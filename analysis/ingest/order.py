@@ -292,17 +292,17 @@ def distance_in_parts(parts: Iterable[tuple[np.ndarray, np.ndarray]], period: fl
         Distance; each step between two parts counted once. [m]
     """
     total = 0.0
-    prev_t = prev_v = None
+    prev: tuple[float, float] | None = None
     for t, vel_x in parts:
         if not len(t):
             continue
         t = np.asarray(t, dtype=float)
         v = np.abs(np.asarray(vel_x, dtype=float))
-        if prev_t is not None:
-            t, v = np.concatenate(([prev_t], t)), np.concatenate(([prev_v], v))
+        if prev is not None:
+            t, v = np.concatenate(([prev[0]], t)), np.concatenate(([prev[1]], v))
         d = np.diff(t)
         seg = 0.5 * (v[1:] + v[:-1]) * d
         ok = np.isfinite(seg) & (d <= GAP_FACTOR * period)
         total += float(seg[ok].sum())
-        prev_t, prev_v = t[-1], v[-1]
+        prev = (float(t[-1]), float(v[-1]))
     return total

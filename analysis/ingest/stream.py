@@ -646,12 +646,10 @@ def _build_meta(
             # one row group at a time: an 8-hour stream's two columns would be 0.2 GB
             pf = pq.ParquetFile(staging / "streams" / f"{sname}.parquet")
             parts = (
-                (
-                    b.column(0).to_numpy(),
-                    b.column(1).to_numpy(zero_copy_only=False),
-                )
-                for b in pf.iter_batches(
-                    batch_size=ROW_GROUP_ROWS, columns=[catalogue.T, catalogue.VEL_X]
+                (g.column(0).to_numpy(), g.column(1).to_numpy(zero_copy_only=False))
+                for g in (
+                    pf.read_row_group(i, columns=[catalogue.T, catalogue.VEL_X])
+                    for i in range(pf.num_row_groups)
                 )
             )
             distance_m = distance_in_parts(parts, 1.0 / float(rate))
