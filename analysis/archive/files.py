@@ -137,8 +137,8 @@ def _last_t(batch: pa.RecordBatch) -> float:
 
 #: Rows per row group of a frame written in parts at most: 65,536 (164 s at 400 Hz).
 #: A dashboard zoom on a long run decodes every row group of the derived series its
-#: window touches; the analysis's 10-minute parts (240,000 rows at 400 Hz) took
-#: 30 to 190 ms of the 200 ms zoom budget on an eight-hour run.
+#: window touches; a 10-minute part (240,000 rows at 400 Hz) in one row group took 30
+#: to 190 ms of the 200 ms zoom budget on an eight-hour run.
 PART_ROW_GROUP_ROWS = 1 << 16
 
 
