@@ -11,6 +11,7 @@ import math
 import os
 import secrets
 from collections.abc import Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
 from contextlib import suppress
 from datetime import datetime
 from pathlib import Path
@@ -150,13 +151,30 @@ class FrameWriter:
     rows; every part must have the first part's columns.
     """
 
-    def __init__(self, path: Path) -> None:
+    def __init__(self, path: Path, background: bool = False) -> None:
         self.path = path
         self._writer: pq.ParquetWriter | None = None
         self.rows = 0
+        # background: one part is converted and compressed on a thread while the caller
+        # goes on (pyarrow lets go of the GIL to compress); at most one part waits.
+        self._pool = ThreadPoolExecutor(1, "frame-writer") if background else None
+        self._pending: Future[None] | None = None
 
     def write(self, frame: pd.DataFrame) -> None:
-        """Append the rows of ``frame``."""
+        """Append the rows of ``frame`` (in the background: after the part before it)."""
+        if self._pool is None:
+            self._write(frame)
+            return
+        self.wait()
+        self._pending = self._pool.submit(self._write, frame)
+
+    def wait(self) -> None:
+        """Wait for a part being written in the background; raise what its writing raised."""
+        pending, self._pending = self._pending, None
+        if pending is not None:
+            pending.result()
+
+    def _write(self, frame: pd.DataFrame) -> None:
         table = pa.Table.from_pandas(frame, preserve_index=False)
         if self._writer is None:
             schema = table.schema.with_metadata(
@@ -173,6 +191,12 @@ class FrameWriter:
 
     def close(self) -> None:
         """Finish the file (an empty frame's file if nothing was written)."""
+        try:
+            self.wait()
+        finally:
+            if self._pool is not None:
+                self._pool.shutdown(wait=True)
+                self._pool = None
         if self._writer is None:
             write_frame(pd.DataFrame(), self.path)
             return

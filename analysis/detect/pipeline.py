@@ -316,22 +316,24 @@ def _analyse_run_chunked(
     staging = archive.new_staging()
     try:
         path = staging / "series.parquet"
-        writer = FrameWriter(path)
+        writer = FrameWriter(path, background=True)  # written while the next chunk runs
         cache = RowGroupCache()  # each row group decoded once as the chunks move on
-        done = analyse_in_chunks(
-            lambda t0, t1: archive.load_frame(run_id, t0=t0, t1=t1, cache=cache),
-            t_all,
-            profile,
-            th,
-            lambda frame: analyse_frame(frame, profile, th, laps=False),
-            writer.write,
-            load_columns=lambda names, t0, t1: archive.load_frame(
-                run_id, columns=names, t0=t0, t1=t1
-            ),
-            chunk_s=chunk_s,
-            progress=progress,
-        )
-        writer.close()
+        try:
+            done = analyse_in_chunks(
+                lambda t0, t1: archive.load_frame(run_id, t0=t0, t1=t1, cache=cache),
+                t_all,
+                profile,
+                th,
+                lambda frame: analyse_frame(frame, profile, th, laps=False),
+                writer.write,
+                load_columns=lambda names, t0, t1: archive.load_frame(
+                    run_id, columns=names, t0=t0, t1=t1
+                ),
+                chunk_s=chunk_s,
+                progress=progress,
+            )
+        finally:
+            writer.close()  # also on an error: no thread left writing into the staging
         if progress:
             progress(1.0, "analysis done")
         laps = _laps_of_chunked_run(archive, run_id, profile, done, path, t_all.size)

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 import pyarrow.parquet as pq
+import pytest
 
 from analysis import catalogue as cat
 from analysis.archive.files import FrameWriter, read_frame
@@ -41,3 +43,30 @@ def test_parts_are_split_into_small_row_groups_and_read_back_whole(tmp_path) -> 
         window = read_frame(path, filters=[(cat.T, ">=", t0), (cat.T, "<=", t0 + 12.0)])
         # 12 s at 2.5 ms: 4,801 samples, both ends included.
         assert len(window) == 4801
+
+
+def test_a_background_writer_writes_the_same_file(tmp_path) -> None:
+    rng = np.random.default_rng(5)
+    parts = [
+        pd.DataFrame({cat.T: k * 1000.0 + np.arange(5000) / 400.0, "x": rng.normal(size=5000)})
+        for k in range(4)
+    ]
+    tables = []
+    for background in (False, True):
+        path = tmp_path / f"bg{background}.parquet"
+        writer = FrameWriter(path, background=background)
+        for part in parts:
+            writer.write(part)
+        writer.close()
+        tables.append(pq.read_table(path))
+    assert tables[1].equals(tables[0])
+    assert tables[1].num_rows == 20_000
+
+
+def test_an_error_in_the_background_reaches_the_caller(tmp_path) -> None:
+    writer = FrameWriter(tmp_path / "s.parquet", background=True)
+    writer.write(pd.DataFrame({cat.T: [0.0, 1.0], "x": [1.0, 2.0]}))
+    writer.write(pd.DataFrame({cat.T: [2.0, 3.0], "x": ["a", "b"]}))  # cannot be cast
+    # pyarrow's cast error, raised on the writing thread, reaches the caller's close()
+    with pytest.raises(pa.ArrowInvalid, match="as a scalar of type double"):
+        writer.close()
