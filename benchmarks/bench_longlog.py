@@ -19,8 +19,11 @@ Prints wall time, CPU time (user + system of the child) and peak RSS of each,
 and the ratios ingest / reference and analyse / reference (wall and CPU).
 Goals (issue 12): ingest <= 1.2x, analysis <= 5x, peak RSS <= 1 GiB.
 
-Run: ``.venv/bin/python benchmarks/bench_longlog.py [--eight-hours] [--minutes N]``
-(``--minutes`` replaces the one-hour log by a shorter one, for a quick check).
+Run: ``.venv/bin/python benchmarks/bench_longlog.py [--eight-hours] [--minutes N]
+[--keep] [--steps a,b]`` (``--minutes`` replaces the one-hour log by a shorter one, for
+a quick check; ``--keep`` keeps the logs and archives, so that the next run skips
+writing the logs; ``--steps`` runs some of the four steps, ``analyse`` needing an
+ingest kept from an earlier run).
 Files go to ``bench-output/longlog/`` (git-ignored); the 8-hour CSVs take about
 2.5 GB of disk.
 """

@@ -590,8 +590,8 @@ def _plausibility(
 
 #: Rows the plausibility checks look at, at most: a longer stream is read one row
 #: group at a time and every k-th row kept, so that an 8-hour log needs no more memory
-#: than a 90-minute one (unit and sign heuristics do not need every sample). [-]
-PLAUSIBILITY_MAX_ROWS = 1 << 21
+#: than a 45-minute one at 400 Hz (unit and sign heuristics do not need every sample). [-]
+PLAUSIBILITY_MAX_ROWS = 1 << 20
 
 
 def _every_kth_row(path: Path, columns: list[str]) -> dict[str, np.ndarray]:
