@@ -291,6 +291,30 @@ def test_parquet_input(tmp_path):
     assert out.report["state"]["duration_s"] == pytest.approx(0.7475, abs=1e-9)
 
 
+@pytest.mark.parametrize("group_rows", [None, 70, 1])
+def test_parquet_input_in_row_groups_keeps_every_row_and_its_number(tmp_path, group_rows):
+    """Read one row group at a time: rows in order, and a bad row named by its number."""
+    n = 300
+    stamps = (START_US + np.arange(n) * STATE_PERIOD_US).astype(float)
+    stamps[149] = np.nan  # row 150 (rows numbered from 1): an empty time cell
+    table = pa.table(
+        {
+            "stamp_us": pa.array(stamps, mask=np.isnan(stamps)).cast(pa.int64()),
+            "roll_deg": pa.array(np.linspace(-5, 5, n)),
+            "speed": pa.array(np.full(n, 2.0)),
+        }
+    )
+    path = tmp_path / "g_state.parquet"
+    pq.write_table(table, path, row_group_size=group_rows)
+    assert pq.ParquetFile(path).num_row_groups == (1 if group_rows is None else -(-n // group_rows))
+    archive = Archive(tmp_path / "data")
+    out = ingest_files(archive, [path], _map(tmp_path), PROFILE)
+    roll = np.delete(np.radians(np.linspace(-5, 5, n)), 149)
+    assert _stream(archive, out.run_id)["roll"].to_numpy() == pytest.approx(roll, rel=1e-14)
+    assert out.report["state"]["skipped_lines"]["count"] == 1
+    assert out.report["state"]["skipped_lines"]["lines"][0]["row"] == 150
+
+
 def test_gaps_are_found_never_filled(tmp_path):
     lines = state_lines(600)
     del lines[2 + 200 : 2 + 260]  # 60 missing samples = 150 ms at 400 Hz
