@@ -10,7 +10,6 @@ import json
 import math
 import os
 import secrets
-from collections.abc import Iterator
 from concurrent.futures import Future, ThreadPoolExecutor
 from contextlib import suppress
 from datetime import datetime
@@ -23,6 +22,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
+from analysis.ingest.order import row_group_batches
 from analysis.profile import Actuator, ComModel, MotorConstants, RobotProfile, Thresholds
 
 _JSON_COLUMNS_KEY = b"outrigger.json_columns"
@@ -79,7 +79,7 @@ class RowGroupCache:
             or (lo is not None and state[2] and _first_t(state[2][0]) > lo)
         ):
             pf = pq.ParquetFile(path)
-            batches = _batches_by_row_group(pf, list(cols), self.BATCH_ROWS)
+            batches = row_group_batches(pf, list(cols), self.BATCH_ROWS)
             held, done, schema = [], False, pf.schema_arrow
             self._dropped[key] = -math.inf
         else:
@@ -113,19 +113,6 @@ class RowGroupCache:
             upper = pc.less_equal(t, hi)
             mask = upper if mask is None else pc.and_(mask, upper)
         return table if mask is None else table.filter(mask)
-
-
-def _batches_by_row_group(
-    pf: pq.ParquetFile, columns: list[str], rows: int
-) -> Iterator[pa.RecordBatch]:
-    """The file's batches, read one row group at a time.
-
-    Not ``ParquetFile.iter_batches``: with pyarrow 26 its reader held on to memory
-    as it went, about 330 MiB more at the end of an 8-hour stream of 107 row
-    groups; read row group by row group, what is held stays flat (measured, no source).
-    """
-    for i in range(pf.num_row_groups):
-        yield from pf.read_row_group(i, columns=columns).to_batches(max_chunksize=rows)
 
 
 def _first_t(batch: pa.RecordBatch) -> float:

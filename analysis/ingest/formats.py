@@ -18,6 +18,7 @@ import pyarrow.json as pajson
 import pyarrow.parquet as pq
 
 from analysis.errors import IngestError
+from analysis.ingest.order import row_group_batches
 from analysis.ingest.read import (
     PARQUET_BATCH_ROWS,
     BadLines,
@@ -108,17 +109,7 @@ def iter_parquet(
     bad.unit = "row"
     row0 = 1
     total = max(pf.metadata.num_rows, 1)
-    # One reader per row group: a single reader over the whole file held on to memory
-    # as it went with pyarrow 26 (about 100 MiB over 6M rows of 13 columns); one per row
-    # group stays flat and still streams within a large row group (measured, no source).
-    batches = (
-        batch
-        for group in range(pf.num_row_groups)
-        for batch in pf.iter_batches(
-            batch_size=PARQUET_BATCH_ROWS, columns=list(types), row_groups=[group]
-        )
-    )
-    for batch in batches:
+    for batch in row_group_batches(pf, list(types), PARQUET_BATCH_ROWS):
         table = pa.Table.from_batches([batch])
         arrays = {}
         for c, t in types.items():

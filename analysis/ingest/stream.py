@@ -64,6 +64,7 @@ from analysis.ingest.order import (
     late_rows,
     open_writer,
     rewrite_stream,
+    row_group_batches,
     time_stats,
 )
 from analysis.ingest.plausibility import check_time_base, check_values
@@ -646,11 +647,8 @@ def _build_meta(
             # one row group at a time: an 8-hour stream's two columns would be 0.2 GB
             pf = pq.ParquetFile(staging / "streams" / f"{sname}.parquet")
             parts = (
-                (g.column(0).to_numpy(), g.column(1).to_numpy(zero_copy_only=False))
-                for g in (
-                    pf.read_row_group(i, columns=[catalogue.T, catalogue.VEL_X])
-                    for i in range(pf.num_row_groups)
-                )
+                (b.column(0).to_numpy(), b.column(1).to_numpy(zero_copy_only=False))
+                for b in row_group_batches(pf, [catalogue.T, catalogue.VEL_X], ROW_GROUP_ROWS)
             )
             distance_m = distance_in_parts(parts, 1.0 / float(rate))
     streams = [
