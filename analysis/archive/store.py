@@ -538,9 +538,9 @@ class Archive:
 
         base_tab = read(base["name"], [s for _, s in by_stream.get(base["name"], [])], t0)
         t = base_tab.column(catalogue.T).to_numpy()
-        out: dict[str, Any] = {catalogue.T: t}
+        got: dict[str, Any] = {}
         for name, stored in by_stream.get(base["name"], []):
-            out[name] = base_tab.column(stored)
+            got[name] = base_tab.column(stored)
         for stream, pairs in by_stream.items():
             if stream == base["name"]:
                 continue
@@ -549,10 +549,9 @@ class Archive:
             tab = read(stream, [s for _, s in pairs], None if t0 is None else t0 - tol)
             take = asof_indices(t, tab.column(catalogue.T).to_numpy(), tol)
             for name, stored in pairs:
-                col = tab.column(stored)
-                out[name] = col.take(take)
-        frame = pa.table({k: v for k, v in out.items()}).to_pandas()
-        return frame[[catalogue.T, *[c for c in wanted]]]
+                got[name] = tab.column(stored).take(take)
+        # built in the wanted order: reordering the pandas frame afterwards copies it
+        return pa.table({catalogue.T: t, **{c: got[c] for c in wanted}}).to_pandas()
 
     def _read_stream(
         self, run_dir: Path, rel: str, columns: list[str], filters: list[Any] | None

@@ -46,7 +46,7 @@ import math
 import re
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, overload
 
 import numpy as np
 import pandas as pd
@@ -194,6 +194,7 @@ class OverviewBuilder:
                 g = np.flatnonzero(dt > GAP_FACTOR * self.median_dt)
                 self.gap_breaks.append(0.5 * (tt[g] + tt[g + 1]))
         bucket = self._bucket(t)
+        whole = _BucketRuns(bucket)  # shared by the signals without NaN in these rows
         for name in table.columns:
             if name == cat.T:
                 continue
@@ -214,7 +215,7 @@ class OverviewBuilder:
                 y = _as_float(table[name])
                 if y is None:
                     continue
-            self._add_signal(acc, t, y, bucket)
+            self._add_signal(acc, t, y, bucket, whole)
         if source == "frame":
             self.prev_t = float(t[-1])
             self.rows += t.size
@@ -230,37 +231,88 @@ class OverviewBuilder:
         self._frame_names = frozenset(n for n, a in self.signals.items() if a.source == "frame")
         self._frozen = True
 
-    def _add_signal(self, acc: _SignalAcc, t: np.ndarray, y: np.ndarray, bucket: np.ndarray):
+    def _add_signal(
+        self,
+        acc: _SignalAcc,
+        t: np.ndarray,
+        y: np.ndarray,
+        bucket: np.ndarray,
+        whole: _BucketRuns,
+    ) -> None:
         nan = np.isnan(y)
-        valid_idx = np.flatnonzero(~nan)
-        acc.samples += int(valid_idx.size)
-        if nan.any():
-            acc.any_nan = True
+        if not nan.any():
+            self._add_whole_signal(acc, t, y, bucket, whole)
+            return
+        acc.any_nan = True
+        valid = ~nan
+        n_valid = int(np.count_nonzero(valid))
+        acc.samples += n_valid
         # Interior NaN runs (as overview.nan_run_breaks): between consecutive valid samples
         # with at least one NaN between them, break if the span is longer than a gap.
-        if valid_idx.size:
-            gi = valid_idx + acc.seen
-            prev_i = np.concatenate(([acc.last_valid_i], gi[:-1]))
-            prev_t = np.concatenate(([acc.last_valid_t], t[valid_idx[:-1]]))
-            after_t = t[valid_idx]
-            has_nan = (gi - prev_i > 1) & (prev_i >= 0)
-            long = has_nan & ((after_t - prev_t) > GAP_FACTOR * self.median_dt)
-            if long.any():
-                acc.breaks.append(0.5 * (prev_t[long] + after_t[long]))
-            acc.last_valid_i = int(gi[-1])
-            acc.last_valid_t = float(t[valid_idx[-1]])
+        edge = np.flatnonzero(valid[1:] != valid[:-1]) + 1
+        after = edge[valid[edge]]  # first valid row after each NaN run
+        before = edge[nan[edge]] - 1  # last valid row before each NaN run
+        prev_t = t[before]
+        if nan[0]:  # a NaN run from the first row: after the previous chunk's last valid
+            prev_t = np.concatenate(([acc.last_valid_t], prev_t))
+            if acc.last_valid_i < 0:  # no valid sample yet: not an interior run
+                prev_t, after = prev_t[1:], after[1:]
+        elif 0 <= acc.last_valid_i < acc.seen - 1:  # the previous chunk ended in NaN
+            prev_t = np.concatenate(([acc.last_valid_t], prev_t))
+            after = np.concatenate(([0], after))
+        after_t, prev_t = t[after], prev_t[: after.size]
+        long = (after_t - prev_t) > GAP_FACTOR * self.median_dt
+        if long.any():
+            acc.breaks.append(0.5 * (prev_t[long] + after_t[long]))
+        if n_valid:
+            last = y.size - 1 if valid[-1] else int(before[-1])
+            acc.last_valid_i = acc.seen + last
+            acc.last_valid_t = float(t[last])
         acc.seen += t.size
         if acc.samples <= 2 * self.buckets:
-            acc.all_t.append(t[valid_idx])
-            acc.all_y.append(y[valid_idx])
+            acc.all_t.append(t[valid])
+            acc.all_y.append(y[valid])
         elif acc.all_t:
             acc.all_t, acc.all_y = [], []
-        if valid_idx.size:
-            tv, yv, bv = t[valid_idx], y[valid_idx], bucket[valid_idx]
-            keep = _first_extremes(yv, bv)
-            acc.t.append(tv[keep])
-            acc.y.append(yv[keep])
-            acc.bucket.append(bv[keep])
+        if n_valid:
+            at = whole.first_extremes(y, nan)
+            if at is None:  # the valid rows on their own
+                tv, yv, bv = t[valid], y[valid], bucket[valid]
+                keep = _first_extremes(yv, bv)
+                acc.t.append(tv[keep])
+                acc.y.append(yv[keep])
+                acc.bucket.append(bv[keep])
+            else:
+                acc.t.append(t[at])
+                acc.y.append(y[at])
+                acc.bucket.append(bucket[at])
+
+    def _add_whole_signal(
+        self,
+        acc: _SignalAcc,
+        t: np.ndarray,
+        y: np.ndarray,
+        bucket: np.ndarray,
+        whole: _BucketRuns,
+    ) -> None:
+        """:meth:`_add_signal` of rows without NaN (most chunks): no index lists needed."""
+        acc.samples += int(y.size)
+        # a NaN run can only end at the first row: the previous chunk ended in NaN
+        ended_nan = 0 <= acc.last_valid_i < acc.seen - 1
+        if ended_nan and float(t[0]) - acc.last_valid_t > GAP_FACTOR * self.median_dt:
+            acc.breaks.append(np.array([0.5 * (acc.last_valid_t + float(t[0]))]))
+        acc.last_valid_i = acc.seen + int(y.size) - 1
+        acc.last_valid_t = float(t[-1])
+        acc.seen += t.size
+        if acc.samples <= 2 * self.buckets:
+            acc.all_t.append(t.copy())  # copies: a view would hold the chunk's frame
+            acc.all_y.append(y.copy())
+        elif acc.all_t:
+            acc.all_t, acc.all_y = [], []
+        keep = whole.first_extremes(y)
+        acc.t.append(t[keep])
+        acc.y.append(y[keep])
+        acc.bucket.append(bucket[keep])
 
     def finish(self) -> RunOverview:
         """The overview, as :func:`analysis.overview.build_overview` gives it."""
@@ -290,6 +342,58 @@ class OverviewBuilder:
                 acc.source, np.ascontiguousarray(tk), np.ascontiguousarray(yk), acc.samples
             )
         return out
+
+
+class _BucketRuns:
+    """The runs of equal buckets of some rows, laid out as a rectangle for argmin/argmax.
+
+    Row k of :attr:`grid` holds the positions of bucket run k, its last position
+    repeated to the longest run's length; a repeat is never the *first* extreme, so
+    ``argmin`` / ``argmax`` along a row (first occurrence) give the first extremes.
+    """
+
+    def __init__(self, bucket: np.ndarray):
+        self.bucket = bucket
+        self.grid: np.ndarray | None = None
+        if not bucket.size:
+            return
+        starts = np.flatnonzero(np.r_[True, bucket[1:] != bucket[:-1]])
+        counts = np.diff(np.r_[starts, bucket.size])
+        longest = int(counts.max())
+        if starts.size * longest <= 2 * bucket.size:  # else uneven runs: the rectangle is big
+            self.grid = np.minimum(
+                starts[:, None] + np.arange(longest)[None, :], (starts + counts - 1)[:, None]
+            )
+
+    @overload
+    def first_extremes(self, y: np.ndarray) -> np.ndarray: ...
+    @overload
+    def first_extremes(self, y: np.ndarray, nan: np.ndarray) -> np.ndarray | None: ...
+
+    def first_extremes(self, y: np.ndarray, nan: np.ndarray | None = None) -> np.ndarray | None:
+        """As :func:`_first_extremes` of ``y`` and these buckets, NaN rows left out.
+
+        ``nan``: where ``y`` is NaN, when it has NaN; then None where the rectangle
+        cannot be used (uneven runs). NaN stands in as +inf for the minimum and -inf
+        for the maximum. It can tie with a logged infinity only where the bucket's
+        logged values are all +inf (or all -inf): its first minimum is then its first
+        maximum, which the other side finds.
+        """
+        if self.grid is None:
+            return _first_extremes(y, self.bucket) if nan is None else None
+        values = y[self.grid]
+        if nan is None:
+            lows, highs = values, values
+        else:
+            gap = nan[self.grid]
+            lows, highs = np.where(gap, np.inf, values), np.where(gap, -np.inf, values)
+        rows = np.arange(self.grid.shape[0])
+        keep = np.zeros(y.size, dtype=bool)
+        keep[self.grid[rows, lows.argmin(axis=1)]] = True
+        keep[self.grid[rows, highs.argmax(axis=1)]] = True
+        if nan is not None:
+            keep &= ~nan  # a bucket of NaN only gives a NaN row: no extreme
+        return np.flatnonzero(keep)
 
 
 def _first_extremes(y: np.ndarray, bucket: np.ndarray) -> np.ndarray:
@@ -332,6 +436,8 @@ class ChunkedAnalysis:
     series_columns: list[str]
     windows: list[tuple[float, float, float]] = field(default_factory=list)
     """(first, last time read, cut) of each chunk. [s]"""
+    kept: pd.DataFrame | None = None
+    """The whole run's ``t`` and kept frame columns (``keep`` of :func:`analyse_in_chunks`)."""
 
 
 _COUNT_NOTE = re.compile(r"^\d+ sample\(s\) with vertical specific force below")
@@ -350,6 +456,7 @@ def analyse_in_chunks(
     load_columns: Callable[[list[str], float, float], pd.DataFrame],
     chunk_s: float = CHUNK_S,
     progress: Callable[[float, str], None] | None = None,
+    keep: list[str] | None = None,
 ) -> ChunkedAnalysis:
     """Analyse a run chunk by chunk; see the module docstring.
 
@@ -370,6 +477,11 @@ def analyse_in_chunks(
         times, inclusive (for the roll lag, :mod:`analysis.detect.chunk_lag`). [s]
     chunk_s : float
         Core length of a chunk. [s]
+    keep : list of str, optional
+        Frame columns to keep for the whole run as the chunks pass (float64, 8 bytes a
+        sample each; names the frame lacks are left out). They are returned in
+        ``kept``, and the roll lag reads roll and its reference from them when kept,
+        instead of reading the archive again.
 
     Raises
     ------
@@ -396,6 +508,9 @@ def analyse_in_chunks(
     windows: list[tuple[float, float, float]] = []
     spans: dict[str, tuple[float, float]] = {}  # first and last logged time of ref and roll
     grow = 1.0
+    kept: np.ndarray | None = None  # one row per kept column, t first
+    kept_names: list[str] = []
+    pos = 0
     while True:
         nominal = core_lo + chunk_s * grow
         last = nominal + 2.0 * margin >= t_last
@@ -452,7 +567,8 @@ def analyse_in_chunks(
         stop = b + 1 if closing else b
         core_frame = frame.iloc[a:stop].reset_index(drop=True)
         core_series = res.series.iloc[a:stop].reset_index(drop=True)
-        kpis_acc.add(core_frame, core_series, events, closing)  # type: ignore[union-attr]
+        with run_median_period(median_dt):  # the gap rule of a whole-run pass
+            kpis_acc.add(core_frame, core_series, events, closing)  # type: ignore[union-attr]
         own_frame, own_series = core_frame.iloc[: b - a], core_series.iloc[: b - a]
         for name in (cat.ROLL_REF, cat.ROLL):
             if name in own_frame:
@@ -461,6 +577,16 @@ def analyse_in_chunks(
                     tt = own_frame[cat.T].to_numpy(dtype=float)[ok]
                     lo_v, hi_v = spans.get(name, (float(tt[0]), float(tt[-1])))
                     spans[name] = (min(lo_v, float(tt[0])), max(hi_v, float(tt[-1])))
+        if keep is not None:
+            if kept is None:
+                kept_names = [
+                    cat.T,
+                    *(c for c in dict.fromkeys(keep) if c in own_frame and c != cat.T),
+                ]
+                kept = np.empty((len(kept_names), t_all.size))
+            for j, name in enumerate(kept_names):
+                kept[j, pos : pos + len(own_frame)] = own_frame[name].to_numpy(dtype=np.float64)
+            pos += len(own_frame)
         sink(own_series)
         overview.add(own_frame, "frame")
         if chunks == 0:
@@ -475,13 +601,24 @@ def analyse_in_chunks(
             break
         prev_cut_seen, core_lo, grow = cut, cut, 1.0
     assert kpis_acc is not None
+    kept_frame = None
+    if kept is not None:
+        if pos != t_all.size:
+            raise AssertionError(f"the chunks' cores hold {pos} samples, the run {t_all.size}")
+        # columns of a (columns x samples) array: one block, no copy
+        kept_frame = pd.DataFrame(kept.T, columns=kept_names, copy=False)
     events.sort(key=lambda e: (e.start_s, e.kind, e.channel or ""))
     kpis = kpis_acc.finish(events)
     _whole_run_notes(notes, kpis_acc, kpis, th)
     if "roll" in kpis and kpis["roll"].get("rms") is not None:
 
         def read(t0: float, t1: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-            cols = load_columns([cat.ROLL_REF, cat.ROLL], t0, t1)
+            if kept_frame is not None and {cat.ROLL_REF, cat.ROLL} <= set(kept_names):
+                tk = kept_frame[cat.T].to_numpy()
+                i0, i1 = np.searchsorted(tk, t0, "left"), np.searchsorted(tk, t1, "right")
+                cols = kept_frame.iloc[i0:i1]
+            else:
+                cols = load_columns([cat.ROLL_REF, cat.ROLL], t0, t1)
             return tuple(cols[n].to_numpy(dtype=float) for n in (cat.T, cat.ROLL_REF, cat.ROLL))  # type: ignore[return-value]
 
         nan = (float("nan"), float("nan"))
@@ -497,6 +634,7 @@ def analyse_in_chunks(
         chunks,
         [str(c) for c in columns],
         windows,
+        kept_frame,
     )
 
 

@@ -331,6 +331,13 @@ def _analyse_run_chunked(
                 ),
                 chunk_s=chunk_s,
                 progress=progress,
+                # the laps' columns (and the roll lag's) kept as the chunks pass, when the
+                # run is short enough for its laps to be found
+                keep=(
+                    [*lap_frame_columns(profile), catalogue.ROLL_REF, catalogue.ROLL]
+                    if t_all.size <= MAX_LAP_SAMPLES
+                    else None
+                ),
             )
         finally:
             writer.close()  # also on an error: no thread left writing into the staging
@@ -390,7 +397,7 @@ def _laps_of_chunked_run(
             f"{MAX_LAP_SAMPLES:,} the lap KPIs can hold in memory at once."
         )
         return {}
-    frame = archive.load_frame(run_id, columns=lap_frame_columns(profile))
+    frame = done.kept[[c for c in lap_frame_columns(profile) if c in done.kept]]
     wanted = [catalogue.T, catalogue.TIP_MARGIN, catalogue.ROLL_ERROR]
     wanted += [f"{a.name}.{catalogue.SATURATED}" for a in profile.actuators]
     have = set(pq.ParquetFile(series_path).schema_arrow.names)
