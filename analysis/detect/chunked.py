@@ -54,6 +54,7 @@ import pandas as pd
 from analysis import catalogue as cat
 from analysis.detect.chunk_kpis import KNOWN, ChunkKpis
 from analysis.detect.chunk_lag import lag_in_chunks
+from analysis.detect.roll import roll_lag_elsewhere
 from analysis.detect.tipover import F_Z_MIN
 from analysis.events import GAP_FACTOR, Event, run_median_period
 from analysis.metrics import FILTER_ORDER
@@ -516,7 +517,7 @@ def analyse_in_chunks(
         last = nominal + 2.0 * margin >= t_last
         lo, hi = core_lo - margin, (t_last if last else nominal + margin)
         frame = load(lo, hi)
-        with run_median_period(median_dt):
+        with run_median_period(median_dt), roll_lag_elsewhere():  # lag: over the run below
             res = analyse(frame)
         if last:
             cut = math.inf

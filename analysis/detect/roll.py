@@ -20,6 +20,10 @@ References
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
+from contextvars import ContextVar
+
 import numpy as np
 import pandas as pd
 
@@ -27,8 +31,23 @@ from analysis import catalogue as cat
 from analysis.catalogue import G0
 from analysis.detect.tipover import F_Z_MIN, com_specific_force
 from analysis.events import DetectorResult, find_intervals, intervals_to_events
-from analysis.metrics import iae, ise, itae, lag_by_xcorr, rms, time_where
+from analysis.metrics import LagEstimate, iae, ise, itae, lag_by_xcorr, rms, time_where
 from analysis.profile import RobotProfile, Thresholds
+
+#: True while the roll lag is found for the whole run elsewhere (an analysis in time
+#: chunks, :mod:`analysis.detect.chunk_lag`); the detector then leaves it out.
+_LAG_ELSEWHERE: ContextVar[bool] = ContextVar("roll_lag_elsewhere", default=False)
+
+
+@contextmanager
+def roll_lag_elsewhere() -> Iterator[None]:
+    """Within the block, :func:`detect_roll_tracking` leaves the lag out (no notes)."""
+    token = _LAG_ELSEWHERE.set(True)
+    try:
+        yield
+    finally:
+        _LAG_ELSEWHERE.reset(token)
+
 
 #: A roll_error event starts where |e| exceeds the band and ends where it falls
 #: below this fraction of the band, so noise at the edge does not split one
@@ -198,7 +217,10 @@ def detect_roll_tracking(
         tv, ev, intervals, cat.ROLL_ERROR, None, peak="absmax", detail=detail
     )
     _, in_band = time_where(t, np.abs(e) <= band, valid)
-    lag = lag_by_xcorr(t, ref, roll, th.roll_lag_max_s)
+    if _LAG_ELSEWHERE.get():
+        lag = LagEstimate(float("nan"), float("nan"), False, "")
+    else:
+        lag = lag_by_xcorr(t, ref, roll, th.roll_lag_max_s)
     if lag.reason:
         result.notes.append(f"Roll lag not estimated: {lag.reason}.")
     elif lag.at_bound:
