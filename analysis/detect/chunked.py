@@ -45,6 +45,7 @@ from __future__ import annotations
 import math
 import re
 from collections.abc import Callable
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any, overload
 
@@ -512,65 +513,22 @@ def analyse_in_chunks(
     kept: np.ndarray | None = None  # one row per kept column, t first
     kept_names: list[str] = []
     pos = 0
-    while True:
-        nominal = core_lo + chunk_s * grow
-        last = nominal + 2.0 * margin >= t_last
-        lo, hi = core_lo - margin, (t_last if last else nominal + margin)
-        frame = load(lo, hi)
-        with run_median_period(median_dt), roll_lag_elsewhere():  # lag: over the run below
-            res = analyse(frame)
-        if last:
-            cut = math.inf
-        else:
-            found = _quiet_time(
-                res.events, core_lo + 0.5 * chunk_s, hi - margin, guard, 0.5 * median_dt
-            )
-            if found is None:
-                grow += 1.0
-                continue
-            cut = found
-        if prev_cut_seen is not None and any(
-            e.start_s - guard <= prev_cut_seen <= e.end_s + guard for e in res.events
-        ):
-            raise NotChunkableError(
-                f"an event crosses the chunk boundary at t = {prev_cut_seen:.2f} s in one chunk "
-                f"but not in the other"
-            )
-        sig = (
-            tuple(sorted((s["detector"], s["reason"]) for s in res.skipped)),
-            tuple(res.series.columns),
-            tuple(
-                (name, k.get("method") if isinstance(k, dict) else None)
-                for name, k in sorted(res.kpis.items())
-            ),
-        )
-        if first_sig is None:
-            first_sig, skipped, columns = sig, list(res.skipped), list(res.series.columns)
-            unknown = set(res.kpis) - KNOWN
-            if unknown:
-                raise NotChunkableError(
-                    f"no chunked KPIs for detector(s) {', '.join(sorted(unknown))}"
-                )
-            kpis_acc = ChunkKpis(profile, th, t_first, res.kpis, samples=int(t_all.size))
-        elif sig[:2] != first_sig[:2] or _methods(res.kpis) != _methods(kpis_acc.first_kpis):  # type: ignore[union-attr]
-            raise NotChunkableError(
-                f"the chunk from t = {core_lo:.1f} s ran other detectors or methods than the first"
-            )
-        for name, lines in res.notes.items():
-            have = notes.setdefault(name, [])
-            have.extend(n for n in lines if n not in have)
-        t = frame[cat.T].to_numpy(dtype=float)
-        a = int(np.searchsorted(t, core_lo, side="left"))
-        b = int(np.searchsorted(t, cut, side="left")) if not last else t.size
-        mine = [e for e in res.events if core_lo <= e.start_s < cut]
-        events.extend(mine)
-        closing = (not last) and b < t.size
-        stop = b + 1 if closing else b
-        core_frame = frame.iloc[a:stop].reset_index(drop=True)
-        core_series = res.series.iloc[a:stop].reset_index(drop=True)
+    pending: Future[None] | None = None
+
+    def tail(
+        core_frame: pd.DataFrame,
+        core_series: pd.DataFrame,
+        events_now: list[Event],
+        closing: bool,
+        own: int,
+        at: int,
+        first: bool,
+    ) -> None:
+        """A chunk's KPI sums, kept columns and overview (on a thread, in chunk order)."""
+        nonlocal kept, kept_names
         with run_median_period(median_dt):  # the gap rule of a whole-run pass
-            kpis_acc.add(core_frame, core_series, events, closing)  # type: ignore[union-attr]
-        own_frame, own_series = core_frame.iloc[: b - a], core_series.iloc[: b - a]
+            kpis_acc.add(core_frame, core_series, events_now, closing)  # type: ignore[union-attr]
+        own_frame, own_series = core_frame.iloc[:own], core_series.iloc[:own]
         for name in (cat.ROLL_REF, cat.ROLL):
             if name in own_frame:
                 ok = own_frame[name].notna().to_numpy()
@@ -586,21 +544,94 @@ def analyse_in_chunks(
                 ]
                 kept = np.empty((len(kept_names), t_all.size))
             for j, name in enumerate(kept_names):
-                kept[j, pos : pos + len(own_frame)] = own_frame[name].to_numpy(dtype=np.float64)
-            pos += len(own_frame)
-        sink(own_series)
+                kept[j, at : at + own] = own_frame[name].to_numpy(dtype=np.float64)
         overview.add(own_frame, "frame")
-        if chunks == 0:
+        if first:
             overview.freeze_frame_names()
         overview.add(own_series, "derived")
-        chunks += 1
-        windows.append((lo, hi, cut))
-        if progress:
-            progress(min(1.0, (min(cut, t_last) - t_first) / max(t_last - t_first, 1e-9)), "chunk")
-        del frame, res, core_frame, core_series, own_frame, own_series
-        if last:
-            break
-        prev_cut_seen, core_lo, grow = cut, cut, 1.0
+
+    # Each chunk's KPI sums, kept columns and overview run on a thread while the next
+    # chunk is read and analysed (numpy lets go of the GIL in its loops).
+    tails = ThreadPoolExecutor(max_workers=1, thread_name_prefix="chunk-tail")
+    try:
+        while True:
+            nominal = core_lo + chunk_s * grow
+            last = nominal + 2.0 * margin >= t_last
+            lo, hi = core_lo - margin, (t_last if last else nominal + margin)
+            frame = load(lo, hi)
+            with run_median_period(median_dt), roll_lag_elsewhere():  # lag: over the run below
+                res = analyse(frame)
+            if last:
+                cut = math.inf
+            else:
+                found = _quiet_time(
+                    res.events, core_lo + 0.5 * chunk_s, hi - margin, guard, 0.5 * median_dt
+                )
+                if found is None:
+                    grow += 1.0
+                    continue
+                cut = found
+            if prev_cut_seen is not None and any(
+                e.start_s - guard <= prev_cut_seen <= e.end_s + guard for e in res.events
+            ):
+                raise NotChunkableError(
+                    f"an event crosses the chunk boundary at t = {prev_cut_seen:.2f} s in one chunk "
+                    f"but not in the other"
+                )
+            sig = (
+                tuple(sorted((s["detector"], s["reason"]) for s in res.skipped)),
+                tuple(res.series.columns),
+                tuple(
+                    (name, k.get("method") if isinstance(k, dict) else None)
+                    for name, k in sorted(res.kpis.items())
+                ),
+            )
+            if first_sig is None:
+                first_sig, skipped, columns = sig, list(res.skipped), list(res.series.columns)
+                unknown = set(res.kpis) - KNOWN
+                if unknown:
+                    raise NotChunkableError(
+                        f"no chunked KPIs for detector(s) {', '.join(sorted(unknown))}"
+                    )
+                kpis_acc = ChunkKpis(profile, th, t_first, res.kpis, samples=int(t_all.size))
+            elif sig[:2] != first_sig[:2] or _methods(res.kpis) != _methods(kpis_acc.first_kpis):  # type: ignore[union-attr]
+                raise NotChunkableError(
+                    f"the chunk from t = {core_lo:.1f} s ran other detectors or methods than the first"
+                )
+            for name, lines in res.notes.items():
+                have = notes.setdefault(name, [])
+                have.extend(n for n in lines if n not in have)
+            t = frame[cat.T].to_numpy(dtype=float)
+            a = int(np.searchsorted(t, core_lo, side="left"))
+            b = int(np.searchsorted(t, cut, side="left")) if not last else t.size
+            mine = [e for e in res.events if core_lo <= e.start_s < cut]
+            events.extend(mine)
+            closing = (not last) and b < t.size
+            stop = b + 1 if closing else b
+            core_frame = frame.iloc[a:stop].reset_index(drop=True)
+            core_series = res.series.iloc[a:stop].reset_index(drop=True)
+            own = b - a
+            if pending is not None:
+                pending.result()  # one chunk's tail in flight at most; its error surfaces here
+            sink(core_series.iloc[:own])
+            pending = tails.submit(
+                tail, core_frame, core_series, list(events), closing, own, pos, chunks == 0
+            )
+            pos += own
+            chunks += 1
+            windows.append((lo, hi, cut))
+            if progress:
+                progress(
+                    min(1.0, (min(cut, t_last) - t_first) / max(t_last - t_first, 1e-9)), "chunk"
+                )
+            del frame, res, core_frame, core_series
+            if last:
+                break
+            prev_cut_seen, core_lo, grow = cut, cut, 1.0
+        if pending is not None:
+            pending.result()
+    finally:
+        tails.shutdown(wait=True)  # also on an error: no thread left running
     assert kpis_acc is not None
     kept_frame = None
     if kept is not None:

@@ -282,3 +282,27 @@ def test_a_chunk_that_runs_other_detectors_is_refused(demo_frames):
     frame.loc[(t > 12.0) & (t < t[-1] - 12.0), cat.ROLL_REF] = np.nan
     with pytest.raises(chunked.NotChunkableError, match="other detectors or methods"):
         _chunked(frame, profile, 17.3)
+
+
+def test_an_error_on_the_tail_thread_reaches_the_caller(demo_frames, monkeypatch):
+    """A chunk's KPI sums and overview run on a thread; its error is the caller's."""
+    import threading
+
+    from analysis.detect import chunked
+
+    profile, cases = demo_frames
+    frame = cases[0][0]
+    calls = {"n": 0}
+    real_add = chunked.OverviewBuilder.add
+
+    def failing_add(self, table, source):
+        calls["n"] += 1
+        if calls["n"] == 3:  # the second chunk's frame rows
+            raise RuntimeError("overview broke")
+        return real_add(self, table, source)
+
+    monkeypatch.setattr(chunked.OverviewBuilder, "add", failing_add)
+    with pytest.raises(RuntimeError, match="overview broke"):
+        _chunked(frame, profile, 17.3)
+    assert calls["n"] == 3
+    assert not [t for t in threading.enumerate() if t.name.startswith("chunk-tail")]
