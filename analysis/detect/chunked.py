@@ -440,6 +440,8 @@ class ChunkedAnalysis:
     """(first, last time read, cut) of each chunk. [s]"""
     kept: pd.DataFrame | None = None
     """The whole run's ``t`` and kept frame columns (``keep`` of :func:`analyse_in_chunks`)."""
+    median_dt: float = float("nan")
+    """The run's median sample interval. [s]"""
 
 
 _COUNT_NOTE = re.compile(r"^\d+ sample\(s\) with vertical specific force below")
@@ -667,6 +669,7 @@ def analyse_in_chunks(
         [str(c) for c in columns],
         windows,
         kept_frame,
+        median_dt,
     )
 
 

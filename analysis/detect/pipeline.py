@@ -38,7 +38,7 @@ from analysis.detect.roll import detect_roll_tracking
 from analysis.detect.saturation import detect_saturation
 from analysis.detect.slip import detect_slip
 from analysis.detect.tipover import detect_tip_margin
-from analysis.events import DetectorResult, Event, events_frame
+from analysis.events import DetectorResult, Event, events_frame, run_median_period
 from analysis.lap_kpis import lap_report
 from analysis.laps import find_laps
 from analysis.overview import build_overview
@@ -403,14 +403,15 @@ def _laps_of_chunked_run(
     have = set(pq.ParquetFile(series_path).schema_arrow.names)
     series = pd.read_parquet(series_path, columns=[c for c in wanted if c in have])
     start = course_start_line(archive.root, archive.get_meta(run_id).get("course"))
-    return lap_report(
-        frame,
-        series,
-        done.events,
-        profile,
-        find_laps(frame, profile, start),
-        [s["detector"] for s in done.skipped],
-    )
+    with run_median_period(done.median_dt):  # that of frame["t"], known already
+        return lap_report(
+            frame,
+            series,
+            done.events,
+            profile,
+            find_laps(frame, profile, start),
+            [s["detector"] for s in done.skipped],
+        )
 
 
 def sync_fleet(archive: Archive) -> list[str]:
