@@ -442,6 +442,10 @@ class ChunkedAnalysis:
     """The whole run's ``t`` and kept frame columns (``keep`` of :func:`analyse_in_chunks`)."""
     median_dt: float = float("nan")
     """The run's median sample interval. [s]"""
+    kept_series: pd.DataFrame | None = None
+    """The whole run's ``t`` and kept derived series (``keep_series``), as float64."""
+    alongside: Any = None
+    """What ``alongside`` of :func:`analyse_in_chunks` returned."""
 
 
 _COUNT_NOTE = re.compile(r"^\d+ sample\(s\) with vertical specific force below")
@@ -461,6 +465,8 @@ def analyse_in_chunks(
     chunk_s: float = CHUNK_S,
     progress: Callable[[float, str], None] | None = None,
     keep: list[str] | None = None,
+    keep_series: list[str] | None = None,
+    alongside: Callable[[ChunkedAnalysis], Any] | None = None,
 ) -> ChunkedAnalysis:
     """Analyse a run chunk by chunk; see the module docstring.
 
@@ -486,6 +492,12 @@ def analyse_in_chunks(
         sample each; names the frame lacks are left out). They are returned in
         ``kept``, and the roll lag reads roll and its reference from them when kept,
         instead of reading the archive again.
+    keep_series : list of str, optional
+        The same for derived series (float64: a flag becomes 0/1); in ``kept_series``.
+    alongside : callable, optional
+        Called with the result (events, KPIs, kept columns) on a thread while the roll
+        lag is found; what it returns goes to ``alongside`` of the result. It must not
+        change the result.
 
     Raises
     ------
@@ -514,6 +526,8 @@ def analyse_in_chunks(
     grow = 1.0
     kept: np.ndarray | None = None  # one row per kept column, t first
     kept_names: list[str] = []
+    kept_s: np.ndarray | None = None  # the same for derived series
+    kept_s_names: list[str] = []
     pos = 0
     pending: Future[None] | None = None
 
@@ -527,7 +541,7 @@ def analyse_in_chunks(
         first: bool,
     ) -> None:
         """A chunk's KPI sums, kept columns and overview (on a thread, in chunk order)."""
-        nonlocal kept, kept_names
+        nonlocal kept, kept_names, kept_s, kept_s_names
         with run_median_period(median_dt):  # the gap rule of a whole-run pass
             kpis_acc.add(core_frame, core_series, events_now, closing)  # type: ignore[union-attr]
         own_frame, own_series = core_frame.iloc[:own], core_series.iloc[:own]
@@ -547,6 +561,17 @@ def analyse_in_chunks(
                 kept = np.empty((len(kept_names), t_all.size))
             for j, name in enumerate(kept_names):
                 kept[j, at : at + own] = own_frame[name].to_numpy(dtype=np.float64)
+        if keep_series is not None:
+            if kept_s is None:
+                kept_s_names = [
+                    cat.T,
+                    *(c for c in dict.fromkeys(keep_series) if c in own_series and c != cat.T),
+                ]
+                kept_s = np.empty((len(kept_s_names), t_all.size))
+            for j, name in enumerate(kept_s_names):
+                kept_s[j, at : at + own] = own_series[name].to_numpy(
+                    dtype=np.float64, na_value=np.nan
+                )
         overview.add(own_frame, "frame")
         if first:
             overview.freeze_frame_names()
@@ -632,45 +657,53 @@ def analyse_in_chunks(
             prev_cut_seen, core_lo, grow = cut, cut, 1.0
         if pending is not None:
             pending.result()
-    finally:
-        tails.shutdown(wait=True)  # also on an error: no thread left running
-    assert kpis_acc is not None
-    kept_frame = None
-    if kept is not None:
-        if pos != t_all.size:
+        assert kpis_acc is not None
+        if (kept is not None or kept_s is not None) and pos != t_all.size:
             raise AssertionError(f"the chunks' cores hold {pos} samples, the run {t_all.size}")
         # columns of a (columns x samples) array: one block, no copy
-        kept_frame = pd.DataFrame(kept.T, columns=kept_names, copy=False)
-    events.sort(key=lambda e: (e.start_s, e.kind, e.channel or ""))
-    kpis = kpis_acc.finish(events)
-    _whole_run_notes(notes, kpis_acc, kpis, th)
-    if "roll" in kpis and kpis["roll"].get("rms") is not None:
+        kept_frame = None if kept is None else pd.DataFrame(kept.T, columns=kept_names, copy=False)
+        kept_series = (
+            None if kept_s is None else pd.DataFrame(kept_s.T, columns=kept_s_names, copy=False)
+        )
+        events.sort(key=lambda e: (e.start_s, e.kind, e.channel or ""))
+        kpis = kpis_acc.finish(events)
+        _whole_run_notes(notes, kpis_acc, kpis, th)
+        out = ChunkedAnalysis(
+            events,
+            kpis,
+            skipped,
+            notes,
+            overview.finish(),
+            chunks,
+            [str(c) for c in columns],
+            windows,
+            kept_frame,
+            median_dt,
+            kept_series,
+        )
+        # `alongside` reads events, skipped detectors and kept columns, which the roll
+        # lag below leaves alone; it writes only its own result
+        later = tails.submit(alongside, out) if alongside is not None else None
+        if "roll" in kpis and kpis["roll"].get("rms") is not None:
 
-        def read(t0: float, t1: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-            if kept_frame is not None and {cat.ROLL_REF, cat.ROLL} <= set(kept_names):
-                tk = kept_frame[cat.T].to_numpy()
-                i0, i1 = np.searchsorted(tk, t0, "left"), np.searchsorted(tk, t1, "right")
-                cols = kept_frame.iloc[i0:i1]
-            else:
-                cols = load_columns([cat.ROLL_REF, cat.ROLL], t0, t1)
-            return tuple(cols[n].to_numpy(dtype=float) for n in (cat.T, cat.ROLL_REF, cat.ROLL))  # type: ignore[return-value]
+            def read(t0: float, t1: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                if kept_frame is not None and {cat.ROLL_REF, cat.ROLL} <= set(kept_names):
+                    tk = kept_frame[cat.T].to_numpy()
+                    i0, i1 = np.searchsorted(tk, t0, "left"), np.searchsorted(tk, t1, "right")
+                    cols = kept_frame.iloc[i0:i1]
+                else:
+                    cols = load_columns([cat.ROLL_REF, cat.ROLL], t0, t1)
+                return tuple(cols[n].to_numpy(dtype=float) for n in (cat.T, cat.ROLL_REF, cat.ROLL))  # type: ignore[return-value]
 
-        nan = (float("nan"), float("nan"))
-        span = (*spans.get(cat.ROLL_REF, nan), *spans.get(cat.ROLL, nan))
-        lag = lag_in_chunks(read, t_all, lambda: span, th.roll_lag_max_s, chunk_s, median_dt)
-        _roll_lag(notes, kpis["roll"], lag, th)
-    return ChunkedAnalysis(
-        events,
-        kpis,
-        skipped,
-        notes,
-        overview.finish(),
-        chunks,
-        [str(c) for c in columns],
-        windows,
-        kept_frame,
-        median_dt,
-    )
+            nan = (float("nan"), float("nan"))
+            span = (*spans.get(cat.ROLL_REF, nan), *spans.get(cat.ROLL, nan))
+            lag = lag_in_chunks(read, t_all, lambda: span, th.roll_lag_max_s, chunk_s, median_dt)
+            _roll_lag(notes, kpis["roll"], lag, th)
+        if later is not None:
+            out.alongside = later.result()
+        return out
+    finally:
+        tails.shutdown(wait=True)  # also on an error: no thread left running
 
 
 def _methods(kpis: dict[str, Any]) -> tuple[Any, ...]:

@@ -14,12 +14,10 @@ import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
-import pyarrow.parquet as pq
 
 from analysis import __version__, catalogue
 from analysis.archive.courses import course_start_line
@@ -32,7 +30,7 @@ from analysis.archive.fleet import (
     write_fleet_rows,
 )
 from analysis.detect.balance import detect_balance
-from analysis.detect.chunked import CHUNK_S, NotChunkableError, analyse_in_chunks
+from analysis.detect.chunked import CHUNK_S, ChunkedAnalysis, NotChunkableError, analyse_in_chunks
 from analysis.detect.limits import headline_kpis
 from analysis.detect.roll import detect_roll_tracking
 from analysis.detect.saturation import detect_saturation
@@ -318,6 +316,10 @@ def _analyse_run_chunked(
         path = staging / "series.parquet"
         writer = FrameWriter(path, background=True)  # written while the next chunk runs
         cache = RowGroupCache()  # each row group decoded once as the chunks move on
+        # The laps' columns (and the roll lag's) are kept as the chunks pass when the run
+        # is short enough for its laps to be found; the laps are then found on a thread
+        # while the roll lag is.
+        lapped = t_all.size <= MAX_LAP_SAMPLES
         try:
             done = analyse_in_chunks(
                 lambda t0, t1: archive.load_frame(run_id, t0=t0, t1=t1, cache=cache),
@@ -331,11 +333,15 @@ def _analyse_run_chunked(
                 ),
                 chunk_s=chunk_s,
                 progress=progress,
-                # the laps' columns (and the roll lag's) kept as the chunks pass, when the
-                # run is short enough for its laps to be found
                 keep=(
                     [*lap_frame_columns(profile), catalogue.ROLL_REF, catalogue.ROLL]
-                    if t_all.size <= MAX_LAP_SAMPLES
+                    if lapped
+                    else None
+                ),
+                keep_series=lap_series_columns(profile) if lapped else None,
+                alongside=(
+                    (lambda done: _laps_of_chunked_run(archive, run_id, profile, done))
+                    if lapped
                     else None
                 ),
             )
@@ -343,7 +349,12 @@ def _analyse_run_chunked(
             writer.close()  # also on an error: no thread left writing into the staging
         if progress:
             progress(1.0, "analysis done")
-        laps = _laps_of_chunked_run(archive, run_id, profile, done, path, t_all.size)
+        laps = done.alongside or {}
+        if not lapped:
+            done.notes.setdefault("laps", []).append(
+                f"Laps were not looked for: the run has {t_all.size:,} samples, more than "
+                f"the {MAX_LAP_SAMPLES:,} the lap KPIs can hold in memory at once."
+            )
         result = AnalysisResult(
             events=done.events,
             kpis=done.kpis,
@@ -382,26 +393,18 @@ def lap_frame_columns(profile: RobotProfile) -> list[str]:
     return names
 
 
+def lap_series_columns(profile: RobotProfile) -> list[str]:
+    """The derived series that the lap KPIs read (:mod:`analysis.lap_kpis`, as float)."""
+    names = [catalogue.T, catalogue.TIP_MARGIN, catalogue.ROLL_ERROR]
+    return names + [f"{a.name}.{catalogue.SATURATED}" for a in profile.actuators]
+
+
 def _laps_of_chunked_run(
-    archive: Archive,
-    run_id: str,
-    profile: RobotProfile,
-    done: Any,
-    series_path: Path,
-    n_samples: int,
+    archive: Archive, run_id: str, profile: RobotProfile, done: ChunkedAnalysis
 ) -> dict[str, Any]:
-    """Laps and per-lap KPIs of a run analysed in chunks, when it is short enough."""
-    if n_samples > MAX_LAP_SAMPLES:
-        done.notes.setdefault("laps", []).append(
-            f"Laps were not looked for: the run has {n_samples:,} samples, more than the "
-            f"{MAX_LAP_SAMPLES:,} the lap KPIs can hold in memory at once."
-        )
-        return {}
-    frame = done.kept[[c for c in lap_frame_columns(profile) if c in done.kept]]
-    wanted = [catalogue.T, catalogue.TIP_MARGIN, catalogue.ROLL_ERROR]
-    wanted += [f"{a.name}.{catalogue.SATURATED}" for a in profile.actuators]
-    have = set(pq.ParquetFile(series_path).schema_arrow.names)
-    series = pd.read_parquet(series_path, columns=[c for c in wanted if c in have])
+    """Laps and per-lap KPIs of a run analysed in chunks, from its kept columns."""
+    frame, series = done.kept, done.kept_series
+    assert frame is not None and series is not None
     start = course_start_line(archive.root, archive.get_meta(run_id).get("course"))
     with run_median_period(done.median_dt):  # that of frame["t"], known already
         return lap_report(

@@ -204,7 +204,8 @@ def test_analyse_run_in_chunks_stores_whole_run_results(archived_run):
 
 
 def test_laps_of_a_chunked_run_equal_those_of_one_pass(tmp_path):
-    """Laps of a chunked run come from the lap columns alone (pipeline.lap_frame_columns),
+    """Laps of a chunked run come from the lap columns alone (pipeline.lap_frame_columns and
+    lap_series_columns, kept as the chunks pass),
     not the whole frame: the same laps and per-lap KPIs as the one pass."""
     from tests.server.lap_archive import store_lap_run
 
