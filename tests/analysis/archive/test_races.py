@@ -61,7 +61,9 @@ def _ingest_in_child(data: str, logs: list[str], go, out) -> None:
 
 def test_concurrent_ingests_of_the_same_files_store_one_run(tmp_path):
     # Issue 11: two ingests started together stored the run twice in 4 of 5 tries.
-    ctx = multiprocessing.get_context("fork")
+    # "spawn", not "fork": a fork copies a process whose other threads (pyarrow's pools,
+    # earlier tests' workers) may hold locks, and the child then crashed now and then.
+    ctx = multiprocessing.get_context("spawn")
     logs = [str(p) for p in _logs(tmp_path)]
     for attempt in range(3):
         data = str(tmp_path / f"data{attempt}")
@@ -106,7 +108,9 @@ def test_a_kill_between_the_two_renames_keeps_the_previous_results(tmp_path):
     archive.write_results(
         run_id, pd.DataFrame({"kind": ["old"]}), pd.DataFrame({"t": [0.0]}), {"version": "old"}
     )
-    ctx = multiprocessing.get_context("fork")
+    # "spawn", not "fork": a fork copies a process whose other threads (pyarrow's pools,
+    # earlier tests' workers) may hold locks, and the child then crashed now and then.
+    ctx = multiprocessing.get_context("spawn")
     child = ctx.Process(target=_kill_between_renames, args=(str(archive.root), run_id))
     child.start()
     child.join(60)
