@@ -20,10 +20,12 @@ and the ratios ingest / reference and analyse / reference (wall and CPU).
 Goals (issue 12): ingest <= 1.2x, analysis <= 5x, peak RSS <= 1 GiB.
 
 Run: ``.venv/bin/python benchmarks/bench_longlog.py [--eight-hours] [--minutes N]
-[--keep] [--steps a,b]`` (``--minutes`` replaces the one-hour log by a shorter one, for
-a quick check; ``--keep`` keeps the logs and archives, so that the next run skips
-writing the logs; ``--steps`` runs some of the four steps, ``analyse`` needing an
-ingest kept from an earlier run).
+[--keep] [--steps a,b] [--repeat N]`` (``--minutes`` replaces the one-hour log by a
+shorter one, for a quick check; ``--keep`` keeps the logs and archives, so that the next
+run skips writing the logs; ``--steps`` runs some of the four steps, ``analyse`` needing
+an ingest kept from an earlier run; ``--repeat`` runs every step N times, in rounds, and
+shows medians: the reference read varies by a factor of 2 to 4 from run to run on this
+shared machine).
 Files go to ``bench-output/longlog/`` (git-ignored); the 8-hour CSVs take about
 2.5 GB of disk.
 """
@@ -34,10 +36,12 @@ import argparse
 import json
 import resource
 import shutil
+import statistics
 import subprocess
 import sys
 import time
 from pathlib import Path
+from typing import Any
 
 ROOT = Path(__file__).resolve().parent.parent
 STATE_HZ, TORQUE_HZ = 400.0, 200.0
@@ -196,7 +200,12 @@ def measure(kind: str, work: Path) -> dict[str, float]:
 
 
 def bench_log(
-    work: Path, hours: float, label: str, keep: bool = False, steps: list[str] | None = None
+    work: Path,
+    hours: float,
+    label: str,
+    keep: bool = False,
+    steps: list[str] | None = None,
+    repeat: int = 3,
 ) -> dict[str, object]:
     sys.path.insert(0, str(ROOT))
     t = time.perf_counter()
@@ -213,10 +222,24 @@ def bench_log(
     mb = (state.stat().st_size + torque.stat().st_size) / 1e6
     print(f"\n== {label}: {rows:,} state rows, CSV {mb:,.0f} MB, written in "
           f"{time.perf_counter() - t:.0f} s")  # fmt: skip
-    res = {name: measure(name, work) for name in steps or STEPS}
-    print(f"{'step':20s} {'wall s':>8s} {'CPU s':>8s} {'peak RSS MiB':>13s}")
+    runs: dict[str, list[dict[str, float]]] = {name: [] for name in steps or STEPS}
+    for _ in range(repeat):  # rounds of every step, so a pair shares the machine's load
+        for name in runs:
+            runs[name].append(measure(name, work))
+    res: dict[str, dict[str, Any]] = {
+        name: {
+            "wall_s": statistics.median(r["wall_s"] for r in rs),
+            "cpu_s": statistics.median(r["cpu_s"] for r in rs),
+            "peak_rss_mib": max(r["peak_rss_mib"] for r in rs),
+            "wall_all_s": [round(r["wall_s"], 3) for r in rs],
+        }
+        for name, rs in runs.items()
+    }
+    print(f"medians of {repeat} run(s); peak RSS: the largest")
+    print(f"{'step':20s} {'wall s':>8s} {'CPU s':>8s} {'peak RSS MiB':>13s}  each wall s")
     for name, r in res.items():
-        print(f"{name:20s} {r['wall_s']:8.1f} {r['cpu_s']:8.1f} {r['peak_rss_mib']:13.0f}")
+        each = " ".join(f"{w:.2f}" for w in r["wall_all_s"])
+        print(f"{name:20s} {r['wall_s']:8.2f} {r['cpu_s']:8.2f} {r['peak_rss_mib']:13.0f}  {each}")
     out: dict[str, object] = {"label": label, "hours": hours, "rows": rows, "csv_mb": mb, **res}
     for step, goal in (("ingest", 1.2), ("analyse", 5.0)):
         if step not in res or f"{step}_reference" not in res:
@@ -250,6 +273,9 @@ def main() -> None:
         "--steps",
         help=f"comma-separated subset of {','.join(STEPS)} (analyse needs an earlier ingest)",
     )
+    parser.add_argument(
+        "--repeat", type=int, default=3, help="runs of each step; medians are shown (3)"
+    )
     parser.add_argument("--child", nargs=2, help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.child:
@@ -258,9 +284,10 @@ def main() -> None:
     out = Path(args.out)
     hours = args.minutes / 60.0 if args.minutes else 1.0
     steps = args.steps.split(",") if args.steps else None
-    results = [bench_log(out / "first", hours, f"{hours * 60:g}-minute log", args.keep, steps)]
+    first = f"{hours * 60:g}-minute log"
+    results = [bench_log(out / "first", hours, first, args.keep, steps, args.repeat)]
     if args.eight_hours:
-        results.append(bench_log(out / "eight", 8.0, "8-hour log", args.keep, steps))
+        results.append(bench_log(out / "eight", 8.0, "8-hour log", args.keep, steps, args.repeat))
     (out / "results.json").write_text(json.dumps(results, indent=1))
     print(f"\nfigures saved to {out / 'results.json'}")
 
