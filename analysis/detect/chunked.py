@@ -524,10 +524,8 @@ def analyse_in_chunks(
     windows: list[tuple[float, float, float]] = []
     spans: dict[str, tuple[float, float]] = {}  # first and last logged time of ref and roll
     grow = 1.0
-    kept: np.ndarray | None = None  # one row per kept column, t first
-    kept_names: list[str] = []
-    kept_s: np.ndarray | None = None  # the same for derived series
-    kept_s_names: list[str] = []
+    kept_f = None if keep is None else _Kept(keep, t_all.size)
+    kept_s = None if keep_series is None else _Kept(keep_series, t_all.size)
     pos = 0
     pending: Future[None] | None = None
 
@@ -541,7 +539,6 @@ def analyse_in_chunks(
         first: bool,
     ) -> None:
         """A chunk's KPI sums, kept columns and overview (on a thread, in chunk order)."""
-        nonlocal kept, kept_names, kept_s, kept_s_names
         with run_median_period(median_dt):  # the gap rule of a whole-run pass
             kpis_acc.add(core_frame, core_series, events_now, closing)  # type: ignore[union-attr]
         own_frame, own_series = core_frame.iloc[:own], core_series.iloc[:own]
@@ -552,26 +549,10 @@ def analyse_in_chunks(
                     tt = own_frame[cat.T].to_numpy(dtype=float)[ok]
                     lo_v, hi_v = spans.get(name, (float(tt[0]), float(tt[-1])))
                     spans[name] = (min(lo_v, float(tt[0])), max(hi_v, float(tt[-1])))
-        if keep is not None:
-            if kept is None:
-                kept_names = [
-                    cat.T,
-                    *(c for c in dict.fromkeys(keep) if c in own_frame and c != cat.T),
-                ]
-                kept = np.empty((len(kept_names), t_all.size))
-            for j, name in enumerate(kept_names):
-                kept[j, at : at + own] = own_frame[name].to_numpy(dtype=np.float64)
-        if keep_series is not None:
-            if kept_s is None:
-                kept_s_names = [
-                    cat.T,
-                    *(c for c in dict.fromkeys(keep_series) if c in own_series and c != cat.T),
-                ]
-                kept_s = np.empty((len(kept_s_names), t_all.size))
-            for j, name in enumerate(kept_s_names):
-                kept_s[j, at : at + own] = own_series[name].to_numpy(
-                    dtype=np.float64, na_value=np.nan
-                )
+        if kept_f is not None:
+            kept_f.add(own_frame, at)
+        if kept_s is not None:
+            kept_s.add(own_series, at)
         overview.add(own_frame, "frame")
         if first:
             overview.freeze_frame_names()
@@ -658,13 +639,10 @@ def analyse_in_chunks(
         if pending is not None:
             pending.result()
         assert kpis_acc is not None
-        if (kept is not None or kept_s is not None) and pos != t_all.size:
+        if (kept_f is not None or kept_s is not None) and pos != t_all.size:
             raise AssertionError(f"the chunks' cores hold {pos} samples, the run {t_all.size}")
-        # columns of a (columns x samples) array: one block, no copy
-        kept_frame = None if kept is None else pd.DataFrame(kept.T, columns=kept_names, copy=False)
-        kept_series = (
-            None if kept_s is None else pd.DataFrame(kept_s.T, columns=kept_s_names, copy=False)
-        )
+        kept_frame = None if kept_f is None else kept_f.frame()
+        kept_series = None if kept_s is None else kept_s.frame()
         events.sort(key=lambda e: (e.start_s, e.kind, e.channel or ""))
         kpis = kpis_acc.finish(events)
         _whole_run_notes(notes, kpis_acc, kpis, th)
@@ -687,7 +665,7 @@ def analyse_in_chunks(
         if "roll" in kpis and kpis["roll"].get("rms") is not None:
 
             def read(t0: float, t1: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-                if kept_frame is not None and {cat.ROLL_REF, cat.ROLL} <= set(kept_names):
+                if kept_frame is not None and {cat.ROLL_REF, cat.ROLL} <= set(kept_frame):
                     tk = kept_frame[cat.T].to_numpy()
                     i0, i1 = np.searchsorted(tk, t0, "left"), np.searchsorted(tk, t1, "right")
                     cols = kept_frame.iloc[i0:i1]
@@ -704,6 +682,35 @@ def analyse_in_chunks(
         return out
     finally:
         tails.shutdown(wait=True)  # also on an error: no thread left running
+
+
+class _Kept:
+    """Columns of a whole run gathered chunk by chunk: ``t`` and the wanted names that
+    the first chunk holds, as float64 (NaN for missing, a flag as 0/1)."""
+
+    def __init__(self, wanted: list[str], samples: int):
+        self.wanted, self.samples = wanted, samples
+        self.names: list[str] = []
+        self.values: np.ndarray | None = None  # one row per column: (columns x samples)
+
+    def add(self, table: pd.DataFrame, at: int) -> None:
+        """The rows of ``table`` are the run's samples from position ``at`` on."""
+        if self.values is None:
+            self.names = [
+                cat.T,
+                *(c for c in dict.fromkeys(self.wanted) if c in table and c != cat.T),
+            ]
+            self.values = np.empty((len(self.names), self.samples))
+        for j, name in enumerate(self.names):
+            self.values[j, at : at + len(table)] = table[name].to_numpy(
+                dtype=np.float64, na_value=np.nan
+            )
+
+    def frame(self) -> pd.DataFrame | None:
+        """The columns as one frame (one block of the array, no copy)."""
+        if self.values is None:
+            return None
+        return pd.DataFrame(self.values.T, columns=self.names, copy=False)
 
 
 def _methods(kpis: dict[str, Any]) -> tuple[Any, ...]:
