@@ -26,7 +26,7 @@ from analysis import catalogue as cat
 from analysis.display import display_unit, scalar_to_display
 from analysis.events import Event
 from analysis.laps import Lap, LapSet, lap_of_samples
-from analysis.metrics import sample_durations
+from analysis.metrics import interval_halves, sample_durations
 from analysis.profile import RobotProfile
 from analysis.trend import ALPHA, mann_kendall
 
@@ -65,8 +65,10 @@ def _col(df: pd.DataFrame, name: str) -> np.ndarray | None:
 
 
 def _per_lap_sum(lap: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
-    ok = (lap >= 0) & np.isfinite(values)
-    return np.bincount(lap[ok], weights=values[ok], minlength=n)[:n]
+    """Sum of the finite ``values`` of each lap (``lap`` -1: no lap, left out)."""
+    # bin 0 gathers the samples of no lap; a missing value adds 0 (no masked copies)
+    v = np.where(np.isfinite(values), values, 0.0)
+    return np.bincount(lap + 1, weights=v, minlength=n + 1)[1 : n + 1]
 
 
 def _per_lap_min(lap: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
@@ -127,10 +129,15 @@ def lap_kpi_table(
     laps = list(laps)
     t = frame[cat.T].to_numpy(dtype=float)
     st = series[cat.T].to_numpy(dtype=float) if cat.T in series.columns else t
+    if st is not t and np.array_equal(st, t):  # the usual case: one time axis
+        st = t
     lap_f = lap_of_samples(t, laps)
     lap_s = lap_of_samples(st, laps) if st is not t else lap_f
     skip = set(skipped)
     nan = np.full(n, np.nan)
+    # the sample intervals of each time axis, found once for all its signals
+    halves_f = interval_halves(t)
+    halves_s = halves_f if st is t else interval_halves(st)
     out: dict[str, Any] = {
         "lap": [lap.number for lap in laps],
         "partial": [lap.partial for lap in laps],
@@ -145,7 +152,7 @@ def lap_kpi_table(
             if x is None:
                 continue
             ok = np.isfinite(x)
-            w = sample_durations(st, ok)
+            w = sample_durations(st, ok, halves_s)
             num = _per_lap_sum(lap_s, np.where(ok, x, 0.0) * w, n)
             den = _per_lap_sum(lap_s, np.where(ok, w, 0.0), n)
             with np.errstate(invalid="ignore", divide="ignore"):
@@ -164,7 +171,7 @@ def lap_kpi_table(
         out["roll_error_rms"] = nan
     else:
         ok = np.isfinite(e)
-        w = sample_durations(st, ok)
+        w = sample_durations(st, ok, halves_s)
         e2 = _per_lap_sum(lap_s, np.where(ok, e * e, 0.0) * w, n)
         den = _per_lap_sum(lap_s, w, n)
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -181,7 +188,7 @@ def lap_kpi_table(
             continue
         p = np.abs(tau * om)  # [1] Eq. 10-55
         ok = np.isfinite(p)
-        energy += _per_lap_sum(lap_f, np.where(ok, p, 0.0) * sample_durations(t, ok), n)
+        energy += _per_lap_sum(lap_f, np.where(ok, p, 0.0) * sample_durations(t, ok, halves_f), n)
         found = True
     out["energy"] = energy if found else nan
     return pd.DataFrame(out)

@@ -191,7 +191,22 @@ def rms(t: np.ndarray, e: np.ndarray) -> float:
     return float(np.sqrt(area.sum() / total))  # [1] mean square value
 
 
-def sample_durations(t: np.ndarray, valid: np.ndarray | None = None) -> np.ndarray:
+def interval_halves(t: np.ndarray) -> np.ndarray:
+    """Half of each sample interval, 0 across a data gap (or a repeated time).
+
+    What :func:`sample_durations` builds on; found once when several signals share
+    the time axis ``t`` (increasing) [s]. Length ``len(t) - 1``. [s]
+    """
+    t = np.asarray(t, dtype=float)
+    if t.size < 2:
+        return np.zeros(0)
+    dt = np.diff(t)
+    return np.where(~data_gaps(t, GAP_FACTOR) & (dt > 0), 0.5 * dt, 0.0)
+
+
+def sample_durations(
+    t: np.ndarray, valid: np.ndarray | None = None, halves: np.ndarray | None = None
+) -> np.ndarray:
     """Time each sample stands for: half of each usable neighbouring interval.
 
     Parameters
@@ -201,6 +216,8 @@ def sample_durations(t: np.ndarray, valid: np.ndarray | None = None) -> np.ndarr
     valid : ndarray of bool, optional
         Samples that count; intervals touching an invalid sample or spanning a
         data gap stand for nobody.
+    halves : ndarray, optional
+        ``interval_halves(t)``, when already found for another signal on ``t``.
 
     Returns
     -------
@@ -208,12 +225,12 @@ def sample_durations(t: np.ndarray, valid: np.ndarray | None = None) -> np.ndarr
         Duration of each sample; their sum is the logged time. [s]
     """
     t = np.asarray(t, dtype=float)
-    ok_s = np.ones(t.size, dtype=bool) if valid is None else np.asarray(valid, dtype=bool)
     if t.size < 2:
         return np.zeros(t.size)
-    dt = np.diff(t)
-    ok = ok_s[:-1] & ok_s[1:] & ~data_gaps(t, GAP_FACTOR) & (dt > 0)
-    half = np.where(ok, 0.5 * dt, 0.0)
+    half = interval_halves(t) if halves is None else halves
+    if valid is not None:
+        ok_s = np.asarray(valid, dtype=bool)
+        half = np.where(ok_s[:-1] & ok_s[1:], half, 0.0)
     w = np.zeros(t.size)
     w[:-1] += half
     w[1:] += half

@@ -32,7 +32,7 @@ from analysis.detect.slip import SPIN
 from analysis.detect.tipover import F_Z_MIN, _side
 from analysis.events import Event, mask_of_events
 from analysis.kinematics import column, sample_weights
-from analysis.metrics import integrate, logged_time, sample_durations
+from analysis.metrics import integrate, interval_halves, logged_time, sample_durations
 from analysis.profile import RobotProfile, Thresholds
 
 #: Detectors whose KPIs are rebuilt here.
@@ -67,16 +67,22 @@ class _Share:
         return self.inside / self.total if self.total > 0 else None
 
 
-def _share_hold(t: np.ndarray, mask: np.ndarray, valid: np.ndarray, acc: _Share) -> None:
-    """Add a core's part of :func:`analysis.kinematics.time_share` (zero-order hold)."""
-    w = sample_weights(t) * valid
+def _share_hold(hold: np.ndarray, mask: np.ndarray, valid: np.ndarray, acc: _Share) -> None:
+    """Add a core's part of :func:`analysis.kinematics.time_share` (zero-order hold).
+
+    ``hold``: ``sample_weights(t)`` of the core. [s]"""
+    w = hold * valid
     acc.total += float(w.sum())
     acc.inside += float((w * mask).sum())
 
 
-def _share_durations(t: np.ndarray, cond: np.ndarray, valid: np.ndarray, acc: _Share) -> None:
-    """Add a core's part of :func:`analysis.metrics.time_where` (half intervals)."""
-    w = sample_durations(t, valid)
+def _share_durations(
+    t: np.ndarray, halves: np.ndarray, cond: np.ndarray, valid: np.ndarray, acc: _Share
+) -> None:
+    """Add a core's part of :func:`analysis.metrics.time_where` (half intervals).
+
+    ``halves``: ``interval_halves(t)`` of the core. [s]"""
+    w = sample_durations(t, valid, halves)
     acc.total += float(w.sum())
     acc.inside += float(w[cond & valid].sum())
 
@@ -163,6 +169,9 @@ class ChunkKpis:
     samples: int | None = None
     margins: LowestValues = field(init=False)
     unsupported_samples: int = 0
+    # the current core's sample_weights(t) and interval_halves(t), set by add [s]
+    _hold: np.ndarray = field(init=False, repr=False)
+    _halves: np.ndarray = field(init=False, repr=False)
 
     def __post_init__(self) -> None:
         self.margins = LowestValues(None if self.samples is None else lowest_needed(self.samples))
@@ -184,6 +193,8 @@ class ChunkKpis:
         if t.size == 0:
             return
         own = slice(0, t.size - 1 if closing else t.size)  # samples that belong to the core
+        # the core's sample weights, found once for all its signals
+        self._hold, self._halves = sample_weights(t), interval_halves(t)
         for name in self.first_kpis:
             getattr(self, f"_add_{name}")(t, frame, series, events, own)
 
@@ -209,7 +220,7 @@ class ChunkKpis:
             else:
                 sig = cmd if cmd is not None else req
                 valid = np.isfinite(np.asarray(sig)) & np.isfinite(avail)
-            _share_hold(t, sat, valid, self._get(f"sat.{act.name}.share", _Share))
+            _share_hold(self._hold, sat, valid, self._get(f"sat.{act.name}.share", _Share))
             rms = series[f"{act.name}.{cat.TORQUE_RMS}"].to_numpy(dtype=float)[own]
             full = (t[own] - self.t_first) >= self.th.thermal_window_s * (1 - 1e-9)
             cand = np.where(full & np.isfinite(rms), rms, -np.inf)
@@ -257,13 +268,15 @@ class ChunkKpis:
             slip = series[name].to_numpy(dtype=float)
             valid = np.isfinite(slip)
             mine = [e for e in events if e.kind == cat.SLIP and e.channel == act.name]
-            _share_hold(t, mask_of_events(t, mine), valid, self._get(f"slip.{act.name}", _Share))
+            _share_hold(
+                self._hold, mask_of_events(t, mine), valid, self._get(f"slip.{act.name}", _Share)
+            )
             a = np.abs(slip[own])
             if np.isfinite(a).any():
                 self._get(f"slip.{act.name}.peak", _Extreme).offer(float(np.nanmax(a)), 0.0)
         if cat.YAW_RATE_WHEELS in series:
             diff = series[cat.YAW_RATE_WHEELS].to_numpy(dtype=float) - column(frame, cat.YAW_RATE)
-            w = sample_weights(t) * np.isfinite(diff)
+            w = self._hold * np.isfinite(diff)
             acc = self._get("slip.yaw", _Share)
             acc.total += float(w.sum())
             acc.inside += float(np.nansum(w * diff * diff))
@@ -305,13 +318,15 @@ class ChunkKpis:
         margin = series[cat.TIP_MARGIN].to_numpy(dtype=float)
         y_zmp = series[cat.ZMP_Y].to_numpy(dtype=float)
         valid = np.isfinite(margin)
-        _share_durations(t, margin < self.th.tip_margin_on, valid, self._get("tip.below", _Share))
+        _share_durations(
+            t, self._halves, margin < self.th.tip_margin_on, valid, self._get("tip.below", _Share)
+        )
         roll = column(frame, cat.ROLL)
         f_z = series[cat.SPECIFIC_FORCE_Z].to_numpy(dtype=float)
         L_c = series[cat.COM_HEIGHT].to_numpy(dtype=float)
         with np.errstate(invalid="ignore"):
             unsupported = (f_z < F_Z_MIN) & np.isfinite(np.asarray(roll)) & np.isfinite(L_c)
-        _share_durations(t, unsupported, valid, self._get("tip.unsupported", _Share))
+        _share_durations(t, self._halves, unsupported, valid, self._get("tip.unsupported", _Share))
         self.unsupported_samples += int(unsupported[own].sum())
         tv, mv, yv = t[own][valid[own]], margin[own][valid[own]], y_zmp[own][valid[own]]
         if mv.size:
@@ -371,7 +386,9 @@ class ChunkKpis:
             s[key] = s.get(key, 0.0) + integrate(t, f)
         s["logged"] = s.get("logged", 0.0) + logged_time(t, e * e)
         with np.errstate(invalid="ignore"):
-            _share_durations(t, np.abs(e) <= band, valid, self._get("roll.band", _Share))
+            _share_durations(
+                t, self._halves, np.abs(e) <= band, valid, self._get("roll.band", _Share)
+            )
         a = np.abs(e[own])
         if np.isfinite(a).any():
             self._get("roll.max", _Extreme).offer(float(np.nanmax(a)), 0.0)

@@ -390,12 +390,15 @@ class _BucketRuns:
             gap = nan[self.grid]
             lows, highs = np.where(gap, np.inf, values), np.where(gap, -np.inf, values)
         rows = np.arange(self.grid.shape[0])
-        keep = np.zeros(y.size, dtype=bool)
-        keep[self.grid[rows, lows.argmin(axis=1)]] = True
-        keep[self.grid[rows, highs.argmax(axis=1)]] = True
+        lo = self.grid[rows, lows.argmin(axis=1)]
+        hi = self.grid[rows, highs.argmax(axis=1)]
+        # the runs are in order: each run's two positions, earlier first, are sorted
+        pairs = np.column_stack((np.minimum(lo, hi), np.maximum(lo, hi))).ravel()
+        keep = np.ones(pairs.size, dtype=bool)
+        keep[1::2] = lo != hi  # one position when the first minimum is the first maximum
         if nan is not None:
-            keep &= ~nan  # a bucket of NaN only gives a NaN row: no extreme
-        return np.flatnonzero(keep)
+            keep &= ~nan[pairs]  # a bucket of NaN only gives a NaN row: no extreme
+        return pairs[keep]
 
 
 def _first_extremes(y: np.ndarray, bucket: np.ndarray) -> np.ndarray:

@@ -90,7 +90,31 @@ def torque_available(
     return np.clip(tau, 0.0, peak)
 
 
-def sliding_rms(t: np.ndarray, x: np.ndarray, window_s: float) -> np.ndarray:
+def window_starts(t: np.ndarray, window_s: float) -> tuple[np.ndarray, np.ndarray]:
+    """Where each trailing window ``(t_i - W, t_i]`` starts, for linear interpolation.
+
+    Returns ``(j, frac)`` with ``t_i - W = t[j] + frac (t[j+1] - t[j])`` and
+    ``0 <= frac < 1`` (``j = 0, frac = 0`` before the first sample), so that a
+    cumulative sum ``c`` reads ``c[j] + frac (c[j+1] - c[j])`` there, as
+    ``np.interp(t - W, t, c)`` would. Found once and shared by every signal on
+    the same time axis. ``t`` increasing, at least two samples, ``W > 0``.
+    """
+    start = t - window_s
+    j = np.searchsorted(t, start, side="right") - 1  # t[j] <= start < t[j + 1]
+    before = j < 0
+    # with W > 0, start < t_i <= t[-1], so t[j + 1] > t[j]; the clip is for W = 0 (frac 1)
+    np.clip(j, 0, t.size - 2, out=j)
+    frac = (start - t[j]) / (t[j + 1] - t[j])
+    frac[before] = 0.0
+    return j, frac
+
+
+def sliding_rms(
+    t: np.ndarray,
+    x: np.ndarray,
+    window_s: float,
+    starts: tuple[np.ndarray, np.ndarray] | None = None,
+) -> np.ndarray:
     """Trailing time-window RMS, time-weighted, skipping data gaps and NaN.
 
     Parameters
@@ -101,6 +125,8 @@ def sliding_rms(t: np.ndarray, x: np.ndarray, window_s: float) -> np.ndarray:
         Signal; NaN samples carry no weight. [unit]
     window_s : float
         Window length W; the value at ``t_i`` covers ``(t_i - W, t_i]``. [s]
+    starts : tuple of ndarray, optional
+        ``window_starts(t, window_s)``, when already found for another signal.
 
     Returns
     -------
@@ -113,8 +139,8 @@ def sliding_rms(t: np.ndarray, x: np.ndarray, window_s: float) -> np.ndarray:
     ``RMS = sqrt(integral(x^2 dt) / T_logged)`` over the window, with the
     integral by the trapezoidal rule on each sample interval that is not a
     data gap. Both the integral and the logged time are cumulative sums, read
-    at the window's two ends by linear interpolation in t, so the cost is
-    O(n) whatever the window.
+    at the window's two ends by linear interpolation in t (:func:`window_starts`),
+    so the cost does not grow with the window.
     """
     t = np.asarray(t, dtype=float)
     x = np.asarray(x, dtype=float)
@@ -127,9 +153,9 @@ def sliding_rms(t: np.ndarray, x: np.ndarray, window_s: float) -> np.ndarray:
     ok = np.isfinite(seg_sq) & (h > 0)
     energy = np.concatenate(([0.0], np.cumsum(np.where(ok, seg_sq * h, 0.0))))
     logged = np.concatenate(([0.0], np.cumsum(np.where(ok, h, 0.0))))
-    start = t - window_s
-    e0 = np.interp(start, t, energy)
-    l0 = np.interp(start, t, logged)
+    j, frac = window_starts(t, window_s) if starts is None else starts
+    e0 = energy[j] + frac * (energy[j + 1] - energy[j])
+    l0 = logged[j] + frac * (logged[j + 1] - logged[j])
     span = logged - l0
     with np.errstate(invalid="ignore", divide="ignore"):
         rms = np.sqrt(np.maximum(energy - e0, 0.0) / span)
@@ -166,7 +192,11 @@ def _saturation_mask(
 
 
 def _analyse_actuator(
-    frame: pd.DataFrame, t: np.ndarray, act: Actuator, th: Thresholds
+    frame: pd.DataFrame,
+    t: np.ndarray,
+    act: Actuator,
+    th: Thresholds,
+    starts: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> tuple[dict[str, np.ndarray], list[Event], dict[str, Any], list[str]] | str:
     """Series, events, KPIs and notes of one actuator, or the reason it was left out."""
     req = column(frame, cat.actuator_signal(act.name, cat.TORQUE_REQ))
@@ -204,7 +234,7 @@ def _analyse_actuator(
     events = intervals_to_events(t, sig, intervals, cat.SATURATION, act.name, detail=detail)
 
     rms_src = next(x for x in (meas, cmd, req) if x is not None)
-    rms = sliding_rms(t, rms_src, th.thermal_window_s)
+    rms = sliding_rms(t, rms_src, th.thermal_window_s, starts)
     kpis: dict[str, Any] = {
         "method": method,
         "saturated_share": time_share(t, sat, valid),
@@ -290,8 +320,10 @@ def detect_saturation(
     result = DetectorResult(DETECTOR)
     series: dict[str, Any] = {cat.T: t}
     left_out: list[str] = []
+    # the thermal windows start at the same places for every actuator
+    starts = window_starts(t, th.thermal_window_s) if t.size >= 2 else None
     for act in profile.actuators:
-        out = _analyse_actuator(frame, t, act, th)
+        out = _analyse_actuator(frame, t, act, th, starts)
         if isinstance(out, str):
             left_out.append(out)
             continue

@@ -8,7 +8,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.detect.saturation import detect_saturation, sliding_rms, torque_available
+from analysis.detect.saturation import (
+    detect_saturation,
+    sliding_rms,
+    torque_available,
+    window_starts,
+)
 from analysis.events import Event
 from analysis.profile import (
     Actuator,
@@ -123,6 +128,21 @@ def test_rms_ignores_data_gaps_and_nan() -> None:
     rest = np.delete(rms, [0, 100])
     # A constant 2 N*m keeps RMS 2 whatever is missing (definition of RMS over logged time).
     assert rest == pytest.approx(np.full(rest.size, 2.0), rel=1e-12)
+
+
+@pytest.mark.parametrize("window_s", [0.0, 0.0125, 0.3, 2.0, 50.0])
+def test_window_starts_read_a_cumulative_sum_as_np_interp_does(window_s: float) -> None:
+    # Reference: numpy.interp (linear interpolation, the first value before the first
+    # sample), on irregular times with a repeated stamp and a data gap.
+    rng = np.random.default_rng(7)
+    t = np.cumsum(rng.uniform(0.001, 0.01, 600))
+    t[100] = t[99]  # a repeated time stamp
+    t[300:] += 4.0  # a hole of 4 s
+    c = np.cumsum(rng.normal(size=t.size))
+    j, frac = window_starts(t, window_s)
+    got = c[j] + frac * (c[j + 1] - c[j])
+    assert got == pytest.approx(np.interp(t - window_s, t, c), rel=1e-12, abs=1e-12)
+    assert ((frac >= 0) & (frac <= 1)).all()
 
 
 # --- request beyond the limiter ---------------------------------------------------------------
