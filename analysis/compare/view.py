@@ -124,8 +124,13 @@ def overlay(
                     "signals": per,
                 }
             )
-            for e in run.events:
-                s, f = np.interp([e.start_s, e.end_s], t, pos)
+            # every event's ends in one call (a call per event converts t and pos each time)
+            ends = np.interp(
+                np.array([[e.start_s, e.end_s] for e in run.events], dtype=float).reshape(-1),
+                t,
+                pos,
+            ).reshape(-1, 2)
+            for e, (s, f) in zip(run.events, ends.tolist(), strict=True):
                 if f < lo or s > r_hi:
                     continue
                 events.append(

@@ -134,21 +134,19 @@ def course_map(archive: Archive, run_id: str, colour: str = "tip_margin") -> dic
     stored = archive.read_results(run_id)
     if stored is not None:
         ev = stored[0]
-        for kind, channel, start in zip(
+        starts = ev["start_s"].to_numpy(dtype=float)
+        # all events in one call: each call converts the path's arrays (an eight-hour
+        # run's 3,222 events one by one took 56 s)
+        xs, ys = np.interp(starts, path.t, path.x), np.interp(starts, path.t, path.y)
+        for kind, channel, start, x, y in zip(
             ev["kind"].astype(str),
             ev["channel"].astype(str),
-            ev["start_s"].astype(float),
+            starts.tolist(),
+            xs.tolist(),
+            ys.tolist(),
             strict=True,
         ):
-            events.append(
-                {
-                    "kind": kind,
-                    "channel": channel,
-                    "start_s": start,
-                    "x": float(np.interp(start, path.t, path.x)),
-                    "y": float(np.interp(start, path.t, path.y)),
-                }
-            )
+            events.append({"kind": kind, "channel": channel, "start_s": start, "x": x, "y": y})
     return {
         "available": True,
         "t": _finite_list(path.t[idx]),
