@@ -22,6 +22,7 @@ detectors' results, so a check of the profile never depends on the profile.
 
 from __future__ import annotations
 
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -62,6 +63,11 @@ STEADY_PITCH_RATE = 0.2
 MIN_SAMPLES = 50
 #: Share of the largest residuals dropped before the final fit (robust to slip). [-]
 TRIM = 0.05
+#: Most (x, y) pairs a fit of :func:`calibrate_chunks` holds. [-] 2**22 pairs of two
+#: float64 are 64 MiB per fit (two fits: 128 MiB); the fit itself makes a few
+#: temporaries of that length (finite mask, residuals, trimmed copies), so its peak
+#: stays within a few hundred MiB. (2**22 samples are 5.8 h at 200 Hz.)
+MAX_FIT_PAIRS = 1 << 22
 
 
 @dataclass
@@ -145,6 +151,320 @@ def _fit_through_origin(x: np.ndarray, y: np.ndarray) -> tuple[float | None, int
     return k, int(len(x))
 
 
+@dataclass
+class _Selection:
+    """The samples of one frame (or chunk) that the estimates rest on.
+
+    Every entry is selected sample by sample, so a run cut into consecutive chunks
+    selects the same samples, in the same order, as the whole run. An entry is None
+    when the signals it needs are not logged.
+    """
+
+    #: Finite (mean ground rate, velocity estimate) pairs of the radius fit. [rad/s, m/s]
+    radius: tuple[np.ndarray, np.ndarray] | None
+    #: Finite (yaw rate, ``ground_r - ground_l``) pairs of the track fit; the second is
+    #: multiplied by the wheel radius once that is known. [rad/s, rad/s]
+    track: tuple[np.ndarray, np.ndarray] | None
+    #: Finite values whose mean is an estimate (gyro rates and attitude minus
+    #: accelerometer tilt at standstill), by estimate key, in the order of the
+    #: estimates. [rad/s or rad]
+    means: dict[str, np.ndarray]
+
+    def layout(self) -> tuple[bool, bool, tuple[str, ...]]:
+        """Which estimates the frame's columns allow."""
+        return self.radius is not None, self.track is not None, tuple(self.means)
+
+
+def _finite_pairs(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The pairs of ``x`` and ``y`` where both are finite."""
+    ok = np.isfinite(x) & np.isfinite(y)
+    return x[ok], y[ok]
+
+
+def _select(frame: pd.DataFrame, profile: RobotProfile) -> _Selection:
+    """Select the samples of the radius and track fits, the standstill and its values.
+
+    Parameters
+    ----------
+    frame : DataFrame
+        The run's frame or one chunk of its rows (catalogue names, SI units, column ``t``).
+    profile : RobotProfile
+        The profile (wheels, encoder reference, wheel radius for the standstill test).
+
+    Returns
+    -------
+    _Selection
+        The selected finite samples, as new arrays (never views into ``frame``).
+    """
+    n = len(frame[cat.T])
+    yaw_rate = column(frame, cat.YAW_RATE)
+    pitch_rate = column(frame, cat.PITCH_RATE)
+    roll_rate = column(frame, cat.ROLL_RATE)
+    vel_x = column(frame, cat.VEL_X)
+    wheels = profile.wheels()
+    w_l = column(frame, cat.actuator_signal(wheels["l"].name, cat.VEL)) if "l" in wheels else None
+    w_r = column(frame, cat.actuator_signal(wheels["r"].name, cat.VEL)) if "r" in wheels else None
+    relative = profile.wheel_encoder_reference != "ground"
+    q = pitch_rate if pitch_rate is not None else np.zeros(n)
+    ground_l = None if w_l is None else (w_l + q if relative else w_l)
+    ground_r = None if w_r is None else (w_r + q if relative else w_r)
+
+    # Wheel radius: v = r * mean ground rate, on straight, steady, moving stretches.
+    radius = None
+    if vel_x is not None and ground_l is not None and ground_r is not None and yaw_rate is not None:
+        w_mid = 0.5 * (ground_l + ground_r)
+        steady = np.abs(q) < STEADY_PITCH_RATE
+        use = (np.abs(yaw_rate) < STRAIGHT_YAW_RATE) & (np.abs(vel_x) > MOVING_SPEED) & steady
+        radius = _finite_pairs(w_mid[use], vel_x[use])
+
+    # Track width: r (w_R - w_L) = b * yaw_rate, on turning stretches.
+    track = None
+    if ground_l is not None and ground_r is not None and yaw_rate is not None:
+        use = np.abs(yaw_rate) > TURN_YAW_RATE
+        track = _finite_pairs(yaw_rate[use], (ground_r - ground_l)[use])
+
+    # Standstill: no speed, wheels still.
+    still = np.ones(n, dtype=bool)
+    if vel_x is not None:
+        still &= np.abs(vel_x) < STILL_SPEED
+    for g in (ground_l, ground_r):
+        if g is not None:
+            still &= np.abs(g * profile.wheel_radius) < STILL_SPEED
+    if vel_x is None and ground_l is None:
+        still[:] = False
+    means: dict[str, np.ndarray] = {}
+    for key, rate in (
+        ("gyro_bias_roll", roll_rate),
+        ("gyro_bias_pitch", pitch_rate),
+        ("gyro_bias_yaw", yaw_rate),
+    ):
+        if rate is not None:
+            vals = rate[still]
+            means[key] = vals[np.isfinite(vals)]
+
+    # Accelerometer tilt at rest. Specific force of gravity in the body frame
+    # (x forward, y left, z up; pitch positive nose down, roll positive right side
+    # down): f_x = -g sin(pitch), f_y = g sin(roll) cos(pitch), f_z = g cos(roll) cos(pitch),
+    # so pitch = atan2(-f_x, hypot(f_y, f_z)) and roll = atan2(f_y, f_z)
+    # (standard accelerometer tilt sensing, e.g. Freescale AN3461, from memory).
+    ax, ay, az = (column(frame, c) for c in (cat.ACCEL_X, cat.ACCEL_Y, cat.ACCEL_Z))
+    pitch = column(frame, cat.PITCH)
+    roll = column(frame, cat.ROLL)
+    if ax is not None and ay is not None and az is not None:
+        fx, fy, fz = ax[still], ay[still], az[still]
+        pitch_acc = np.arctan2(-fx, np.hypot(fy, fz))
+        roll_acc = np.arctan2(fy, fz)
+        for key, est, acc in (
+            ("accel_tilt_pitch", pitch, pitch_acc),
+            ("accel_tilt_roll", roll, roll_acc),
+        ):
+            if est is not None:
+                d = est[still] - acc
+                means[key] = d[np.isfinite(d)]
+    return _Selection(radius, track, means)
+
+
+def _ordinal(k: int) -> str:
+    """English ordinal of a positive integer: 2nd, 4th, 32nd, 512th."""
+    if k % 100 in (11, 12, 13):
+        return f"{k}th"
+    return f"{k}{ {1: 'st', 2: 'nd', 3: 'rd'}.get(k % 10, 'th') }"
+
+
+class _ThinnedPairs:
+    """The (x, y) pairs of a fit, collected chunk by chunk, at most ``max_pairs`` held.
+
+    The pairs held are always selected samples number 0, k, 2k, ... (counted over
+    the whole run) with k a power of two: when one more would exceed ``max_pairs``,
+    every other pair held is dropped and k doubles.
+    """
+
+    def __init__(self, max_pairs: int | None) -> None:
+        self.max_pairs = max_pairs
+        #: Every ``step``-th selected sample is held. [-]
+        self.step = 1
+        #: Selected (finite) samples seen so far, held or not. [-]
+        self.seen = 0
+        self._x: list[np.ndarray] = []
+        self._y: list[np.ndarray] = []
+        self._held = 0
+
+    def add(self, x: np.ndarray, y: np.ndarray) -> None:
+        """Take the next selected pairs (finite, in time order)."""
+        m = len(x)
+        if self.max_pairs is not None:
+            while self._held + len(range((-self.seen) % self.step, m, self.step)) > self.max_pairs:
+                self._halve()
+        first = (-self.seen) % self.step
+        if first < m:
+            self._x.append(np.array(x[first :: self.step], dtype=np.float64))
+            self._y.append(np.array(y[first :: self.step], dtype=np.float64))
+            self._held += len(self._x[-1])
+        self.seen += m
+
+    def _halve(self) -> None:
+        """Keep rows 0, 2, 4, ... of the pairs held, and from now on every 2k-th sample."""
+        x, y = self.pairs()
+        self._x, self._y = [x[::2].copy()], [y[::2].copy()]
+        self._held = len(self._x[0])
+        self.step *= 2
+
+    def pairs(self) -> tuple[np.ndarray, np.ndarray]:
+        """The pairs held, concatenated."""
+        if not self._x:
+            return np.empty(0), np.empty(0)
+        return np.concatenate(self._x), np.concatenate(self._y)
+
+    def note(self) -> str:
+        """What the fit rests on, when thinned; empty otherwise."""
+        if self.step == 1:
+            return ""
+        return f"fitted on every {_ordinal(self.step)} of {self.seen:,} samples"
+
+
+def _join(*notes: str) -> str:
+    """Notes joined by "; ", empty ones left out."""
+    return "; ".join(n for n in notes if n)
+
+
+class _Accumulator:
+    """Pairs, sums and counts of a run's selections, gathered chunk by chunk."""
+
+    def __init__(self, layout: tuple[bool, bool, tuple[str, ...]], max_pairs: int | None) -> None:
+        self.layout = layout
+        has_radius, has_track, mean_keys = layout
+        self.radius = _ThinnedPairs(max_pairs) if has_radius else None
+        self.track = _ThinnedPairs(max_pairs) if has_track else None
+        self.sums = dict.fromkeys(mean_keys, 0.0)
+        self.counts = dict.fromkeys(mean_keys, 0)
+
+    def add(self, sel: _Selection) -> None:
+        """Add one chunk's selection (its columns must be the first chunk's)."""
+        if sel.layout() != self.layout:
+            raise ValueError("all chunks of a run must have the same columns")
+        if self.radius is not None and sel.radius is not None:
+            self.radius.add(*sel.radius)
+        if self.track is not None and sel.track is not None:
+            self.track.add(*sel.track)
+        for key, vals in sel.means.items():
+            self.sums[key] += float(np.sum(vals))
+            self.counts[key] += len(vals)
+
+    def result(self, profile: RobotProfile) -> Calibration:
+        """The estimates, in the order and with the notes of :func:`calibrate`."""
+        out = Calibration()
+        r_est: float | None = None
+        if self.radius is not None:
+            r_est, samples = _fit_through_origin(*self.radius.pairs())
+            out.estimates.append(
+                Estimate(
+                    "wheel_radius",
+                    "Effective wheel radius",
+                    "m",
+                    r_est,
+                    profile.wheel_radius,
+                    self.radius.seen if self.radius.step > 1 else samples,
+                    RADIUS_TOLERANCE,
+                    "relative",
+                    _join(
+                        ""
+                        if r_est is not None
+                        else "too few straight, steady samples above 0.3 m/s",
+                        self.radius.note(),
+                    ),
+                )
+            )
+
+        if self.track is not None:
+            r_use = r_est if r_est is not None else profile.wheel_radius
+            yaw_rate, ground_diff = self.track.pairs()
+            b_est, samples = _fit_through_origin(yaw_rate, r_use * ground_diff)
+            out.estimates.append(
+                Estimate(
+                    "track_width",
+                    "Effective track width",
+                    "m",
+                    b_est,
+                    profile.track_width,
+                    self.track.seen if self.track.step > 1 else samples,
+                    TRACK_TOLERANCE,
+                    "relative",
+                    _join(
+                        (
+                            "with the estimated wheel radius"
+                            if r_est is not None
+                            else "with the profile's wheel radius"
+                        )
+                        if b_est is not None
+                        else "too few turning samples (|yaw rate| above 0.25 rad/s)",
+                        self.track.note(),
+                    ),
+                )
+            )
+
+        for key, label in (
+            ("gyro_bias_roll", "Gyro bias, roll rate"),
+            ("gyro_bias_pitch", "Gyro bias, pitch rate"),
+            ("gyro_bias_yaw", "Gyro bias, yaw rate"),
+        ):
+            if key not in self.sums:
+                continue
+            count = self.counts[key]
+            bias = self.sums[key] / count if count >= MIN_SAMPLES else None
+            out.estimates.append(
+                Estimate(
+                    key,
+                    label,
+                    "rad/s",
+                    bias,
+                    0.0,
+                    count,
+                    GYRO_BIAS_TOLERANCE,
+                    "absolute",
+                    "" if bias is not None else "too little standstill",
+                )
+            )
+
+        for key, label in (
+            ("accel_tilt_pitch", "Attitude minus accelerometer tilt, pitch"),
+            ("accel_tilt_roll", "Attitude minus accelerometer tilt, roll"),
+        ):
+            if key not in self.sums:
+                continue
+            count = self.counts[key]
+            off = self.sums[key] / count if count >= MIN_SAMPLES else None
+            out.estimates.append(
+                Estimate(
+                    key,
+                    label,
+                    "rad",
+                    off,
+                    0.0,
+                    count,
+                    TILT_TOLERANCE,
+                    "absolute",
+                    "accelerometer mounting or attitude-estimate offset"
+                    if off is not None
+                    else "too little standstill",
+                )
+            )
+        return out
+
+
+def _calibrate_frames(
+    frames: Iterable[pd.DataFrame], profile: RobotProfile, max_pairs: int | None
+) -> Calibration:
+    """Gather the selections of consecutive frames, then fit; see :func:`calibrate_chunks`."""
+    acc: _Accumulator | None = None
+    for frame in frames:
+        sel = _select(frame, profile)
+        if acc is None:
+            acc = _Accumulator(sel.layout(), max_pairs)
+        acc.add(sel)
+        del sel
+    return Calibration() if acc is None else acc.result(profile)
+
+
 def calibrate(frame: pd.DataFrame, profile: RobotProfile) -> Calibration:
     """Estimate wheel radius, track width, gyro bias and accelerometer tilt from a run.
 
@@ -161,136 +481,46 @@ def calibrate(frame: pd.DataFrame, profile: RobotProfile) -> Calibration:
         One :class:`Estimate` per quantity that the logged signals allow; an
         estimate is None (with a note) when too few samples qualify.
     """
-    out = Calibration()
-    t = frame[cat.T].to_numpy(dtype=float)
-    n = len(t)
-    nan = np.full(n, np.nan)
-    yaw_rate = column(frame, cat.YAW_RATE)
-    pitch_rate = column(frame, cat.PITCH_RATE)
-    roll_rate = column(frame, cat.ROLL_RATE)
-    vel_x = column(frame, cat.VEL_X)
-    wheels = profile.wheels()
-    w_l = column(frame, cat.actuator_signal(wheels["l"].name, cat.VEL)) if "l" in wheels else None
-    w_r = column(frame, cat.actuator_signal(wheels["r"].name, cat.VEL)) if "r" in wheels else None
-    relative = profile.wheel_encoder_reference != "ground"
-    q = pitch_rate if pitch_rate is not None else np.zeros(n)
-    ground_l = None if w_l is None else (w_l + q if relative else w_l)
-    ground_r = None if w_r is None else (w_r + q if relative else w_r)
+    return _calibrate_frames([frame], profile, None)
 
-    # Wheel radius: v = r * mean ground rate, on straight, steady, moving stretches.
-    r_est: float | None = None
-    if vel_x is not None and ground_l is not None and ground_r is not None and yaw_rate is not None:
-        w_mid = 0.5 * (ground_l + ground_r)
-        steady = np.abs(q) < STEADY_PITCH_RATE
-        use = (np.abs(yaw_rate) < STRAIGHT_YAW_RATE) & (np.abs(vel_x) > MOVING_SPEED) & steady
-        r_est, samples = _fit_through_origin(w_mid[use], vel_x[use])
-        out.estimates.append(
-            Estimate(
-                "wheel_radius",
-                "Effective wheel radius",
-                "m",
-                r_est,
-                profile.wheel_radius,
-                samples,
-                RADIUS_TOLERANCE,
-                "relative",
-                "" if r_est is not None else "too few straight, steady samples above 0.3 m/s",
-            )
-        )
 
-    # Track width: r (w_R - w_L) = b * yaw_rate, on turning stretches.
-    if ground_l is not None and ground_r is not None and yaw_rate is not None:
-        r_use = r_est if r_est is not None else profile.wheel_radius
-        diff = r_use * (ground_r - ground_l)
-        use = np.abs(yaw_rate) > TURN_YAW_RATE
-        b_est, samples = _fit_through_origin(yaw_rate[use], diff[use])
-        out.estimates.append(
-            Estimate(
-                "track_width",
-                "Effective track width",
-                "m",
-                b_est,
-                profile.track_width,
-                samples,
-                TRACK_TOLERANCE,
-                "relative",
-                (
-                    "with the estimated wheel radius"
-                    if r_est is not None
-                    else "with the profile's wheel radius"
-                )
-                if b_est is not None
-                else "too few turning samples (|yaw rate| above 0.25 rad/s)",
-            )
-        )
+def calibrate_chunks(
+    frames: Iterable[pd.DataFrame], profile: RobotProfile, max_pairs: int = MAX_FIT_PAIRS
+) -> Calibration:
+    """:func:`calibrate` of a run fed as consecutive chunks of rows, in bounded memory.
 
-    # Standstill: no speed, wheels still.
-    still = np.ones(n, dtype=bool)
-    if vel_x is not None:
-        still &= np.abs(vel_x) < STILL_SPEED
-    for g in (ground_l, ground_r):
-        if g is not None:
-            still &= np.abs(g * profile.wheel_radius) < STILL_SPEED
-    if vel_x is None and ground_l is None:
-        still[:] = False
-    for key, label, rate in (
-        ("gyro_bias_roll", "Gyro bias, roll rate", roll_rate),
-        ("gyro_bias_pitch", "Gyro bias, pitch rate", pitch_rate),
-        ("gyro_bias_yaw", "Gyro bias, yaw rate", yaw_rate),
-    ):
-        if rate is None:
-            continue
-        vals = rate[still]
-        vals = vals[np.isfinite(vals)]
-        bias = float(np.mean(vals)) if len(vals) >= MIN_SAMPLES else None
-        out.estimates.append(
-            Estimate(
-                key,
-                label,
-                "rad/s",
-                bias,
-                0.0,
-                len(vals),
-                GYRO_BIAS_TOLERANCE,
-                "absolute",
-                "" if bias is not None else "too little standstill",
-            )
-        )
+    Every sample is selected (straight, turning, standstill) on its own values, so
+    the chunks' selections together are the whole run's. The gyro biases and tilts
+    are means from running sums and counts; the two fits collect their selected
+    pairs and are fitted at the end, as in :func:`calibrate`.
 
-    # Accelerometer tilt at rest. Specific force of gravity in the body frame
-    # (x forward, y left, z up; pitch positive nose down, roll positive right side
-    # down): f_x = -g sin(pitch), f_y = g sin(roll) cos(pitch), f_z = g cos(roll) cos(pitch),
-    # so pitch = atan2(-f_x, hypot(f_y, f_z)) and roll = atan2(f_y, f_z)
-    # (standard accelerometer tilt sensing, e.g. Freescale AN3461, from memory).
-    ax, ay, az = (column(frame, c) for c in (cat.ACCEL_X, cat.ACCEL_Y, cat.ACCEL_Z))
-    pitch = column(frame, cat.PITCH)
-    roll = column(frame, cat.ROLL)
-    if ax is not None and ay is not None and az is not None:
-        fx, fy, fz = ax[still], ay[still], az[still]
-        pitch_acc = np.arctan2(-fx, np.hypot(fy, fz))
-        roll_acc = np.arctan2(fy, fz)
-        for key, label, est, acc in (
-            ("accel_tilt_pitch", "Attitude minus accelerometer tilt, pitch", pitch, pitch_acc),
-            ("accel_tilt_roll", "Attitude minus accelerometer tilt, roll", roll, roll_acc),
-        ):
-            if est is None:
-                continue
-            d = (est[still] if est is not None else nan[still]) - acc
-            d = d[np.isfinite(d)]
-            off = float(np.mean(d)) if len(d) >= MIN_SAMPLES else None
-            out.estimates.append(
-                Estimate(
-                    key,
-                    label,
-                    "rad",
-                    off,
-                    0.0,
-                    len(d),
-                    TILT_TOLERANCE,
-                    "absolute",
-                    "accelerometer mounting or attitude-estimate offset"
-                    if off is not None
-                    else "too little standstill",
-                )
-            )
-    return out
+    Parameters
+    ----------
+    frames : iterable of DataFrame
+        The run's rows in time order, cut into consecutive chunks without overlap,
+        all with the same columns (catalogue names, SI units, column ``t``). Which
+        estimates are made is decided by the first chunk's columns.
+    profile : RobotProfile
+        The profile to check (wheel radius, track width, encoder reference).
+    max_pairs : int, optional
+        Most (x, y) pairs held per fit; at least ``2 * MIN_SAMPLES``. Beyond it the
+        fit rests on selected samples number 0, k, 2k, ... (k a power of two, as
+        small as fits), and the estimate's note names k; ``samples`` stays the
+        number of selected samples.
+
+    Returns
+    -------
+    Calibration
+        The estimates of :func:`calibrate` on the whole run: identical while no fit
+        is thinned, except that the means may differ in the last bits (the order
+        of additions); empty when ``frames`` is empty.
+
+    Raises
+    ------
+    ValueError
+        If ``max_pairs`` is below ``2 * MIN_SAMPLES``, or a chunk's columns allow
+        other estimates than the first chunk's.
+    """
+    if max_pairs < 2 * MIN_SAMPLES:
+        raise ValueError(f"max_pairs must be at least {2 * MIN_SAMPLES}, got {max_pairs}")
+    return _calibrate_frames(frames, profile, max_pairs)

@@ -8,6 +8,7 @@ the DC-motor torque-speed line in the motoring and the braking quadrants.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Iterable
 from typing import Any
 
 import numpy as np
@@ -188,4 +189,107 @@ def actuator_envelope(
         "saturated_points": marks,
         "peak_abs_torque": float(np.max(np.abs(torque[valid]))) if n_valid else None,
         "share_above_continuous": float(above.mean()) if n_valid else None,
+    }
+
+
+#: A source of a run's rows in consecutive chunks: each call starts over and yields
+#: (frame, saturated flags on the frame's rows or None).
+Chunks = Callable[[], Iterable[tuple[pd.DataFrame, np.ndarray | None]]]
+
+
+def _chunk_signals(
+    frame: pd.DataFrame, actuator: Actuator
+) -> tuple[np.ndarray | None, np.ndarray | None, str | None]:
+    speed = column(frame, cat.actuator_signal(actuator.name, cat.VEL))
+    torque, source = envelope_torque(frame, actuator.name)
+    return speed, torque, source
+
+
+def actuator_envelope_chunks(
+    chunks: Chunks,
+    actuator: Actuator,
+    *,
+    bins: int = DEFAULT_BINS,
+    max_marks: int = 2000,
+) -> dict[str, Any] | None:
+    """:func:`actuator_envelope` of a run read in chunks, in bounded memory.
+
+    Two passes over ``chunks()`` (each chunk's rows already inside the wanted time
+    window): the first finds the axis ranges, the counts and the peak torque, the
+    second fills the density (counts per cell add up exactly) and picks the
+    saturated marks, the same samples as :func:`actuator_envelope` picks from the
+    whole run. The saturated flags are used only when every chunk has them for
+    every row (as the whole-run picture needs them for every row).
+    """
+    first = True
+    source: str | None = None
+    n_valid = n_above = n_marked = 0
+    speed_peak = torque_peak = valid_peak = -np.inf
+    flags = True
+    for frame, sat in chunks():
+        speed, torque, src = _chunk_signals(frame, actuator)
+        if first:
+            first, source = False, src
+            if speed is None or torque is None:
+                return None
+        if speed is None or torque is None or not len(frame):
+            continue
+        valid = np.isfinite(speed) & np.isfinite(torque)
+        n_valid += int(valid.sum())
+        with np.errstate(invalid="ignore"):  # an all-NaN chunk: no peak from it
+            speed_peak = max(speed_peak, float(np.nanmax(np.abs(speed), initial=-np.inf)))
+            torque_peak = max(torque_peak, float(np.nanmax(np.abs(torque), initial=-np.inf)))
+        on = np.abs(torque[valid])
+        valid_peak = max(valid_peak, float(on.max(initial=-np.inf)))
+        n_above += int((on > actuator.continuous_torque).sum())
+        if sat is None or len(sat) != len(frame):
+            flags = False
+        else:
+            n_marked += int((np.asarray(sat, dtype=bool) & valid).sum())
+    if first:
+        return None  # no chunk: no columns to look at
+    # the same axis ranges as actuator_envelope (nanmax over every sample of the window)
+    speed_max = speed_peak if n_valid and np.isfinite(speed_peak) else 1.0
+    speed_max = max(speed_max * 1.05, 1e-3)
+    if actuator.motor is not None:
+        m = actuator.motor
+        speed_max = max(speed_max, min(m.bus_voltage / m.k_e, 3 * speed_max))
+    torque_max = max(actuator.peak_torque * 1.1, torque_peak if n_valid else 0)
+    ranges = [(-speed_max, speed_max), (-torque_max, torque_max)]
+    counts = np.zeros((bins, bins))
+    s_edges = q_edges = np.empty(0)
+    # the marks: saturated valid samples number 0 .. n-1 of the window, evenly picked
+    pick = np.arange(n_marked)
+    if n_marked > max_marks:
+        pick = np.linspace(0, n_marked - 1, max_marks).round().astype(int)
+    marks: dict[str, list[float]] = {"speed": [], "torque": []}
+    seen = 0
+    for frame, sat in chunks():
+        speed, torque, _ = _chunk_signals(frame, actuator)
+        if speed is None or torque is None:
+            continue
+        ok = np.isfinite(speed) & np.isfinite(torque)
+        c, s_edges, q_edges = np.histogram2d(speed[ok], torque[ok], bins=bins, range=ranges)
+        counts += c
+        if flags and sat is not None:
+            idx = np.flatnonzero(np.asarray(sat, dtype=bool) & ok)
+            lo, hi = np.searchsorted(pick, [seen, seen + idx.size])
+            mine = idx[pick[lo:hi] - seen]
+            marks["speed"] += speed[mine].tolist()
+            marks["torque"] += torque[mine].tolist()
+            seen += idx.size
+    if not s_edges.size:  # no rows at all: the edges of an empty density
+        _, s_edges, q_edges = np.histogram2d([], [], bins=bins, range=ranges)
+    total = counts.sum()
+    return {
+        "actuator": actuator.name,
+        "torque_source": source,
+        "samples": n_valid,
+        "share": counts / total if total > 0 else counts,
+        "speed_edges": s_edges,
+        "torque_edges": q_edges,
+        "lines": limit_lines(actuator, speed_max),
+        "saturated_points": marks,
+        "peak_abs_torque": valid_peak if n_valid else None,
+        "share_above_continuous": n_above / n_valid if n_valid else None,
     }
