@@ -402,51 +402,31 @@ class _Accumulator:
                 )
             )
 
-        for key, label in (
-            ("gyro_bias_roll", "Gyro bias, roll rate"),
-            ("gyro_bias_pitch", "Gyro bias, pitch rate"),
-            ("gyro_bias_yaw", "Gyro bias, yaw rate"),
-        ):
+        # standstill means: gyro biases, then attitude minus accelerometer tilt
+        tilt_note = "accelerometer mounting or attitude-estimate offset"
+        for key, label, unit, tol, note in (
+            ("gyro_bias_roll", "Gyro bias, roll rate", "rad/s", GYRO_BIAS_TOLERANCE, ""),
+            ("gyro_bias_pitch", "Gyro bias, pitch rate", "rad/s", GYRO_BIAS_TOLERANCE, ""),
+            ("gyro_bias_yaw", "Gyro bias, yaw rate", "rad/s", GYRO_BIAS_TOLERANCE, ""),
+            ("accel_tilt_pitch", "Attitude minus accelerometer tilt, pitch", "rad", TILT_TOLERANCE, tilt_note),
+            ("accel_tilt_roll", "Attitude minus accelerometer tilt, roll", "rad", TILT_TOLERANCE, tilt_note),
+        ):  # fmt: skip
             if key not in self.sums:
                 continue
             count = self.counts[key]
-            bias = self.sums[key] / count if count >= MIN_SAMPLES else None
+            mean = self.sums[key] / count if count >= MIN_SAMPLES else None
             out.estimates.append(
                 Estimate(
                     key,
                     label,
-                    "rad/s",
-                    bias,
+                    unit,
+                    mean,
                     0.0,
                     count,
-                    GYRO_BIAS_TOLERANCE,
+                    tol,
                     "absolute",
-                    "" if bias is not None else "too little standstill",
-                )
-            )
-
-        for key, label in (
-            ("accel_tilt_pitch", "Attitude minus accelerometer tilt, pitch"),
-            ("accel_tilt_roll", "Attitude minus accelerometer tilt, roll"),
-        ):
-            if key not in self.sums:
-                continue
-            count = self.counts[key]
-            off = self.sums[key] / count if count >= MIN_SAMPLES else None
-            out.estimates.append(
-                Estimate(
-                    key,
-                    label,
-                    "rad",
-                    off,
-                    0.0,
-                    count,
-                    TILT_TOLERANCE,
-                    "absolute",
-                    "accelerometer mounting or attitude-estimate offset"
-                    if off is not None
-                    else "too little standstill",
-                )
+                    note if mean is not None else "too little standstill",
+                )  # fmt: skip
             )
         return out
 
