@@ -1,25 +1,30 @@
 """What the course map, actuator envelope and calibration panels draw, for one stored run.
 
 Each function reads a stored run (the frame columns and derived series it draws,
-never the whole run: an eight-hour run's frame is gigabytes; events, profile), calls
-the computation of :mod:`analysis.detect.course_map`, :mod:`analysis.detect.envelope`
-or :mod:`analysis.detect.calibrate`, and returns plain JSON-ready data: values a
-person reads in display units (:mod:`analysis.display`: angles in deg, rates in
-deg/s, shares in %), each with its unit.
+never the whole run: an eight-hour run's frame is gigabytes; events, profile) in
+windows of :data:`WINDOW_ROWS` rows, feeds them to the chunked computation of
+:mod:`analysis.detect.course_map`, :mod:`analysis.detect.envelope` or
+:mod:`analysis.detect.calibrate` (memory does not grow with the run's length), and
+returns plain JSON-ready data: values a person reads in display units
+(:mod:`analysis.display`: angles in deg, rates in deg/s, shares in %), each with its
+unit.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Iterator
 from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from analysis import catalogue as cat
+from analysis.archive.files import RowGroupCache
 from analysis.archive.store import Archive
-from analysis.detect.calibrate import calibrate
-from analysis.detect.course_map import course_path, thin_indices
-from analysis.detect.envelope import actuator_envelope
+from analysis.detect.calibrate import calibrate_chunks
+from analysis.detect.course_map import course_path_chunks
+from analysis.detect.envelope import actuator_envelope_chunks
 from analysis.display import display_unit
 from analysis.errors import OutriggerError, RunNotFoundError
 from analysis.profile import RobotProfile
@@ -33,10 +38,46 @@ MAP_COLOURS: dict[str, tuple[str, str]] = {
 }
 
 
+#: Rows of the run's base stream read at once: a window of about 10 columns is then
+#: some 80 MiB, whatever the run's length. [-]
+WINDOW_ROWS = 1 << 20
+
+#: Time read beyond a window's ends in the derived series, so that a colour on another
+#: time base is interpolated between the same samples as over the whole run. [s]
+SERIES_MARGIN_S = 1.0
+
+Window = tuple[float | None, float | None]
+
+
 class PictureError(OutriggerError):
     """A picture was asked for with a choice that does not exist."""
 
     status = 400
+
+
+def _windows(
+    archive: Archive, run_id: str, t0: float | None = None, t1: float | None = None
+) -> tuple[list[Window], int]:
+    """Consecutive inclusive time windows of :data:`WINDOW_ROWS` rows covering ``[t0, t1]``.
+
+    Each window ends just before the next one's first sample time (no row is read
+    twice, none is skipped, also where times repeat). Also returns the rows in all.
+    """
+    t = archive.load_frame(run_id, columns=[], t0=t0, t1=t1)[cat.T].to_numpy(dtype=float)
+    starts = t[WINDOW_ROWS::WINDOW_ROWS]
+    starts = starts[np.r_[True, starts[1:] > starts[:-1]]] if starts.size else starts
+    lows: list[float | None] = [t0, *starts.tolist()]
+    highs: list[float | None] = [float(np.nextafter(s, -np.inf)) for s in starts.tolist()]
+    return list(zip(lows, [*highs, t1], strict=True)), int(t.size)
+
+
+def _frames(
+    archive: Archive, run_id: str, columns: list[str], windows: list[Window]
+) -> Iterator[tuple[Window, pd.DataFrame]]:
+    """The run's frame with ``columns``, window after window (one row group cache)."""
+    cache = RowGroupCache()
+    for lo, hi in windows:
+        yield (lo, hi), archive.load_frame(run_id, columns=columns, t0=lo, t1=hi, cache=cache)
 
 
 def _finite_list(values: np.ndarray, digits: int = 6) -> list[float | None]:
@@ -63,37 +104,50 @@ def _calibration_columns(profile: RobotProfile) -> list[str]:
     return [*rates, *wheels, cat.ACCEL_X, cat.ACCEL_Y, cat.ACCEL_Z, cat.PITCH, cat.ROLL]
 
 
-def _colour_values(
-    archive: Archive, run_id: str, colour: str, frame_t: np.ndarray, vel_x: Any
-) -> np.ndarray | None:
-    if colour == "speed":
-        return None if vel_x is None else np.asarray(vel_x, dtype=float)
+def _series_names(archive: Archive, run_id: str, colour: str) -> list[str] | None:
+    """The derived series a colour is made of (None: the run was not analysed)."""
     try:
-        # The names first (an empty window: the row groups' statistics skip every one),
-        # then only the colour's columns: a long run's series are gigabytes.
+        # an empty window: the row groups' statistics skip every one
         names = archive.read_result_series(run_id, t0=-1.0, t1=-1.0).columns
-        if colour == "slip_speed":
-            wanted = [c for c in names if c.endswith("." + cat.SLIP_SPEED)]
-        else:
-            wanted = [colour] if colour in names else []
-        series = archive.read_result_series(run_id, wanted)
     except RunNotFoundError:
         return None
     if colour == "slip_speed":
-        cols = [c for c in series.columns if c.endswith("." + cat.SLIP_SPEED)]
-        if not cols:
-            return None
-        vals = series[cols].to_numpy(dtype=float)
+        return [c for c in names if c.endswith("." + cat.SLIP_SPEED)]
+    return [colour] if colour in names else []
+
+
+def _colour_values(
+    archive: Archive,
+    run_id: str,
+    colour: str,
+    wanted: list[str] | None,
+    window: Window,
+    frame: pd.DataFrame,
+) -> np.ndarray | None:
+    """The colour series on the frame's rows (of one window), or None."""
+    if colour == "speed":
+        return frame[cat.VEL_X].to_numpy(dtype=float) if cat.VEL_X in frame else None
+    if not wanted:
+        return None
+    lo, hi = window
+    series = archive.read_result_series(
+        run_id,
+        wanted,
+        None if lo is None else lo - SERIES_MARGIN_S,
+        None if hi is None else hi + SERIES_MARGIN_S,
+    )
+    if colour == "slip_speed":
+        vals = series[wanted].to_numpy(dtype=float)
         with np.errstate(all="ignore"):
             idx = np.nanargmax(np.where(np.isnan(vals), -np.inf, np.abs(vals)), axis=1)
         picked = vals[np.arange(len(vals)), idx]
-    elif colour in series.columns:
-        picked = series[colour].to_numpy(dtype=float)
     else:
-        return None
+        picked = series[colour].to_numpy(dtype=float)
     st = series[cat.T].to_numpy(dtype=float)
-    if len(st) == len(frame_t) and np.array_equal(st, frame_t):
-        return picked
+    frame_t = frame[cat.T].to_numpy(dtype=float)
+    if not st.size:
+        return np.full(frame_t.size, np.nan)
+    # the series' own samples where the time bases agree (interp at a sample is exact)
     return np.interp(frame_t, st, picked, left=np.nan, right=np.nan)
 
 
@@ -114,52 +168,53 @@ def course_map(archive: Archive, run_id: str, colour: str = "tip_margin") -> dic
             f"{', '.join(MAP_COLOURS)}."
         )
     profile = archive.load_profile(run_id)
-    frame = archive.load_frame(run_id, columns=_course_columns(profile))
-    path = course_path(frame, profile)
     label, si_unit = MAP_COLOURS[colour]
+    stored = archive.read_results(run_id)
+    ev = stored[0] if stored is not None else None
+    starts = np.zeros(0) if ev is None else ev["start_s"].to_numpy(dtype=float)
+    wanted = None if colour == "speed" else _series_names(archive, run_id, colour)
+    windows, rows = _windows(archive, run_id)
+    columns = _course_columns(profile)
+
+    def chunks() -> Iterator[tuple[pd.DataFrame, np.ndarray | None]]:
+        for window, frame in _frames(archive, run_id, columns, windows):
+            yield frame, _colour_values(archive, run_id, colour, wanted, window, frame)
+
+    path = course_path_chunks(chunks, profile, rows, starts)
     if path is None:
         return {
             "available": False,
             "reason": "The run has no heading (yaw or yaw_rate) or no forward speed "
             "(vel_x or both wheel speeds) to dead-reckon a path from.",
         }
-    vel_x = frame[cat.VEL_X].to_numpy(dtype=float) if cat.VEL_X in frame else None
-    values = _colour_values(archive, run_id, colour, path.t, vel_x)
-    idx = thin_indices(len(path.t))
     unit, factor = display_unit(si_unit)
     if si_unit == "" and colour == "tip_margin":
         unit, factor = "", 1.0
-    shown = None if values is None else values[idx] * factor
+    shown = None if path.colour is None else path.colour * factor
     events = []
-    stored = archive.read_results(run_id)
-    if stored is not None:
-        ev = stored[0]
-        starts = ev["start_s"].to_numpy(dtype=float)
-        # all events in one call: each call converts the path's arrays (an eight-hour
-        # run's 3,222 events one by one took 56 s)
-        xs, ys = np.interp(starts, path.t, path.x), np.interp(starts, path.t, path.y)
+    if ev is not None:
         for kind, channel, start, x, y in zip(
             ev["kind"].astype(str),
-            ev["channel"].astype(str),
+            [c if isinstance(c, str) else None for c in ev["channel"].tolist()],  # NaN: none
             starts.tolist(),
-            xs.tolist(),
-            ys.tolist(),
+            path.event_x.tolist(),
+            path.event_y.tolist(),
             strict=True,
         ):
             events.append({"kind": kind, "channel": channel, "start_s": start, "x": x, "y": y})
     return {
         "available": True,
-        "t": _finite_list(path.t[idx]),
-        "x": _finite_list(path.x[idx]),
-        "y": _finite_list(path.y[idx]),
+        "t": _finite_list(path.t),
+        "x": _finite_list(path.x),
+        "y": _finite_list(path.y),
         "value": None if shown is None else _finite_list(shown, 4),
         "colour": colour,
         "value_label": label,
         "value_unit": unit,
         "colours": {k: v[0] for k, v in MAP_COLOURS.items()},
         "events": events,
-        "length_m": float(path.distance[-1]),
-        "closure_m": float(math.hypot(path.x[-1] - path.x[0], path.y[-1] - path.y[0])),
+        "length_m": path.length_m,
+        "closure_m": path.closure_m,
         "heading_source": path.heading_source,
         "speed_source": path.speed_source,
         "note": "Dead-reckoned from heading and speed: the path drifts over a run; "
@@ -200,16 +255,23 @@ def envelope(
             for q in (cat.VEL, cat.TORQUE, cat.TORQUE_CMD, cat.TORQUE_REQ)
         ),
     ]
-    frame = archive.load_frame(run_id, columns=cols[1:])
-    saturated = None
+    name = f"{actuator}.{cat.SATURATED}"
     try:
-        series = archive.read_result_series(run_id, [f"{actuator}.{cat.SATURATED}"])
-        name = f"{actuator}.{cat.SATURATED}"
-        if name in series and len(series) == len(frame):
-            saturated = series[name].to_numpy(dtype=bool)
+        flagged = name in archive.read_result_series(run_id, t0=-1.0, t1=-1.0).columns
     except RunNotFoundError:
-        pass
-    env = actuator_envelope(frame, act, saturated=saturated, t0=t0, t1=t1)
+        flagged = False
+    windows, _ = _windows(archive, run_id, t0, t1)
+
+    def chunks() -> Iterator[tuple[pd.DataFrame, np.ndarray | None]]:
+        for (lo, hi), frame in _frames(archive, run_id, cols[1:], windows):
+            saturated = None
+            if flagged:  # the flags only where they lie on the frame's own rows
+                series = archive.read_result_series(run_id, [name], lo, hi)
+                if len(series) == len(frame):
+                    saturated = series[name].to_numpy(dtype=bool)
+            yield frame, saturated
+
+    env = actuator_envelope_chunks(chunks, act)
     if env is None:
         return {
             "available": False,
@@ -252,7 +314,9 @@ def envelope(
 def calibration(archive: Archive, run_id: str) -> dict[str, Any]:
     """The calibration check of a run against its stored profile, in display units."""
     profile = archive.load_profile(run_id)
-    result = calibrate(archive.load_frame(run_id, columns=_calibration_columns(profile)), profile)
+    windows, _ = _windows(archive, run_id)
+    columns = _calibration_columns(profile)
+    result = calibrate_chunks((f for _, f in _frames(archive, run_id, columns, windows)), profile)
     rows = []
     for e in result.estimates:
         unit, factor = display_unit(e.unit)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import math
 
+import numpy as np
 import pytest
 from fastapi.testclient import TestClient
 
@@ -102,43 +103,94 @@ def test_fleet_trends_refuse_an_unknown_kpi_with_the_choices(client: TestClient)
     assert "min_tip_margin" in r.text and "happiness" in r.text
 
 
+@pytest.mark.parametrize("window_rows", [None, 997, 4099])
+@pytest.mark.parametrize("which", ["demo", "planted"])
 def test_pictures_read_only_their_columns_and_match_the_whole_frame(
-    client: TestClient, stocked: Stocked, monkeypatch: pytest.MonkeyPatch
+    client: TestClient,
+    stocked: Stocked,
+    monkeypatch: pytest.MonkeyPatch,
+    window_rows: int | None,
+    which: str,
 ) -> None:
     """An eight-hour run's whole frame is gigabytes: each picture reads the columns it
-    draws, and gives what its computation gives on the whole frame."""
+    draws, window after window, and gives what its computation gives on the whole frame
+    (small windows: odd cuts, through events, the planted run's hole and saturations)."""
     from analysis.archive.store import Archive
+    from analysis.detect import pictures
     from analysis.detect.calibrate import calibrate
     from analysis.detect.course_map import course_path, thin_indices
     from analysis.detect.envelope import actuator_envelope
 
+    run_id = stocked.demo_id if which == "demo" else stocked.planted_id
     archive = Archive(stocked.root)
-    whole = archive.load_frame(stocked.demo_id)
-    profile = archive.load_profile(stocked.demo_id)
-    asked: list[object] = []
+    whole = archive.load_frame(run_id)
+    profile = archive.load_profile(run_id)
+    if window_rows is not None:
+        monkeypatch.setattr(pictures, "WINDOW_ROWS", window_rows)
+    asked: list[tuple[list[str] | None, float | None, float | None]] = []
     load_frame = Archive.load_frame
 
-    def spy(self, run_id, columns=None, *args, **kwargs):
-        asked.append(columns)
-        return load_frame(self, run_id, columns, *args, **kwargs)
+    def spy(self, run_id, columns=None, t0=None, t1=None, **kwargs):
+        asked.append((columns, t0, t1))
+        return load_frame(self, run_id, columns, t0, t1, **kwargs)
 
     monkeypatch.setattr(Archive, "load_frame", spy)
-    body = client.get(f"/api/runs/{stocked.demo_id}/course-map").json()
+    body = client.get(f"/api/runs/{run_id}/course-map?colour=speed").json()
     path = course_path(whole, profile)
     assert path is not None
     idx = thin_indices(len(path.t))
-    # The page's numbers carry 6 significant digits (pictures._finite_list).
+    # The page's numbers carry 6 significant digits (pictures._finite_list); running
+    # sums added in parts differ from one pass in the last bits only.
+    assert body["t"] == pytest.approx(path.t[idx].tolist(), rel=1e-5, abs=1e-9)
     assert body["x"] == pytest.approx(path.x[idx].tolist(), rel=1e-5, abs=1e-9)
     assert body["y"] == pytest.approx(path.y[idx].tolist(), rel=1e-5, abs=1e-9)
-    cal = client.get(f"/api/runs/{stocked.demo_id}/calibration").json()
-    assert cal["si"] == json.loads(json.dumps(calibrate(whole, profile).to_dict()))
-    env = client.get(f"/api/runs/{stocked.demo_id}/envelope?actuator=wheel_l").json()
-    saturated = archive.read_result_series(stocked.demo_id, ["wheel_l.saturated"])
-    ref = actuator_envelope(
-        whole,
-        profile.actuator("wheel_l"),
-        saturated=saturated["wheel_l.saturated"].to_numpy(dtype=bool),
+    assert body["value"] == pytest.approx(whole["vel_x"].to_numpy()[idx].tolist(), rel=1e-3)
+    assert body["length_m"] == pytest.approx(float(path.distance[-1]), rel=1e-12)
+    starts = archive.read_results(run_id)[0]["start_s"].to_numpy(dtype=float)
+    assert len(body["events"]) == len(starts) > 0
+    assert [e["x"] for e in body["events"]] == pytest.approx(
+        np.interp(starts, path.t, path.x).tolist(), rel=1e-9, abs=1e-9
     )
-    assert ref is not None and env["samples"] == ref["samples"] > 0
-    assert env["saturated_points"] == ref["saturated_points"]
-    assert len(asked) == 3 and all(cols is not None and len(cols) <= 16 for cols in asked)
+    tip = client.get(f"/api/runs/{run_id}/course-map?colour=tip_margin").json()
+    margin = archive.read_result_series(run_id, ["tip_margin"])["tip_margin"].to_numpy()
+    assert len(margin) == len(whole)  # the derived series lie on the frame's rows
+    assert tip["value"] == pytest.approx(margin[idx].tolist(), rel=1e-3, nan_ok=True)
+    cal = client.get(f"/api/runs/{run_id}/calibration").json()
+    ref_cal = json.loads(json.dumps(calibrate(whole, profile).to_dict()))
+    if window_rows is None:  # one window: the very same sums
+        assert cal["si"] == ref_cal
+    else:  # the means' additions in another order: the last bits
+        assert cal["si"]["corrected_profile"] == ref_cal["corrected_profile"]
+        assert len(cal["si"]["estimates"]) == len(ref_cal["estimates"]) > 0
+        for got, want in zip(cal["si"]["estimates"], ref_cal["estimates"], strict=True):
+            if want["estimate"] is not None:
+                want = {**want, "estimate": pytest.approx(want["estimate"], rel=1e-12)}
+            assert got == want
+    marks = 0
+    for act in profile.actuator_names:
+        env = client.get(f"/api/runs/{run_id}/envelope?actuator={act}").json()
+        saturated = archive.read_result_series(run_id, [f"{act}.saturated"])
+        ref = actuator_envelope(
+            whole,
+            profile.actuator(act),
+            saturated=saturated[f"{act}.saturated"].to_numpy(dtype=bool),
+        )
+        if ref is None:
+            assert env["available"] is False
+            continue
+        assert env["samples"] == ref["samples"] > 0
+        assert env["saturated_points"] == ref["saturated_points"]
+        assert env["share_pct"] == pytest.approx(
+            pictures._finite_list(ref["share"].T.ravel() * 100.0, 4)
+        )
+        marks += len(env["saturated_points"]["speed"])
+    if which == "planted":  # its wheels saturate (clipped requests)
+        assert marks > 0  # the saturated marks were compared, not only empty lists
+    windows = math.ceil(len(whole) / (window_rows or pictures.WINDOW_ROWS))
+    # per picture: the time column once, then the picture's columns window by window
+    data = [(cols, t0, t1) for cols, t0, t1 in asked if cols != []]
+    assert len(asked) - len(data) == 3 + len(profile.actuator_names)  # two course maps
+    assert all(cols is not None and len(cols) <= 16 for cols, _, _ in data)
+    assert len(data) >= 2 * windows  # course map and calibration: every window
+    if windows > 1:  # no read of the whole run's rows
+        assert all(t0 is not None or t1 is not None for _, t0, t1 in data)
