@@ -25,13 +25,16 @@ stored overview" is left out: it reduces the whole run from its samples, which
 reads every column of the run at once.
 
 The peak resident memory of this process (server, benchmark and the every-sample
-JSON; Chromium is a separate process) is printed at the end.
+JSON; Chromium is a separate process) is printed at the end, and then, for each
+picture of the Run page (course map, actuator envelope, calibration check), the
+time and peak resident memory of a fresh process that computes it from the
+archive (``--no-pictures`` to skip).
 
 Targets (dashboard issue): first full draw under 2 s, a zoom round trip under
 200 ms, the page's data under 2 MB however long the run.
 
 Run: ``.venv/bin/python benchmarks/bench_dashboard.py [--minutes N] [--fresh]
-[--every-sample-minutes M] [--no-browser]`` (``--minutes 480`` for the eight-hour run).
+[--every-sample-minutes M] [--no-browser] [--no-pictures]`` (``--minutes 480`` for the eight-hour run).
 """
 
 from __future__ import annotations
@@ -290,11 +293,55 @@ def browser_figures(base: str, run_id: str, cache: Any, duration_s: float) -> di
     return out
 
 
+#: The Run page's pictures as called by their routes, each timed in a fresh process.
+PICTURES = {
+    "course map (tip-over margin)": "pictures.course_map(a, rid, 'tip_margin')",
+    "actuator envelope (first wheel)": "pictures.envelope(a, rid)",
+    "calibration check": "pictures.calibration(a, rid)",
+}
+
+# The peak is the kernel's VmHWM of the child's own memory: ru_maxrss would carry the
+# parent's peak over fork and exec (Linux keeps it), VmHWM starts anew with exec.
+_PICTURE_CHILD = """
+import json, sys, time
+from analysis.archive.store import Archive
+from analysis.detect import pictures
+def hwm_kib():
+    with open("/proc/self/status") as f:
+        return next(int(line.split()[1]) for line in f if line.startswith("VmHWM:"))
+a, rid = Archive(sys.argv[1]), sys.argv[2]
+before = hwm_kib()
+t0, c0 = time.perf_counter(), time.process_time()
+out = {call}
+wall, cpu = time.perf_counter() - t0, time.process_time() - c0
+peak = hwm_kib()
+print(json.dumps({{"wall_s": wall, "cpu_s": cpu, "peak_kib": peak, "start_kib": before,
+                  "json_bytes": len(json.dumps(out))}}))
+"""
+
+
+def picture_figures(archive_dir: Path, run_id: str) -> dict[str, dict[str, float]]:
+    """Time and peak RSS of each Run page picture, each in a fresh process."""
+    import subprocess
+
+    out = {}
+    for name, call in PICTURES.items():
+        done = subprocess.run(
+            [sys.executable, "-c", _PICTURE_CHILD.format(call=call), str(archive_dir), run_id],
+            capture_output=True,
+            text=True,
+            check=True,
+        )
+        out[name] = json.loads(done.stdout.strip().splitlines()[-1])
+    return out
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--minutes", type=float, default=60.0, help="run length (default 60)")
     parser.add_argument("--fresh", action="store_true", help="rebuild the scratch archive")
     parser.add_argument("--no-browser", action="store_true", help="skip the Chromium figures")
+    parser.add_argument("--no-pictures", action="store_true", help="skip the pictures' processes")
     parser.add_argument(
         "--every-sample-minutes",
         type=float,
@@ -425,6 +472,15 @@ def main() -> None:
         print()
     peak_kib = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
     print(f"Peak resident memory of this process (server + benchmark): {peak_kib / 1024**2:.1f} GB")
+    if args.no_pictures:
+        return
+    print("Run page pictures, each computed in a fresh process (peak RSS includes imports):")
+    for name, fig in picture_figures(archive_dir, run_id).items():
+        print(
+            f"  {name:33s} {fig['wall_s']:6.1f} s wall {fig['cpu_s']:6.1f} s CPU  "
+            f"peak {fig['peak_kib'] / 1024:6.0f} MiB (after imports {fig['start_kib'] / 1024:4.0f})"
+            f"  {fig['json_bytes'] / 1e6:5.2f} MB JSON"
+        )
 
 
 if __name__ == "__main__":

@@ -38,6 +38,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
@@ -552,6 +553,29 @@ class Archive:
                 got[name] = tab.column(stored).take(take)
         # built in the wanted order: reordering the pandas frame afterwards copies it
         return pa.table({catalogue.T: t, **{c: got[c] for c in wanted}}).to_pandas()
+
+    def row_group_starts(self, run_id: str) -> tuple[np.ndarray, np.ndarray] | None:
+        """First time [s] and row count of each row group of the run's base stream.
+
+        Read from the Parquet footer's statistics (no rows are decoded), for cutting a
+        long run into windows. None where they are not at hand: a run in an object
+        store, or a file written without statistics of ``t``.
+        """
+        if not self.is_local:
+            return None
+        base, _ = self._owners(self.get_meta(run_id))
+        md = pq.ParquetFile(self._run_dir(run_id) / base["path"]).metadata
+        col = md.schema.to_arrow_schema().get_field_index(catalogue.T)
+        firsts, rows = [], []
+        for i in range(md.num_row_groups):
+            rg = md.row_group(i)
+            stats = rg.column(col).statistics
+            if rg.num_rows and (stats is None or not stats.has_min_max):
+                return None
+            if rg.num_rows:
+                firsts.append(float(stats.min))
+                rows.append(rg.num_rows)
+        return np.asarray(firsts, dtype=float), np.asarray(rows, dtype=np.int64)
 
     def _read_stream(
         self, run_dir: Path, rel: str, columns: list[str], filters: list[Any] | None

@@ -4,12 +4,23 @@ from __future__ import annotations
 
 import json
 import math
+from collections.abc import Iterator
 
 import numpy as np
 import pytest
 from fastapi.testclient import TestClient
 
-from tests.server.dashboard_fixtures import Stocked
+from analysis.archive.store import Archive
+from tests.server.dashboard_fixtures import (
+    RunInputs,
+    Stocked,
+    fresh_app,
+    ingest_and_analyse,
+)
+
+#: Rows per row group of the run streams in the ``grouped`` archive (stored streams
+#: have 131,072): many row groups in a short run, for the pictures' windows. [-]
+GROUP_ROWS = 1000
 
 
 def test_course_map_answers_a_path_with_events(client: TestClient, stocked: Stocked) -> None:
@@ -103,30 +114,68 @@ def test_fleet_trends_refuse_an_unknown_kpi_with_the_choices(client: TestClient)
     assert "min_tip_margin" in r.text and "happiness" in r.text
 
 
+@pytest.fixture(scope="module")
+def grouped(
+    tmp_path_factory: pytest.TempPathFactory, demo_inputs: RunInputs, planted_inputs: RunInputs
+) -> Stocked:
+    """The demo and planted runs, stored in row groups of GROUP_ROWS rows."""
+    from analysis.ingest import order, stream
+
+    root = tmp_path_factory.mktemp("grouped")
+    archive = Archive(root)
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(stream, "ROW_GROUP_ROWS", GROUP_ROWS)
+        mp.setattr(order, "ROW_GROUP_ROWS", GROUP_ROWS)
+        demo_id = ingest_and_analyse(archive, demo_inputs)
+        planted_id = ingest_and_analyse(archive, planted_inputs)
+    return Stocked(root, demo_id, planted_id)
+
+
+@pytest.fixture(scope="module")
+def grouped_client(grouped: Stocked) -> Iterator[TestClient]:
+    with fresh_app(grouped.root) as c:
+        yield c
+
+
+def test_row_group_starts_are_the_base_streams_first_times(grouped: Stocked) -> None:
+    for run_id in (grouped.demo_id, grouped.planted_id):
+        archive = Archive(grouped.root)
+        t = archive.load_frame(run_id, columns=[])["t"].to_numpy()
+        starts = archive.row_group_starts(run_id)
+        assert starts is not None
+        firsts, rows = starts
+        assert len(firsts) > 2 and int(rows.sum()) == len(t)
+        assert firsts.tolist() == t[np.r_[0, np.cumsum(rows)[:-1]]].tolist()
+
+
 @pytest.mark.parametrize("window_rows", [None, 997, 4099])
+@pytest.mark.parametrize("cuts", ["footer", "times"])
 @pytest.mark.parametrize("which", ["demo", "planted"])
 def test_pictures_read_only_their_columns_and_match_the_whole_frame(
-    client: TestClient,
-    stocked: Stocked,
+    grouped: Stocked,
+    grouped_client: TestClient,
     monkeypatch: pytest.MonkeyPatch,
     window_rows: int | None,
+    cuts: str,
     which: str,
 ) -> None:
     """An eight-hour run's whole frame is gigabytes: each picture reads the columns it
     draws, window after window, and gives what its computation gives on the whole frame
-    (small windows: odd cuts, through events, the planted run's hole and saturations)."""
-    from analysis.archive.store import Archive
+    (small windows: odd cuts, through events, the planted run's hole and saturations;
+    cut at row groups from the file's footer, or at every n-th time read)."""
     from analysis.detect import pictures
     from analysis.detect.calibrate import calibrate
     from analysis.detect.course_map import course_path, thin_indices
     from analysis.detect.envelope import actuator_envelope
 
-    run_id = stocked.demo_id if which == "demo" else stocked.planted_id
-    archive = Archive(stocked.root)
+    run_id = grouped.demo_id if which == "demo" else grouped.planted_id
+    archive = Archive(grouped.root)
     whole = archive.load_frame(run_id)
     profile = archive.load_profile(run_id)
     if window_rows is not None:
         monkeypatch.setattr(pictures, "WINDOW_ROWS", window_rows)
+    if cuts == "times":  # as in an object store: no footer statistics at hand
+        monkeypatch.setattr(Archive, "row_group_starts", lambda self, run_id: None)
     asked: list[tuple[list[str] | None, float | None, float | None]] = []
     load_frame = Archive.load_frame
 
@@ -135,6 +184,7 @@ def test_pictures_read_only_their_columns_and_match_the_whole_frame(
         return load_frame(self, run_id, columns, t0, t1, **kwargs)
 
     monkeypatch.setattr(Archive, "load_frame", spy)
+    client = grouped_client
     body = client.get(f"/api/runs/{run_id}/course-map?colour=speed").json()
     path = course_path(whole, profile)
     assert path is not None
@@ -186,10 +236,22 @@ def test_pictures_read_only_their_columns_and_match_the_whole_frame(
         marks += len(env["saturated_points"]["speed"])
     if which == "planted":  # its wheels saturate (clipped requests)
         assert marks > 0  # the saturated marks were compared, not only empty lists
-    windows = math.ceil(len(whole) / (window_rows or pictures.WINDOW_ROWS))
-    # per picture: the time column once, then the picture's columns window by window
+    size = window_rows or pictures.WINDOW_ROWS
+    if cuts == "footer":  # whole row groups per window
+        firsts, rows = archive.row_group_starts(run_id)
+        windows = math.ceil(len(firsts) / max(1, size // int(np.median(rows))))
+    else:
+        windows = math.ceil(len(whole) / size)
+    assert (windows > 1) == (window_rows is not None and window_rows < len(whole) // 2)
+    # the calibration's reads: consecutive windows, each after the one before
+    cal_cols = next(c for c, _, _ in asked if c and "accel_x" in c)
+    cal = [(t0, t1) for c, t0, t1 in asked if c == cal_cols]
+    assert len(cal) == windows and cal[0][0] is None and cal[-1][1] is None
+    assert all(a[1] < b[0] for a, b in zip(cal, cal[1:], strict=False))
+    # with cuts from the footer no time column is read; else once per picture
     data = [(cols, t0, t1) for cols, t0, t1 in asked if cols != []]
-    assert len(asked) - len(data) == 3 + len(profile.actuator_names)  # two course maps
+    time_reads = 3 + len(profile.actuator_names) if cuts == "times" else 0  # two course maps
+    assert len(asked) - len(data) == time_reads
     assert all(cols is not None and len(cols) <= 16 for cols, _, _ in data)
     assert len(data) >= 2 * windows  # course map and calibration: every window
     if windows > 1:  # no read of the whole run's rows
