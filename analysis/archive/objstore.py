@@ -42,7 +42,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.fs as pafs
 
-from analysis.archive.files import json_safe, read_frame, write_frame
+from analysis.archive.files import RowGroupCache, json_safe, read_frame, write_frame
 from analysis.archive.fleet import delete_fleet_rows
 from analysis.archive.location import Location, is_uri
 from analysis.archive.overview_store import overview_fingerprint, write_overview
@@ -489,6 +489,7 @@ class ObjectArchive(Archive):
         columns: list[str] | None = None,
         t0: float | None = None,
         t1: float | None = None,
+        cache: RowGroupCache | None = None,  # not used: objects are read whole per window
     ) -> pd.DataFrame:
         loc = self.series_location(run_id)
         if loc is None:

@@ -655,13 +655,20 @@ class Archive:
         columns: list[str] | None = None,
         t0: float | None = None,
         t1: float | None = None,
+        cache: RowGroupCache | None = None,
     ) -> pd.DataFrame:
-        """Derived series of the last analysis: column ``t`` and the asked columns present."""
+        """Derived series of the last analysis: column ``t`` and the asked columns present.
+
+        ``t0``, ``t1`` bound the time window (inclusive); ``cache`` keeps decoded row
+        groups between calls that read successive windows (as for :meth:`load_frame`).
+        """
         path = self._run_dir(run_id) / "results" / "series.parquet"
         if not path.is_file():
             raise RunNotFoundError(f"Run {run_id} has not been analysed yet; no derived series.")
         names = pq.ParquetFile(path).schema_arrow.names
         cols = names if columns is None else [catalogue.T, *[c for c in columns if c in names]]
+        if cache is not None:
+            return cache.read(path, list(dict.fromkeys(cols)), t0, t1).to_pandas()
         filters = []
         if t0 is not None:
             filters.append((catalogue.T, ">=", t0))

@@ -139,6 +139,7 @@ def _colour_values(
     wanted: list[str] | None,
     window: Window,
     frame: pd.DataFrame,
+    cache: RowGroupCache,
 ) -> np.ndarray | None:
     """The colour series on the frame's rows (of one window), or None."""
     if colour == "speed":
@@ -151,6 +152,7 @@ def _colour_values(
         wanted,
         None if lo is None else lo - SERIES_MARGIN_S,
         None if hi is None else hi + SERIES_MARGIN_S,
+        cache=cache,
     )
     if colour == "slip_speed":
         vals = series[wanted].to_numpy(dtype=float)
@@ -193,8 +195,9 @@ def course_map(archive: Archive, run_id: str, colour: str = "tip_margin") -> dic
     columns = _course_columns(profile)
 
     def chunks() -> Iterator[tuple[pd.DataFrame, np.ndarray | None]]:
+        cache = RowGroupCache()  # the series' row groups, decoded once as the windows move on
         for window, frame in _frames(archive, run_id, columns, windows):
-            yield frame, _colour_values(archive, run_id, colour, wanted, window, frame)
+            yield frame, _colour_values(archive, run_id, colour, wanted, window, frame, cache)
 
     path = course_path_chunks(chunks, profile, rows, starts)
     if path is None:
@@ -279,10 +282,11 @@ def envelope(
     windows, _ = _windows(archive, run_id, t0, t1)
 
     def chunks() -> Iterator[tuple[pd.DataFrame, np.ndarray | None]]:
+        cache = RowGroupCache()  # the series' row groups, decoded once as the windows move on
         for (lo, hi), frame in _frames(archive, run_id, cols[1:], windows):
             saturated = None
             if flagged:  # the flags only where they lie on the frame's own rows
-                series = archive.read_result_series(run_id, [name], lo, hi)
+                series = archive.read_result_series(run_id, [name], lo, hi, cache=cache)
                 if len(series) == len(frame):
                     saturated = series[name].to_numpy(dtype=bool)
             yield frame, saturated
