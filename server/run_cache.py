@@ -127,6 +127,17 @@ class _Entry:
         return sum(c.nbytes for c in self.sources.values()) + views + stored
 
 
+#: Most bytes a whole-run request of a run without a current overview reads from the
+#: samples (float64 values of the asked signals and two time axes): a larger run (an
+#: eight-hour run: 3 GB for the Run page) has its overview built first, a window at a
+#: time, and is answered from it. [B]
+WHOLE_READ_MAX_BYTES = 1 << 30
+
+#: One overview built in a request at a time: a second request for the same run then
+#: finds it stored, instead of both reading the run. [-]
+_BUILDING = threading.Lock()
+
+
 def _run_rows(archive: Archive, run_id: str) -> int:
     """Rows of the run's largest stream (an upper bound of its frame's rows). [-]"""
     streams = archive.get_meta(run_id).get("streams", [])
@@ -368,6 +379,25 @@ class RunCache:
                     entry.stored = overview
                     self._fit(run_id)
         return overview
+
+    def overview_now_if_large(
+        self, archive: Archive, run_id: str, signals: int
+    ) -> RunOverview | None:
+        """For a whole-run request of ``signals`` signals of a run without a current overview.
+
+        None when the run is small enough to be reduced from its samples
+        (:data:`WHOLE_READ_MAX_BYTES`; the caller then has the overview built in the
+        background). Else the overview, built now a window at a time
+        (:func:`ensure_overview`), stored and kept: reading every asked column of a long
+        run whole would take gigabytes.
+        """
+        if _run_rows(archive, run_id) * (signals + 2) * 8 <= WHOLE_READ_MAX_BYTES:
+            return None
+        with _BUILDING:
+            found = self.stored_overview(archive, run_id)  # built meanwhile by another
+            if found is not None:
+                return found
+            return self._keep_overview(archive, run_id, ensure_overview(archive, run_id))
 
     def build_overview_later(self, archive: Archive, run_id: str) -> None:
         """Build, store and keep the run's overview in a background thread (one per run)."""

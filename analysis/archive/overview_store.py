@@ -34,7 +34,9 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from analysis import overview as overview_module
 from analysis.archive.location import Location
+from analysis.catalogue import T
 from analysis.overview import DERIVED, FRAME, RunOverview, SignalOverview, build_overview
 
 
@@ -51,9 +53,27 @@ class RunSource(Protocol):
 
     def get_meta(self, run_id: str) -> dict[str, Any]: ...
 
-    def load_frame(self, run_id: str) -> pd.DataFrame: ...
+    def load_frame(
+        self,
+        run_id: str,
+        columns: list[str] | None = None,
+        t0: float | None = None,
+        t1: float | None = None,
+        cache: Any = None,
+    ) -> pd.DataFrame: ...
 
-    def read_result_series(self, run_id: str) -> pd.DataFrame: ...
+    def read_result_series(
+        self,
+        run_id: str,
+        columns: list[str] | None = None,
+        t0: float | None = None,
+        t1: float | None = None,
+        cache: Any = None,
+    ) -> pd.DataFrame: ...
+
+    def windows(
+        self, run_id: str, rows: int, t0: float | None = None, t1: float | None = None
+    ) -> tuple[list[tuple[float | None, float | None]], int]: ...
 
 
 log = logging.getLogger("outrigger.archive")
@@ -227,22 +247,58 @@ def read_overview(archive: RunSource, run_id: str) -> RunOverview | None:
         return None
 
 
+#: Rows of the run read at once when its overview is built from the archive (about 11
+#: minutes at 400 Hz; whole row groups). [-]
+BUILD_WINDOW_ROWS = 1 << 18
+
+
+def build_overview_in_windows(archive: RunSource, run_id: str) -> RunOverview:
+    """:func:`analysis.overview.build_overview` of a stored run, read a window at a time.
+
+    Every column of the frame and of the derived series, fed in time order to the
+    builder the chunked analysis uses (:class:`analysis.detect.chunked.OverviewBuilder`,
+    checked against ``build_overview`` in ``tests/analysis/detect/test_overview_builder.py``).
+    Memory: one window of every column (:data:`BUILD_WINDOW_ROWS` rows), the kept
+    extremes, and the run's time axis once (8 bytes a row) for its median step.
+    The derived series are taken to lie on the frame's rows, as an analysis writes them.
+    """
+    from analysis.archive.files import RowGroupCache
+    from analysis.detect.chunked import OverviewBuilder
+
+    analysed = archive.series_location(run_id) is not None
+    t_all = archive.load_frame(run_id, columns=[])[T].to_numpy(dtype=float)
+    if t_all.size < 3:  # no median step to speak of: the whole-run function as it is
+        series = archive.read_result_series(run_id) if analysed else None
+        return build_overview(archive.load_frame(run_id), series)
+    t_first, t_last = float(t_all[0]), float(t_all[-1])
+    median_dt = float(np.median(np.diff(t_all), overwrite_input=True))  # as time_gaps
+    del t_all
+    # the bucket count read at call time, as build_overview does
+    builder = OverviewBuilder(t_first, t_last, median_dt, overview_module.OVERVIEW_BUCKETS)
+    frames, derived = RowGroupCache(), RowGroupCache()
+    windows, _ = archive.windows(run_id, BUILD_WINDOW_ROWS)
+    for i, (lo, hi) in enumerate(windows):
+        builder.add(archive.load_frame(run_id, t0=lo, t1=hi, cache=frames), FRAME)
+        if i == 0:
+            builder.freeze_frame_names()
+        if analysed:
+            builder.add(archive.read_result_series(run_id, t0=lo, t1=hi, cache=derived), DERIVED)
+    return builder.finish()
+
+
 def ensure_overview(archive: RunSource, run_id: str) -> RunOverview:
     """The run's overview: the stored one when current, else built now and stored.
 
     A run stored before overviews existed, or whose overview is stale or
-    unreadable, gets one here (reading the whole run once). When it cannot be
-    stored (read-only archive, full disk) the built overview is still returned.
+    unreadable, gets one here (:func:`build_overview_in_windows`: the run read once,
+    a window at a time). When it cannot be stored (read-only archive, full disk) the
+    built overview is still returned.
     """
     found = read_overview(archive, run_id)
     if found is not None:
         return found
     fingerprint = overview_fingerprint(archive, run_id)  # before reading: a change is seen
-    frame = archive.load_frame(run_id)
-    series = None
-    if archive.series_location(run_id) is not None:
-        series = archive.read_result_series(run_id)
-    overview = build_overview(frame, series)
+    overview = build_overview_in_windows(archive, run_id)
     try:
         write_overview(archive, run_id, overview, fingerprint)
     except OSError as exc:

@@ -109,6 +109,10 @@ def _pid_alive(pid: int) -> bool:
     return True
 
 
+#: An inclusive time window of a run, either end open (None). [s]
+Window = tuple[float | None, float | None]
+
+
 class Archive:
     """A run archive rooted at a folder (created if absent).
 
@@ -576,6 +580,38 @@ class Archive:
                 firsts.append(float(stats.min))
                 rows.append(rg.num_rows)
         return np.asarray(firsts, dtype=float), np.asarray(rows, dtype=np.int64)
+
+    def windows(
+        self, run_id: str, rows: int, t0: float | None = None, t1: float | None = None
+    ) -> tuple[list[Window], int]:
+        """Consecutive inclusive time windows of about ``rows`` rows covering ``[t0, t1]``.
+
+        For reading a long run a window at a time (:meth:`load_frame` with ``t0``,
+        ``t1``). Each window ends just before the next one's first sample time: no
+        row is read twice, none is skipped, also where times repeat. The cuts are
+        the first times of the base stream's row groups (:meth:`row_group_starts`,
+        whole row groups per window); without them, every ``rows``-th time of the
+        stream read whole (8 bytes a row). The first window starts at ``t0`` and the
+        last ends at ``t1`` (None: open). Also returns the run's rows in all (in
+        ``[t0, t1]`` when the times were read).
+        """
+        groups = self.row_group_starts(run_id)
+        if groups is not None:
+            firsts, counts = groups
+            per = max(1, rows // max(1, int(np.median(counts)) if counts.size else 1))
+            starts, total = firsts[per::per], int(counts.sum())
+        else:
+            t = self.load_frame(run_id, columns=[], t0=t0, t1=t1)[catalogue.T].to_numpy(float)
+            starts, total = t[rows::rows], int(t.size)
+            del t
+        if t0 is not None:
+            starts = starts[starts > t0]
+        if t1 is not None:
+            starts = starts[starts <= t1]
+        starts = starts[np.r_[True, starts[1:] > starts[:-1]]] if starts.size else starts
+        lows: list[float | None] = [t0, *starts.tolist()]
+        highs: list[float | None] = [float(np.nextafter(s, -np.inf)) for s in starts.tolist()]
+        return list(zip(lows, [*highs, t1], strict=True)), total
 
     def _read_stream(
         self, run_dir: Path, rel: str, columns: list[str], filters: list[Any] | None

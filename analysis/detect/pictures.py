@@ -21,7 +21,7 @@ import pandas as pd
 
 from analysis import catalogue as cat
 from analysis.archive.files import RowGroupCache
-from analysis.archive.store import Archive
+from analysis.archive.store import Archive, Window
 from analysis.detect.calibrate import calibrate_chunks
 from analysis.detect.course_map import course_path_chunks
 from analysis.detect.envelope import actuator_envelope_chunks
@@ -40,15 +40,13 @@ MAP_COLOURS: dict[str, tuple[str, str]] = {
 
 #: Rows of the run's base stream read at once (about 11 minutes at 400 Hz; a window
 #: rounds to whole row groups when the cuts come from the file's footer). The
-#: pictures of an eight-hour run then peak at 0.45 to 0.65 GiB, against 0.7 to 0.9
-#: with 2**20 rows and 2.3 to 3.5 whole (benchmarks/bench_dashboard.py). [-]
+#: pictures of an eight-hour run then peak at 0.35 to 0.65 GiB, against 0.45 to 0.9
+#: with 2**20 rows and 2.2 to 3.4 GiB whole (benchmarks/bench_dashboard.py). [-]
 WINDOW_ROWS = 1 << 18
 
 #: Time read beyond a window's ends in the derived series, so that a colour on another
 #: time base is interpolated between the same samples as over the whole run. [s]
 SERIES_MARGIN_S = 1.0
-
-Window = tuple[float | None, float | None]
 
 
 class PictureError(OutriggerError):
@@ -60,31 +58,8 @@ class PictureError(OutriggerError):
 def _windows(
     archive: Archive, run_id: str, t0: float | None = None, t1: float | None = None
 ) -> tuple[list[Window], int]:
-    """Consecutive inclusive time windows of about :data:`WINDOW_ROWS` rows covering ``[t0, t1]``.
-
-    Each window ends just before the next one's first sample time (no row is read
-    twice, none is skipped, also where times repeat). The cuts are the first times of
-    the base stream's row groups, from the file's footer; without them (an object
-    store), every :data:`WINDOW_ROWS`-th time of the stream read whole (8 bytes a
-    row). Also returns the run's rows in all (in ``[t0, t1]`` when read).
-    """
-    groups = archive.row_group_starts(run_id)
-    if groups is not None:
-        firsts, counts = groups
-        per = max(1, WINDOW_ROWS // max(1, int(np.median(counts)) if counts.size else 1))
-        starts, rows = firsts[per::per], int(counts.sum())
-    else:
-        t = archive.load_frame(run_id, columns=[], t0=t0, t1=t1)[cat.T].to_numpy(dtype=float)
-        starts, rows = t[WINDOW_ROWS::WINDOW_ROWS], int(t.size)
-        del t
-    if t0 is not None:
-        starts = starts[starts > t0]
-    if t1 is not None:
-        starts = starts[starts <= t1]
-    starts = starts[np.r_[True, starts[1:] > starts[:-1]]] if starts.size else starts
-    lows: list[float | None] = [t0, *starts.tolist()]
-    highs: list[float | None] = [float(np.nextafter(s, -np.inf)) for s in starts.tolist()]
-    return list(zip(lows, [*highs, t1], strict=True)), rows
+    """:meth:`Archive.windows` of :data:`WINDOW_ROWS` rows (read at call time)."""
+    return archive.windows(run_id, WINDOW_ROWS, t0, t1)
 
 
 def _frames(

@@ -214,8 +214,11 @@ def series(
     whole = t0 is None and t1 is None and points <= overview_max_points(OVERVIEW_BUCKETS)
     if whole:
         # A run stored before overviews existed is read as before this once, and its
-        # overview is built in the background (building it here took seconds).
+        # overview is built in the background (building it here took seconds), unless
+        # that read would be too large (RunCache.overview_now_if_large).
         stored = cache.stored_overview(archive, run_id)
+        if stored is None:  # a long run: not every column whole, but its overview first
+            stored = cache.overview_now_if_large(archive, run_id, len(set(names)))
     if stored is not None and points <= overview_max_points(stored.buckets):
         held = [n for n in dict.fromkeys(names) if n in stored.signals]
         out, bounds, by_source = _from_overview(stored, held, points, units)

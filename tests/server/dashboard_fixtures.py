@@ -59,6 +59,11 @@ PLANT_UNITS = {
 }
 
 
+#: Rows per row group of the run streams in the ``grouped`` archive (stored streams
+#: have 131,072): many row groups in a short run, for reading it in windows. [-]
+GROUP_ROWS = 1000
+
+
 @dataclass
 class RunInputs:
     """Log files, channel map and profile of one run, on disk."""
@@ -184,6 +189,23 @@ def stocked(
     planted_id = ingest_and_analyse(
         archive, planted_inputs, name="planted spike", course="test-bench", tags=("planted",)
     )
+    return Stocked(root, demo_id, planted_id)
+
+
+@pytest.fixture(scope="session")
+def grouped(
+    tmp_path_factory: pytest.TempPathFactory, demo_inputs: RunInputs, planted_inputs: RunInputs
+) -> Stocked:
+    """The demo and planted runs, stored in row groups of GROUP_ROWS rows."""
+    from analysis.ingest import order, stream
+
+    root = tmp_path_factory.mktemp("grouped")
+    archive = Archive(root)
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(stream, "ROW_GROUP_ROWS", GROUP_ROWS)
+        mp.setattr(order, "ROW_GROUP_ROWS", GROUP_ROWS)
+        demo_id = ingest_and_analyse(archive, demo_inputs)
+        planted_id = ingest_and_analyse(archive, planted_inputs)
     return Stocked(root, demo_id, planted_id)
 
 

@@ -227,3 +227,35 @@ def test_a_budget_finer_than_the_overview_reads_the_samples(run) -> None:
     # 2400 samples fit a 3000-point budget: every sample comes back (plus two breaks).
     s = body["signals"][cat.PITCH]
     assert not s["downsampled"] and len(s["t"]) == 2400 + 2
+
+
+def test_a_large_run_without_an_overview_is_answered_from_one_built_in_windows(
+    run, monkeypatch
+) -> None:
+    """An eight-hour run's Run page asks for 3 GB of columns: a run without an overview
+    that large has it built first, a window at a time, and is answered from it."""
+    from analysis.archive import overview_store
+    from server import run_cache
+
+    root, run_id = run
+    path = root / "runs" / run_id / OVERVIEW_FILE
+    with _client(root, cache_mb=0) as c:
+        want = _whole(c, run_id)
+    path.unlink()  # as for a run stored before overviews existed
+    monkeypatch.setattr(run_cache, "WHOLE_READ_MAX_BYTES", 1)  # every run counts as large
+    monkeypatch.setattr(overview_store, "BUILD_WINDOW_ROWS", 500)
+    monkeypatch.setattr(Archive, "row_group_starts", lambda self, run_id: None)  # one group
+    reads: list[tuple[object, object, object]] = []
+    load_frame = Archive.load_frame
+
+    def spy(self, run_id, columns=None, t0=None, t1=None, **kwargs):
+        reads.append((columns, t0, t1))
+        return load_frame(self, run_id, columns, t0, t1, **kwargs)
+
+    monkeypatch.setattr(Archive, "load_frame", spy)
+    with _client(root, cache_mb=0) as c:
+        first = _whole(c, run_id)
+        assert path.is_file()  # built before the answer, not in the background
+    assert first == want  # the spike, the dip and the holes as the analysis's overview
+    data = [(t0, t1) for cols, t0, t1 in reads if cols != []]
+    assert len(data) > 2 and all(t0 is not None or t1 is not None for t0, t1 in data)

@@ -11,16 +11,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from analysis.archive.store import Archive
-from tests.server.dashboard_fixtures import (
-    RunInputs,
-    Stocked,
-    fresh_app,
-    ingest_and_analyse,
-)
-
-#: Rows per row group of the run streams in the ``grouped`` archive (stored streams
-#: have 131,072): many row groups in a short run, for the pictures' windows. [-]
-GROUP_ROWS = 1000
+from tests.server.dashboard_fixtures import Stocked, fresh_app
 
 
 def test_course_map_answers_a_path_with_events(client: TestClient, stocked: Stocked) -> None:
@@ -112,23 +103,6 @@ def test_fleet_trends_refuse_an_unknown_kpi_with_the_choices(client: TestClient)
     r = client.get("/api/fleet/trends", params={"kpi": "happiness"})
     assert r.status_code == 400
     assert "min_tip_margin" in r.text and "happiness" in r.text
-
-
-@pytest.fixture(scope="module")
-def grouped(
-    tmp_path_factory: pytest.TempPathFactory, demo_inputs: RunInputs, planted_inputs: RunInputs
-) -> Stocked:
-    """The demo and planted runs, stored in row groups of GROUP_ROWS rows."""
-    from analysis.ingest import order, stream
-
-    root = tmp_path_factory.mktemp("grouped")
-    archive = Archive(root)
-    with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(stream, "ROW_GROUP_ROWS", GROUP_ROWS)
-        mp.setattr(order, "ROW_GROUP_ROWS", GROUP_ROWS)
-        demo_id = ingest_and_analyse(archive, demo_inputs)
-        planted_id = ingest_and_analyse(archive, planted_inputs)
-    return Stocked(root, demo_id, planted_id)
 
 
 @pytest.fixture(scope="module")
