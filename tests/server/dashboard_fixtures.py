@@ -146,6 +146,23 @@ def write_planted_inputs(folder: Path) -> RunInputs:
     return RunInputs([log], map_path, profile_path)
 
 
+#: What a spied :meth:`Archive.load_frame` was asked: (columns, t0, t1) per call.
+Reads = list[tuple[list[str] | None, float | None, float | None]]
+
+
+def spy_load_frame(monkeypatch: pytest.MonkeyPatch) -> Reads:
+    """Record every :meth:`Archive.load_frame` call's columns and window from now on."""
+    reads: Reads = []
+    load_frame = Archive.load_frame
+
+    def spy(self, run_id, columns=None, t0=None, t1=None, **kwargs):  # noqa: ANN001, ANN202
+        reads.append((columns, t0, t1))
+        return load_frame(self, run_id, columns, t0, t1, **kwargs)
+
+    monkeypatch.setattr(Archive, "load_frame", spy)
+    return reads
+
+
 def ingest_and_analyse(archive: Archive, inputs: RunInputs, **meta: Any) -> str:
     """Store and analyse one run the way the upload job does; return its id."""
     outcome = ingest_files(archive, inputs.logs, inputs.map_path, inputs.profile_path, **meta)

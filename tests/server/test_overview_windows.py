@@ -11,7 +11,7 @@ from analysis.archive import overview_store
 from analysis.archive.overview_store import build_overview_in_windows
 from analysis.archive.store import Archive
 from analysis.overview import build_overview
-from tests.server.dashboard_fixtures import Stocked
+from tests.server.dashboard_fixtures import Stocked, spy_load_frame
 
 
 @pytest.mark.parametrize("window_rows", [None, 997, 4099])
@@ -32,14 +32,7 @@ def test_overview_in_windows_equals_the_whole_run(
         monkeypatch.setattr(overview_store, "BUILD_WINDOW_ROWS", window_rows)
     if cuts == "times":  # as in an object store: no footer statistics at hand
         monkeypatch.setattr(Archive, "row_group_starts", lambda self, run_id: None)
-    reads: list[tuple[object, object, object]] = []
-    load_frame = Archive.load_frame
-
-    def spy(self, run_id, columns=None, t0=None, t1=None, **kwargs):
-        reads.append((columns, t0, t1))
-        return load_frame(self, run_id, columns, t0, t1, **kwargs)
-
-    monkeypatch.setattr(Archive, "load_frame", spy)
+    reads = spy_load_frame(monkeypatch)
     got = build_overview_in_windows(archive, run_id)
     assert list(got.signals) == list(ref.signals) and len(ref.signals) > 10
     assert got.spans == ref.spans and got.buckets == ref.buckets

@@ -28,6 +28,7 @@ from tests.server.dashboard_fixtures import (
     SPIKE_INDEX,
     SPIKE_NM,
     ingest_and_analyse,
+    spy_load_frame,
     wait_job,
     write_planted_inputs,
 )
@@ -245,14 +246,7 @@ def test_a_large_run_without_an_overview_is_answered_from_one_built_in_windows(
     monkeypatch.setattr(run_cache, "WHOLE_READ_MAX_BYTES", 1)  # every run counts as large
     monkeypatch.setattr(overview_store, "BUILD_WINDOW_ROWS", 500)
     monkeypatch.setattr(Archive, "row_group_starts", lambda self, run_id: None)  # one group
-    reads: list[tuple[object, object, object]] = []
-    load_frame = Archive.load_frame
-
-    def spy(self, run_id, columns=None, t0=None, t1=None, **kwargs):
-        reads.append((columns, t0, t1))
-        return load_frame(self, run_id, columns, t0, t1, **kwargs)
-
-    monkeypatch.setattr(Archive, "load_frame", spy)
+    reads = spy_load_frame(monkeypatch)
     with _client(root, cache_mb=0) as c:
         first = _whole(c, run_id)
         assert path.is_file()  # built before the answer, not in the background

@@ -11,7 +11,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from analysis.archive.store import Archive
-from tests.server.dashboard_fixtures import Stocked, fresh_app
+from tests.server.dashboard_fixtures import Stocked, fresh_app, spy_load_frame
 
 
 def test_course_map_answers_a_path_with_events(client: TestClient, stocked: Stocked) -> None:
@@ -150,14 +150,7 @@ def test_pictures_read_only_their_columns_and_match_the_whole_frame(
         monkeypatch.setattr(pictures, "WINDOW_ROWS", window_rows)
     if cuts == "times":  # as in an object store: no footer statistics at hand
         monkeypatch.setattr(Archive, "row_group_starts", lambda self, run_id: None)
-    asked: list[tuple[list[str] | None, float | None, float | None]] = []
-    load_frame = Archive.load_frame
-
-    def spy(self, run_id, columns=None, t0=None, t1=None, **kwargs):
-        asked.append((columns, t0, t1))
-        return load_frame(self, run_id, columns, t0, t1, **kwargs)
-
-    monkeypatch.setattr(Archive, "load_frame", spy)
+    asked = spy_load_frame(monkeypatch)
     client = grouped_client
     body = client.get(f"/api/runs/{run_id}/course-map?colour=speed").json()
     path = course_path(whole, profile)
