@@ -49,6 +49,11 @@ WINDOW_ROWS = 1 << 18
 SERIES_MARGIN_S = 1.0
 
 
+#: Most bytes of columns the envelope holds between its two passes instead of reading
+#: the run again. [B]
+HOLD_BYTES = 1 << 28
+
+
 class PictureError(OutriggerError):
     """A picture was asked for with a choice that does not exist."""
 
@@ -254,9 +259,19 @@ def envelope(
         flagged = name in archive.read_result_series(run_id, t0=-1.0, t1=-1.0).columns
     except RunNotFoundError:
         flagged = False
-    windows, _ = _windows(archive, run_id, t0, t1)
+    windows, rows = _windows(archive, run_id, t0, t1)
+    # The envelope passes over the rows twice; a run whose columns are small is held
+    # from the first pass (a one-hour run: 46 MB), a longer one read again.
+    held: list[tuple[pd.DataFrame, np.ndarray | None]] | None = (
+        [] if rows * len(cols) * 8 <= HOLD_BYTES else None
+    )
+    complete = False
 
     def chunks() -> Iterator[tuple[pd.DataFrame, np.ndarray | None]]:
+        nonlocal complete
+        if complete and held is not None:
+            yield from held
+            return
         cache = RowGroupCache()  # the series' row groups, decoded once as the windows move on
         for (lo, hi), frame in _frames(archive, run_id, cols[1:], windows):
             saturated = None
@@ -264,7 +279,10 @@ def envelope(
                 series = archive.read_result_series(run_id, [name], lo, hi, cache=cache)
                 if len(series) == len(frame):
                     saturated = series[name].to_numpy(dtype=bool)
+            if held is not None:
+                held.append((frame, saturated))
             yield frame, saturated
+        complete = True
 
     env = actuator_envelope_chunks(chunks, act)
     if env is None:
