@@ -38,6 +38,7 @@ from analysis import overview as overview_module
 from analysis.archive.location import Location
 from analysis.catalogue import T
 from analysis.overview import DERIVED, FRAME, RunOverview, SignalOverview, build_overview
+from analysis.overview_builder import OverviewBuilder
 
 
 class RunSource(Protocol):
@@ -256,14 +257,13 @@ def build_overview_in_windows(archive: RunSource, run_id: str) -> RunOverview:
     """:func:`analysis.overview.build_overview` of a stored run, read a window at a time.
 
     Every column of the frame and of the derived series, fed in time order to the
-    builder the chunked analysis uses (:class:`analysis.detect.chunked.OverviewBuilder`,
+    builder the chunked analysis uses (:class:`analysis.overview_builder.OverviewBuilder`,
     checked against ``build_overview`` in ``tests/analysis/detect/test_overview_builder.py``).
     Memory: one window of every column (:data:`BUILD_WINDOW_ROWS` rows), the kept
     extremes, and the run's time axis once (8 bytes a row) for its median step.
     The derived series are taken to lie on the frame's rows, as an analysis writes them.
     """
     from analysis.archive.files import RowGroupCache
-    from analysis.detect.chunked import OverviewBuilder
 
     analysed = archive.series_location(run_id) is not None
     t_all = archive.load_frame(run_id, columns=[])[T].to_numpy(dtype=float)

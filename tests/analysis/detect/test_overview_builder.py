@@ -15,8 +15,8 @@ import pandas as pd
 import pytest
 
 from analysis import catalogue as cat
-from analysis.detect.chunked import OverviewBuilder
 from analysis.overview import build_overview
+from analysis.overview_builder import OverviewBuilder
 
 BUCKETS = 64
 
