@@ -280,9 +280,7 @@ class RunCache:
         raw = [c for c in archive.columns(run_id) if c != cat.T]
         derived: list[str] = []
         if archive.read_results(run_id) is not None:
-            # An empty window (t < 0 never occurs): the Parquet statistics skip every row group.
-            series = archive.read_result_series(run_id, t0=-1.0, t1=-1.0)
-            derived = [c for c in series.columns if c != cat.T and c not in raw]
+            derived = [c for c in archive.series_columns(run_id) if c != cat.T and c not in raw]
         with self._lock:
             if self._current(run_id, entry):
                 entry.names = (raw, derived)

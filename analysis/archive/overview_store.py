@@ -73,7 +73,12 @@ class RunSource(Protocol):
     ) -> pd.DataFrame: ...
 
     def windows(
-        self, run_id: str, rows: int, t0: float | None = None, t1: float | None = None
+        self,
+        run_id: str,
+        rows: int,
+        t0: float | None = None,
+        t1: float | None = None,
+        times: np.ndarray | None = None,
     ) -> tuple[list[tuple[float | None, float | None]], int]: ...
 
 
@@ -272,11 +277,11 @@ def build_overview_in_windows(archive: RunSource, run_id: str) -> RunOverview:
         return build_overview(archive.load_frame(run_id), series)
     t_first, t_last = float(t_all[0]), float(t_all[-1])
     median_dt = float(np.median(np.diff(t_all), overwrite_input=True))  # as time_gaps
+    windows, _ = archive.windows(run_id, BUILD_WINDOW_ROWS, times=t_all)  # not read again
     del t_all
     # the bucket count read at call time, as build_overview does
     builder = OverviewBuilder(t_first, t_last, median_dt, overview_module.OVERVIEW_BUCKETS)
     frames, derived = RowGroupCache(), RowGroupCache()
-    windows, _ = archive.windows(run_id, BUILD_WINDOW_ROWS)
     for i, (lo, hi) in enumerate(windows):
         builder.add(archive.load_frame(run_id, t0=lo, t1=hi, cache=frames), FRAME)
         if i == 0:

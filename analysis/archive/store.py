@@ -582,7 +582,12 @@ class Archive:
         return np.asarray(firsts, dtype=float), np.asarray(rows, dtype=np.int64)
 
     def windows(
-        self, run_id: str, rows: int, t0: float | None = None, t1: float | None = None
+        self,
+        run_id: str,
+        rows: int,
+        t0: float | None = None,
+        t1: float | None = None,
+        times: np.ndarray | None = None,
     ) -> tuple[list[Window], int]:
         """Consecutive inclusive time windows of about ``rows`` rows covering ``[t0, t1]``.
 
@@ -591,9 +596,10 @@ class Archive:
         row is read twice, none is skipped, also where times repeat. The cuts are
         the first times of the base stream's row groups (:meth:`row_group_starts`,
         whole row groups per window); without them, every ``rows``-th time of the
-        stream read whole (8 bytes a row). The first window starts at ``t0`` and the
-        last ends at ``t1`` (None: open). Also returns the run's rows in all (in
-        ``[t0, t1]`` when the times were read).
+        stream (``times`` when the caller has read them already, else read whole: 8
+        bytes a row). The first window starts at ``t0`` and the last ends at ``t1``
+        (None: open). Also returns the run's rows in all (in ``[t0, t1]`` when cut
+        from the times).
         """
         groups = self.row_group_starts(run_id)
         if groups is not None:
@@ -601,7 +607,12 @@ class Archive:
             per = max(1, rows // max(1, int(np.median(counts)) if counts.size else 1))
             starts, total = firsts[per::per], int(counts.sum())
         else:
-            t = self.load_frame(run_id, columns=[], t0=t0, t1=t1)[catalogue.T].to_numpy(float)
+            if times is None:
+                t = self.load_frame(run_id, columns=[], t0=t0, t1=t1)[catalogue.T].to_numpy(float)
+            else:
+                lo = 0 if t0 is None else int(np.searchsorted(times, t0, side="left"))
+                hi = times.size if t1 is None else int(np.searchsorted(times, t1, side="right"))
+                t = times[lo:hi]
             starts, total = t[rows::rows], int(t.size)
             del t
         if t0 is not None:
@@ -684,6 +695,14 @@ class Archive:
             return None
         summary: dict[str, Any] = json.loads((res / "summary.json").read_text(encoding="utf-8"))
         return read_frame(res / "events.parquet"), summary
+
+    def series_columns(self, run_id: str) -> list[str]:
+        """Columns of the run's derived series (``t`` first), without reading a row.
+
+        Raises :class:`RunNotFoundError` when the run was never analysed.
+        """
+        # An empty window (t < 0 never occurs): the Parquet statistics skip every row group.
+        return [str(c) for c in self.read_result_series(run_id, t0=-1.0, t1=-1.0).columns]
 
     def read_result_series(
         self,

@@ -60,13 +60,6 @@ class PictureError(OutriggerError):
     status = 400
 
 
-def _windows(
-    archive: Archive, run_id: str, t0: float | None = None, t1: float | None = None
-) -> tuple[list[Window], int]:
-    """:meth:`Archive.windows` of :data:`WINDOW_ROWS` rows (read at call time)."""
-    return archive.windows(run_id, WINDOW_ROWS, t0, t1)
-
-
 def _frames(
     archive: Archive, run_id: str, columns: list[str], windows: list[Window]
 ) -> Iterator[tuple[Window, pd.DataFrame]]:
@@ -103,8 +96,7 @@ def _calibration_columns(profile: RobotProfile) -> list[str]:
 def _series_names(archive: Archive, run_id: str, colour: str) -> list[str] | None:
     """The derived series a colour is made of (None: the run was not analysed)."""
     try:
-        # an empty window: the row groups' statistics skip every one
-        names = archive.read_result_series(run_id, t0=-1.0, t1=-1.0).columns
+        names = archive.series_columns(run_id)
     except RunNotFoundError:
         return None
     if colour == "slip_speed":
@@ -171,7 +163,7 @@ def course_map(archive: Archive, run_id: str, colour: str = "tip_margin") -> dic
     ev = stored[0] if stored is not None else None
     starts = np.zeros(0) if ev is None else ev["start_s"].to_numpy(dtype=float)
     wanted = None if colour == "speed" else _series_names(archive, run_id, colour)
-    windows, rows = _windows(archive, run_id)
+    windows, rows = archive.windows(run_id, WINDOW_ROWS)
     columns = _course_columns(profile)
 
     def chunks() -> Iterator[tuple[pd.DataFrame, np.ndarray | None]]:
@@ -256,10 +248,10 @@ def envelope(
     ]
     name = f"{actuator}.{cat.SATURATED}"
     try:
-        flagged = name in archive.read_result_series(run_id, t0=-1.0, t1=-1.0).columns
+        flagged = name in archive.series_columns(run_id)
     except RunNotFoundError:
         flagged = False
-    windows, rows = _windows(archive, run_id, t0, t1)
+    windows, rows = archive.windows(run_id, WINDOW_ROWS, t0, t1)
     # The envelope passes over the rows twice; a run whose columns are small is held
     # from the first pass (a one-hour run: 46 MB), a longer one read again.
     held: list[tuple[pd.DataFrame, np.ndarray | None]] | None = (
@@ -327,7 +319,7 @@ def envelope(
 def calibration(archive: Archive, run_id: str) -> dict[str, Any]:
     """The calibration check of a run against its stored profile, in display units."""
     profile = archive.load_profile(run_id)
-    windows, _ = _windows(archive, run_id)
+    windows, _ = archive.windows(run_id, WINDOW_ROWS)
     columns = _calibration_columns(profile)
     result = calibrate_chunks((f for _, f in _frames(archive, run_id, columns, windows)), profile)
     rows = []

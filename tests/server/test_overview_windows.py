@@ -83,8 +83,8 @@ class _InMemory:
     def read_result_series(self, run_id, columns=None, t0=None, t1=None, cache=None):  # noqa: ANN001, ANN201
         return self._cut(self.series, columns, t0, t1)
 
-    def windows(self, run_id, rows, t0=None, t1=None):  # noqa: ANN001, ANN201
-        return Archive.windows(self, run_id, rows, t0, t1)  # type: ignore[arg-type]
+    def windows(self, run_id, rows, t0=None, t1=None, times=None):  # noqa: ANN001, ANN201
+        return Archive.windows(self, run_id, rows, t0, t1, times)  # type: ignore[arg-type]
 
     def row_group_starts(self, run_id: str) -> None:
         return None
